@@ -1,0 +1,219 @@
+"""Families of tabular MDPs with known structure, each seeded through numpy Generators.
+
+Every constructor returns a :class:`~rlrates.mdp.TabularMDP` whose ``metadata``
+records the family and its parameters (for reports and reproducers).
+``horizon_hard`` depends on the discount, so it returns a *gamma-indexed family*:
+a callable ``gamma -> TabularMDP`` that :func:`rlrates.check` accepts in place
+of a single MDP.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .exact import validate_gamma
+from .mdp import TabularMDP
+
+__all__ = ["garnet", "chain", "gridworld", "ring", "deterministic", "horizon_hard", "HorizonHard"]
+
+
+def _positive_int(value: object, name: str, minimum: int = 1) -> int:
+    if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or int(value) < minimum:
+        raise ValueError(f"`{name}` must be an integer >= {minimum}, got {value!r}")
+    return int(value)
+
+
+def _probability(value: object, name: str) -> float:
+    if isinstance(value, bool) or not isinstance(value, (int, float, np.integer, np.floating)):
+        raise ValueError(f"`{name}` must be a probability in [0, 1], got {value!r}")
+    if not 0.0 <= float(value) <= 1.0:
+        raise ValueError(f"`{name}` must be a probability in [0, 1], got {value!r}")
+    return float(value)
+
+
+def garnet(states: int, actions: int, branching: int, seed: int = 0) -> TabularMDP:
+    """A Garnet MDP: ``branching`` distinct random successors per (s, a).
+
+    Construction after Archibald, McKinnon and Thomas (1995), "On the generation
+    of Markov decision processes", J. Oper. Res. Soc. 46: successors drawn without
+    replacement, their probabilities the spacings of ``branching - 1`` sorted
+    uniform cut points on [0, 1]; rewards uniform on [0, 1].
+    """
+    states = _positive_int(states, "states")
+    actions = _positive_int(actions, "actions")
+    branching = _positive_int(branching, "branching")
+    if branching > states:
+        raise ValueError(f"`branching` ({branching}) cannot exceed `states` ({states})")
+    rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
+    rows = states * actions
+    # distinct successors: the first `branching` columns of a random permutation per row
+    successors = np.argsort(rng.random((rows, states)), axis=1)[:, :branching]
+    cuts = np.sort(rng.random((rows, branching - 1)), axis=1)
+    edges = np.concatenate([np.zeros((rows, 1)), cuts, np.ones((rows, 1))], axis=1)
+    weights = np.diff(edges, axis=1)
+    P = np.zeros((rows, states))
+    np.put_along_axis(P, successors, weights, axis=1)
+    R = rng.random((states, actions))
+    return TabularMDP(
+        P.reshape(states, actions, states),
+        R,
+        name=f"garnet-S{states}-A{actions}-b{branching}-seed{seed}",
+        metadata={"family": "garnet", "states": states, "actions": actions, "branching": branching, "seed": int(seed)},
+    )
+
+
+def chain(states: int = 10, slip: float = 0.1, seed: int = 0) -> TabularMDP:
+    """A corridor: action 0 moves left, action 1 moves right; with prob. ``slip`` the move reverses.
+
+    Reward 1 for acting in the right end state, 0.1 in the left end state, a small
+    seeded reward in [0, 0.05) elsewhere (common practice: the "RiverSwim"-like
+    corridor of exploration studies, here with a generative model).
+    """
+    states = _positive_int(states, "states", 2)
+    slip = _probability(slip, "slip")
+    rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
+    P = np.zeros((states, 2, states))
+    for s in range(states):
+        left, right = max(s - 1, 0), min(s + 1, states - 1)
+        P[s, 0, left] += 1 - slip
+        P[s, 0, right] += slip
+        P[s, 1, right] += 1 - slip
+        P[s, 1, left] += slip
+    R = rng.random((states, 2)) * 0.05
+    R[0, :] = 0.1
+    R[-1, :] = 1.0
+    return TabularMDP(P, R, name=f"chain-S{states}-slip{slip:g}",
+                      metadata={"family": "chain", "states": states, "slip": slip, "seed": int(seed)})
+
+
+def gridworld(
+    width: int = 5,
+    height: int = 5,
+    slip: float = 0.2,
+    walls: tuple[tuple[int, int], ...] = ((1, 1), (2, 3), (3, 1)),
+    goal: tuple[int, int] | None = None,
+) -> TabularMDP:
+    """A grid with walls and slip: actions up/right/down/left; with prob. ``slip`` a uniformly random move.
+
+    Walls are impassable cells (not states). Moving into a wall or off the grid
+    leaves the agent in place. Reward 1 for any action taken in the goal cell
+    (default: the bottom-right free cell), 0 elsewhere (common practice).
+    """
+    width = _positive_int(width, "width")
+    height = _positive_int(height, "height")
+    slip = _probability(slip, "slip")
+    wall_set = {tuple(w) for w in walls}
+    cells = [(r, c) for r in range(height) for c in range(width) if (r, c) not in wall_set]
+    if not cells:
+        raise ValueError("`walls` cover the whole grid; no states remain")
+    index = {cell: i for i, cell in enumerate(cells)}
+    goal_cell = cells[-1] if goal is None else tuple(goal)
+    if goal_cell not in index:
+        raise ValueError(f"`goal` {goal!r} is a wall or off the grid")
+    moves = [(-1, 0), (0, 1), (1, 0), (0, -1)]
+    S = len(cells)
+    P = np.zeros((S, 4, S))
+    for (r, c), s in index.items():
+        targets = []
+        for dr, dc in moves:
+            nxt = (r + dr, c + dc)
+            targets.append(index.get(nxt, s))
+        for a in range(4):
+            P[s, a, targets[a]] += 1 - slip
+            for t in targets:
+                P[s, a, t] += slip / 4
+    R = np.zeros((S, 4))
+    R[index[goal_cell], :] = 1.0
+    return TabularMDP(P, R, name=f"grid-{width}x{height}-slip{slip:g}",
+                      metadata={"family": "gridworld", "width": width, "height": height, "slip": slip,
+                                "walls": [list(w) for w in sorted(wall_set)], "goal": list(goal_cell)})
+
+
+def ring(states: int = 12, slip: float = 0.1, seed: int = 0) -> TabularMDP:
+    """States on a cycle: stay, step clockwise, step counter-clockwise; with prob. ``slip`` a uniform step.
+
+    Rewards are seeded uniform on [0, 1] per (s, a) (common practice).
+    """
+    states = _positive_int(states, "states", 3)
+    slip = _probability(slip, "slip")
+    rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
+    P = np.zeros((states, 3, states))
+    for s in range(states):
+        targets = [s, (s + 1) % states, (s - 1) % states]
+        for a in range(3):
+            P[s, a, targets[a]] += 1 - slip
+            for t in targets:
+                P[s, a, t] += slip / 3
+    R = rng.random((states, 3))
+    return TabularMDP(P, R, name=f"ring-S{states}-slip{slip:g}",
+                      metadata={"family": "ring", "states": states, "slip": slip, "seed": int(seed)})
+
+
+def deterministic(states: int = 8, actions: int = 3, seed: int = 0) -> TabularMDP:
+    """Every (s, a) has exactly one successor (one-hot rows): any correct plug-in estimator is exact.
+
+    Successors and rewards uniform at random (seeded).
+    """
+    states = _positive_int(states, "states")
+    actions = _positive_int(actions, "actions")
+    rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
+    successor = rng.integers(0, states, size=(states, actions))
+    P = np.zeros((states, actions, states))
+    s_idx, a_idx = np.meshgrid(np.arange(states), np.arange(actions), indexing="ij")
+    P[s_idx, a_idx, successor] = 1.0
+    R = rng.random((states, actions))
+    return TabularMDP(P, R, name=f"deterministic-S{states}-A{actions}-seed{seed}",
+                      metadata={"family": "deterministic", "states": states, "actions": actions, "seed": int(seed)})
+
+
+@dataclass(frozen=True)
+class HorizonHard:
+    """Gamma-indexed family in the spirit of the lower-bound MDP of Azar, Munos and Kappen (2013).
+
+    "Minimax PAC bounds on the sample complexity of reinforcement learning with a
+    generative model", Machine Learning 91. State 0 is a decision state whose
+    ``actions`` actions each lead to their own rewarding state (states 1..A);
+    rewarding state ``k`` gives reward 1 and loops on itself with probability
+    ``p = (4 gamma - 1) / (3 gamma)``, otherwise it falls into state A + 1,
+    absorbing with reward 0. Since ``1 - gamma p = 4 (1 - gamma) / 3``, a loop's
+    value is ``3 H / 4`` and the plug-in estimate's standard deviation grows like
+    ``H^1.5 / sqrt(n)``. Needs gamma > 1/4 (so that p > 0).
+    """
+
+    actions: int = 2
+
+    def __call__(self, gamma: float) -> TabularMDP:
+        gamma = validate_gamma(gamma)
+        if gamma <= 0.25:
+            raise ValueError(f"horizon_hard needs gamma > 1/4 so that the loop probability is positive, got {gamma}")
+        A = _positive_int(self.actions, "actions")
+        p = (4 * gamma - 1) / (3 * gamma)
+        S = A + 2
+        sink = A + 1
+        P = np.zeros((S, A, S))
+        R = np.zeros((S, A))
+        for a in range(A):
+            P[0, a, 1 + a] = 1.0
+        for k in range(1, A + 1):
+            P[k, :, k] = p
+            P[k, :, sink] = 1 - p
+            R[k, :] = 1.0
+        P[sink, :, sink] = 1.0
+        return TabularMDP(P, R, name=f"horizon-hard-A{A}-gamma{gamma:g}",
+                          metadata={"family": "horizon_hard", "actions": A, "gamma": gamma, "loop_probability": p})
+
+    @property
+    def name(self) -> str:
+        return f"horizon-hard-A{self.actions}"
+
+    @property
+    def metadata(self) -> dict[str, object]:
+        return {"family": "horizon_hard", "actions": self.actions}
+
+
+def horizon_hard(actions: int = 2) -> HorizonHard:
+    """The gamma-indexed horizon-hard family; call the result with a discount to get an MDP."""
+    _positive_int(actions, "actions")
+    return HorizonHard(actions=int(actions))

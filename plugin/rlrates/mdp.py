@@ -1,0 +1,213 @@
+"""The tabular MDP model: validated, immutable transition and reward arrays.
+
+A :class:`TabularMDP` holds ``P`` of shape ``(S, A, S)`` (``P[s, a, s']`` is the
+probability of moving to ``s'`` after taking ``a`` in ``s``) and ``R`` of shape
+``(S, A)`` (the expected immediate reward). Construction validates both and
+names the offending entry when something is wrong; afterwards the arrays are
+read-only, so an estimator or a test cannot change the ground truth by accident.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import warnings
+from collections.abc import Mapping
+from typing import Any
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+__all__ = ["TabularMDP", "RewardRangeWarning", "ROW_SUM_TOLERANCE"]
+
+#: Largest accepted ``|sum_s' P[s, a, s'] - 1|`` for a transition row. Rows within
+#: this tolerance are accepted and renormalised exactly when sampling.
+ROW_SUM_TOLERANCE = 1e-8
+
+
+class RewardRangeWarning(UserWarning):
+    """Rewards outside [0, 1]: the usual sample-complexity bounds assume that range."""
+
+
+def _as_float_array(value: ArrayLike, name: str, ndim: int, layout: str) -> NDArray[np.float64]:
+    try:
+        array = np.array(value, dtype=np.float64)
+    except (TypeError, ValueError) as exc:
+        raise ValueError(f"`{name}` must be a numeric array of shape {layout}; {exc}") from None
+    if array.ndim != ndim:
+        raise ValueError(
+            f"`{name}` must have {ndim} dimensions {layout}, got {array.ndim} "
+            f"(shape {array.shape})"
+        )
+    return array
+
+
+def _first_index(mask: NDArray[np.bool_]) -> tuple[int, ...]:
+    return tuple(int(i) for i in np.argwhere(mask)[0])
+
+
+def validate_transitions(P: ArrayLike, *, tolerance: float = ROW_SUM_TOLERANCE) -> NDArray[np.float64]:
+    """Return ``P`` as a float array after checking it is a valid (S, A, S) kernel."""
+    array = _as_float_array(P, "P", 3, "(S, A, S)")
+    states, actions, successors = array.shape
+    if states == 0:
+        raise ValueError("`P` has no states: shape (0, A, S); an MDP needs at least one state")
+    if actions == 0:
+        raise ValueError(f"`P` has no actions: shape {array.shape}; an MDP needs at least one action")
+    if successors != states:
+        raise ValueError(
+            f"`P` must have shape (S, A, S) with the same S on both ends, got {array.shape}"
+        )
+    bad = ~np.isfinite(array)
+    if bad.any():
+        s, a, t = _first_index(bad)
+        raise ValueError(
+            f"`P` has a non-finite entry P[{s}, {a}, {t}] = {array[s, a, t]!r} "
+            f"({int(bad.sum())} non-finite entries in all)"
+        )
+    negative = array < 0
+    if negative.any():
+        s, a, t = _first_index(negative)
+        raise ValueError(
+            f"`P` has a negative probability P[{s}, {a}, {t}] = {array[s, a, t]:.6g}"
+        )
+    sums = array.sum(axis=2)
+    off = np.abs(sums - 1.0) > tolerance
+    if off.any():
+        s, a = _first_index(off)
+        raise ValueError(
+            f"`P` row (s={s}, a={a}) sums to {sums[s, a]:.12g}, not 1 "
+            f"(tolerance {tolerance:g}; {int(off.sum())} rows off in all)"
+        )
+    return array
+
+
+def validate_rewards(R: ArrayLike, states: int, actions: int) -> NDArray[np.float64]:
+    """Return ``R`` as a float array after checking shape (S, A) and finiteness."""
+    array = _as_float_array(R, "R", 2, "(S, A)")
+    if array.shape != (states, actions):
+        raise ValueError(
+            f"`R` must have shape (S, A) = ({states}, {actions}) to match `P`, got {array.shape}"
+        )
+    bad = ~np.isfinite(array)
+    if bad.any():
+        s, a = _first_index(bad)
+        raise ValueError(f"`R` has a non-finite entry R[{s}, {a}] = {array[s, a]!r}")
+    return array
+
+
+class TabularMDP:
+    """A finite MDP with transition kernel ``P`` (S, A, S) and mean rewards ``R`` (S, A).
+
+    Parameters
+    ----------
+    P:
+        Transition probabilities; every row ``P[s, a, :]`` is non-negative and sums
+        to 1 within :data:`ROW_SUM_TOLERANCE`.
+    R:
+        Expected immediate rewards. The bounds this plugin checks assume rewards in
+        ``[0, 1]``; other ranges are accepted with a :class:`RewardRangeWarning`.
+    name:
+        A short label used in test ids and reports.
+    metadata:
+        Free-form description of where the MDP came from (family and parameters).
+
+    The arrays are copied and made read-only; :attr:`fingerprint` is a stable hash
+    of their contents (independent of ``name`` and ``metadata``).
+    """
+
+    __slots__ = ("_P", "_R", "_name", "_metadata", "_fingerprint")
+
+    def __init__(
+        self,
+        P: ArrayLike,
+        R: ArrayLike,
+        *,
+        name: str = "mdp",
+        metadata: Mapping[str, Any] | None = None,
+    ) -> None:
+        P_array = validate_transitions(P)
+        R_array = validate_rewards(R, P_array.shape[0], P_array.shape[1])
+        if R_array.min() < 0.0 or R_array.max() > 1.0:
+            warnings.warn(
+                f"rewards of MDP {name!r} lie in [{R_array.min():.4g}, {R_array.max():.4g}], "
+                "outside [0, 1]; rate constants then scale with the reward range",
+                RewardRangeWarning,
+                stacklevel=2,
+            )
+        P_array.setflags(write=False)
+        R_array.setflags(write=False)
+        self._P = P_array
+        self._R = R_array
+        self._name = str(name)
+        self._metadata = dict(metadata or {})
+        digest = hashlib.blake2b(digest_size=16)
+        digest.update(np.asarray(P_array.shape, dtype=np.int64).tobytes())
+        digest.update(np.ascontiguousarray(P_array).tobytes())
+        digest.update(np.ascontiguousarray(R_array).tobytes())
+        self._fingerprint = digest.hexdigest()
+
+    @property
+    def P(self) -> NDArray[np.float64]:
+        """Read-only transition kernel, shape (S, A, S)."""
+        return self._P
+
+    @property
+    def R(self) -> NDArray[np.float64]:
+        """Read-only mean rewards, shape (S, A)."""
+        return self._R
+
+    @property
+    def states(self) -> int:
+        return int(self._P.shape[0])
+
+    @property
+    def actions(self) -> int:
+        return int(self._P.shape[1])
+
+    @property
+    def name(self) -> str:
+        return self._name
+
+    @property
+    def metadata(self) -> dict[str, Any]:
+        """A copy of the description given at construction."""
+        return dict(self._metadata)
+
+    @property
+    def fingerprint(self) -> str:
+        """Hex digest of the shape and contents of ``P`` and ``R``."""
+        return self._fingerprint
+
+    @property
+    def reward_span(self) -> float:
+        """``max R - min R``, or 1 when all rewards are equal (a scale for errors)."""
+        span = float(self._R.max() - self._R.min())
+        return span if span > 0 else 1.0
+
+    def __setattr__(self, key: str, value: Any) -> None:
+        if hasattr(self, "_fingerprint"):
+            raise AttributeError("TabularMDP is immutable; build a new one instead")
+        object.__setattr__(self, key, value)
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        return (_rebuild, (np.array(self._P), np.array(self._R), self._name, self._metadata))
+
+    def __eq__(self, other: object) -> bool:
+        if not isinstance(other, TabularMDP):
+            return NotImplemented
+        return self._fingerprint == other._fingerprint
+
+    def __hash__(self) -> int:
+        return hash(self._fingerprint)
+
+    def __repr__(self) -> str:
+        return (
+            f"TabularMDP(name={self._name!r}, states={self.states}, actions={self.actions}, "
+            f"fingerprint={self._fingerprint[:12]})"
+        )
+
+
+def _rebuild(P: NDArray[np.float64], R: NDArray[np.float64], name: str, metadata: dict[str, Any]) -> TabularMDP:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", RewardRangeWarning)
+        return TabularMDP(P, R, name=name, metadata=metadata)

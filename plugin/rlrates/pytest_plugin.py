@@ -1,0 +1,1 @@
+"""pytest entry point (placeholder until the pytest layer lands)."""

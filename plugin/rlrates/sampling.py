@@ -1,0 +1,143 @@
+"""Generative-model sampling: n next-state samples for every state-action pair.
+
+A :class:`Batch` is one draw with two views: ``counts`` (S, A, S) and
+``next_states`` (S, A, n). The counts come from one vectorised
+``Generator.multinomial`` call (cost O(S^2 A), whatever n); the sequence view is
+built from the counts only when an estimator reads it, by laying the states out
+and shuffling each row with an independent child stream. Both views are of the
+same draw and both are read-only.
+
+Streams: every batch is rebuilt from a :class:`numpy.random.SeedSequence` given
+by an integer entropy and a spawn key of stable identifiers (see
+:func:`cell_seed`), so any cell of a sweep can be re-drawn alone, in any process.
+"""
+
+from __future__ import annotations
+
+import hashlib
+from collections.abc import Sequence
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .mdp import TabularMDP
+
+__all__ = ["Batch", "draw", "cell_seed", "stable_words", "sampling_kernel"]
+
+IntArray = NDArray[np.int64]
+
+
+def stable_words(text: str, words: int = 2) -> tuple[int, ...]:
+    """Turn a string into ``words`` 32-bit integers (a stable spawn-key part)."""
+    digest = hashlib.blake2b(text.encode("utf-8"), digest_size=4 * words).digest()
+    return tuple(int.from_bytes(digest[4 * i : 4 * i + 4], "little") for i in range(words))
+
+
+def gamma_key(gamma: float) -> int:
+    """A stable integer for a discount factor (exact to 1e-9)."""
+    return int(round(float(gamma) * 1_000_000_000))
+
+
+def cell_seed(master_seed: int, context: str, gamma: float, n: int, replicate: int) -> np.random.SeedSequence:
+    """The seed of one sweep cell: ``SeedSequence(master_seed, spawn_key=(...))``.
+
+    The key is built from stable identifiers only: a hash of ``context`` (for
+    example a test id and an MDP fingerprint), the discount, n and the replicate.
+    """
+    key = (*stable_words(context), gamma_key(gamma), int(n), int(replicate))
+    return np.random.SeedSequence(int(master_seed), spawn_key=key)
+
+
+def sampling_kernel(mdp: TabularMDP) -> NDArray[np.float64]:
+    """``P`` reshaped to (S*A, S) with rows renormalised exactly for multinomial draws."""
+    flat = np.array(mdp.P.reshape(mdp.states * mdp.actions, mdp.states))
+    flat /= flat.sum(axis=1, keepdims=True)
+    # Generator.multinomial rejects sum(pvals[:-1]) > 1 beyond a tiny tolerance; move
+    # any rounding excess off the last entries so the leading partial sums stay <= 1.
+    head = flat[:, :-1].sum(axis=1)
+    flat[:, -1] = np.clip(1.0 - head, 0.0, None)
+    return flat
+
+
+class Batch:
+    """One generative-model draw: n sampled next states for each (s, a).
+
+    Attributes are computed lazily: reading ``counts`` never builds the (S, A, n)
+    array; reading ``next_states`` builds it once from the counts.
+    """
+
+    def __init__(self, counts: IntArray, n: int, order_seed: np.random.SeedSequence) -> None:
+        counts.setflags(write=False)
+        self._counts = counts
+        self._n = int(n)
+        self._order_seed = order_seed
+        self._next_states: IntArray | None = None
+
+    @property
+    def n(self) -> int:
+        """Samples per state-action pair."""
+        return self._n
+
+    @property
+    def states(self) -> int:
+        return int(self._counts.shape[0])
+
+    @property
+    def actions(self) -> int:
+        return int(self._counts.shape[1])
+
+    @property
+    def counts(self) -> IntArray:
+        """Read-only (S, A, S) int array: how often each successor was sampled."""
+        return self._counts
+
+    @property
+    def next_states(self) -> IntArray:
+        """Read-only (S, A, n) int array: the i-th sampled successor of (s, a)."""
+        if self._next_states is None:
+            S, A = self.states, self.actions
+            flat_counts = self._counts.reshape(S * A, S)
+            ordered = np.repeat(np.tile(np.arange(S, dtype=np.int64), S * A), flat_counts.ravel())
+            ordered = ordered.reshape(S * A, self._n)
+            shuffled = np.random.default_rng(self._order_seed).permuted(ordered, axis=1)
+            shuffled = shuffled.reshape(S, A, self._n)
+            shuffled.setflags(write=False)
+            self._next_states = shuffled
+        return self._next_states
+
+    @property
+    def empirical_P(self) -> NDArray[np.float64]:
+        """The plug-in model ``counts / n`` (a fresh, writable array)."""
+        return self._counts / float(self._n)
+
+    def __repr__(self) -> str:
+        return f"Batch(states={self.states}, actions={self.actions}, n={self._n})"
+
+
+def _validate_n(n: object) -> int:
+    if isinstance(n, bool) or not isinstance(n, (int, np.integer)):
+        raise TypeError(f"`n` must be a positive integer, got {n!r} of type {type(n).__name__}")
+    if int(n) < 1:
+        raise ValueError(f"`n` must be a positive integer, got {n}")
+    return int(n)
+
+
+def draw(
+    mdp: TabularMDP,
+    n: int,
+    seed: int | np.random.SeedSequence | Sequence[int] = 0,
+    *,
+    kernel: NDArray[np.float64] | None = None,
+) -> Batch:
+    """Draw ``n`` next states for every (s, a) of ``mdp`` from its generative model.
+
+    ``seed`` is an int, a sequence of ints, or a ready :class:`SeedSequence`; its
+    first child seeds the counts and its second the order of ``next_states``.
+    ``kernel`` lets a sweep pass :func:`sampling_kernel` once instead of per draw.
+    """
+    n = _validate_n(n)
+    seq = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
+    counts_seed, order_seed = seq.spawn(2)
+    flat = sampling_kernel(mdp) if kernel is None else kernel
+    counts = np.random.default_rng(counts_seed).multinomial(n, flat).astype(np.int64, copy=False)
+    return Batch(counts.reshape(mdp.states, mdp.actions, mdp.states), n, order_seed)
