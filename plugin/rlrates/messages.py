@@ -1,0 +1,97 @@
+"""Plain-text explanation of a check result: claim, fits, why, the numbers, how to reproduce.
+
+Pure functions of a :class:`~rlrates.check.CheckResult`; no pytest, no I/O.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import TYPE_CHECKING
+
+import pandas as pd
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .check import CheckResult
+
+__all__ = ["format_message", "headline", "mean_error_grid", "format_interval"]
+
+_REASON_NAMES = {
+    "rate": "rate too slow",
+    "floor": "error floor",
+    "horizon": "horizon growth too steep",
+}
+
+
+def headline(result: "CheckResult") -> str:
+    """One line: status, which sub-tests fired, target and MDP."""
+    status = result.status.upper()
+    if result.status == "fail":
+        why = ", ".join(_REASON_NAMES.get(f, f) for f in result.fired)
+        status += f" ({why})"
+    elif result.status == "inconclusive":
+        status += " (undecided within the profile's budget)"
+    elif result.status == "error":
+        status += " (the estimator failed)"
+    return f"rlrates {status}: target {result.target} on {result.mdp_name}"
+
+
+def format_interval(exponent: float, low: float, high: float) -> str:
+    if not math.isfinite(exponent):
+        return "n/a"
+    return f"{exponent:+.3f} [{low:+.3f}, {high:+.3f}]"
+
+
+def mean_error_grid(table: pd.DataFrame) -> pd.DataFrame:
+    """Mean error per n (rows) and gamma (columns)."""
+    if not len(table):
+        return pd.DataFrame()
+    grid = table.pivot_table(index="n", columns="gamma", values="error", aggfunc="mean")
+    grid.columns = [f"gamma={g:g}" for g in grid.columns]
+    return grid
+
+
+def _tolerance(result: "CheckResult", factor: str) -> float:
+    return result.profile.n_tolerance if factor == "n" else result.profile.horizon_tolerance
+
+
+def format_message(result: "CheckResult") -> str:
+    lines = [headline(result), f"claimed:   {result.claim.describe()}  ({result.norm}-norm error)"]
+    if result.failure is not None:
+        lines.append(f"why:       {result.failure.describe()}")
+        lines.append(f"           {len(result.table)} replicate(s) finished before it and are kept in the table")
+        if result.failure.traceback:
+            lines.append("estimator traceback:")
+            lines.extend("    " + line for line in result.failure.traceback.rstrip().splitlines())
+    else:
+        lines.append("fitted:    factor    exponent [one-sided bounds]   claimed  tolerance  verdict")
+        for row in result.fits.itertuples(index=False):
+            label = "n" if row.factor == "n" else "H"
+            interval = format_interval(row.exponent, row.low, row.high)
+            lines.append(
+                f"           {label:<8}  {interval:<28} {row.claimed:>+7.3g}  {_tolerance(result, row.factor):>+9.3g}  {row.verdict}"
+            )
+        for reason in result.reasons:
+            lines.append(f"why:       {reason}")
+        if result.status == "pass" and not result.reasons:
+            lines.append("why:       no sub-test fired and every interval is inside the claim plus tolerance")
+    for note in result.notes:
+        lines.append(f"note:      {note}")
+    slopes = result.slopes
+    if len(slopes) and "slope" in slopes:
+        lines.append("per discount: gamma      H   n-slope (all)   n-slope (largest n)")
+        for row in slopes.itertuples(index=False):
+            if getattr(row, "state", "") == "fitted":
+                lines.append(f"              {row.gamma:<6g} {row.H:>5.3g}   {row.slope:>+8.3f}        {row.upper_slope:>+8.3f}")
+            else:
+                lines.append(f"              {row.gamma:<6g} {row.H:>5.3g}   {row.state}")
+    grid = mean_error_grid(result.table)
+    if len(grid):
+        lines.append("mean error by n:")
+        lines.extend("    " + line for line in grid.to_string(float_format=lambda v: f"{v:.4g}").splitlines())
+    lines.append(
+        f"profile:   {result.profile.name}, {result.passes} pass(es), {len(result.table)} estimator calls, "
+        f"{result.elapsed:.2f} s ({result.estimator_seconds:.2f} s in the estimator)"
+    )
+    lines.append("evidence under idealised assumptions (generative model, known rewards), not a proof")
+    lines.append(f"reproduce: {result.reproducer}")
+    return "\n".join(lines)

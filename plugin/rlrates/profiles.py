@@ -1,0 +1,121 @@
+"""Profiles: the sweep grid, replicate counts, escalation budget and test levels of a check.
+
+``quick`` is sized for CI (seconds for a vectorised estimator on a 20-state MDP);
+``full`` for a paper appendix (minutes). Both can be overridden per call, e.g.
+``check(..., n_grid=(256, 512, 1024), gammas=(0.6, 0.9))``.
+
+Decision rules (see :mod:`rlrates.verdict`): each sub-test fires when its
+one-sided confidence bound at level ``1 - alpha`` clears the claim plus a
+tolerance, and passes only when the opposite bound is inside it. The three
+sub-tests share ``alpha`` (a Bonferroni split), so a correct estimator is failed
+with probability at most about ``alpha`` overall, and far less when its true
+exponents sit well inside the tolerances.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, replace
+from typing import Any
+
+__all__ = ["Profile", "PROFILES", "resolve_profile"]
+
+
+@dataclass(frozen=True)
+class Profile:
+    """A sweep design and its decision parameters.
+
+    Attributes
+    ----------
+    n_grid: samples per state-action pair, increasing (at least three values).
+    gammas: discounts, increasing, each in (0, 1).
+    replicates: independent draws per (gamma, n) cell in the first pass.
+    more_replicates: escalation step 1 multiplies the replicates by this (1 = skip).
+    n_doublings: escalation step 2 doubles the largest n this many times, one per pass.
+    alpha: total one-sided false-alarm budget, split over the three sub-tests.
+    n_tolerance: slack on the pooled n-exponent before "rate too slow" fires.
+    floor_tolerance: slack on each discount's upper-grid slope before "error floor" fires.
+    horizon_tolerance: slack on the H-exponent before "horizon growth too steep" fires.
+    min_n_per_horizon: cells with n below this multiple of H are pre-asymptotic and not fitted.
+    saturation: cells whose mean error exceeds this fraction of the error scale
+        (the value range, or 2 for L1 model errors) are saturated and not fitted.
+    """
+
+    name: str
+    n_grid: tuple[int, ...]
+    gammas: tuple[float, ...]
+    replicates: int
+    more_replicates: int = 2
+    n_doublings: int = 2
+    alpha: float = 0.01
+    n_tolerance: float = 0.15
+    floor_tolerance: float = 0.25
+    horizon_tolerance: float = 0.3
+    min_n_per_horizon: float = 8.0
+    saturation: float = 0.3
+
+    def __post_init__(self) -> None:
+        grid = tuple(self.n_grid)
+        for n in grid:
+            if isinstance(n, bool) or not isinstance(n, int) and not (hasattr(n, "__index__")):
+                raise ValueError(f"`n_grid` must hold positive integers, got {n!r}")
+            if int(n) < 1:
+                raise ValueError(f"`n_grid` must hold positive integers, got {n!r}")
+        grid = tuple(sorted({int(n) for n in grid}))
+        if len(grid) < 3:
+            raise ValueError(f"`n_grid` needs at least three distinct values to fit a slope, got {tuple(self.n_grid)}")
+        gammas: list[float] = []
+        for g in self.gammas:
+            if isinstance(g, bool) or not isinstance(g, (int, float)) and not hasattr(g, "__float__"):
+                raise ValueError(f"`gammas` must hold numbers in (0, 1), got {g!r}")
+            value = float(g)
+            if not 0.0 < value < 1.0:
+                raise ValueError(f"`gammas` must lie in (0, 1), got {g!r}")
+            gammas.append(value)
+        if not gammas:
+            raise ValueError("`gammas` must hold at least one discount")
+        if int(self.replicates) < 4:
+            raise ValueError(f"`replicates` must be at least 4 for a confidence interval, got {self.replicates!r}")
+        if not 0.0 < float(self.alpha) < 0.5:
+            raise ValueError(f"`alpha` must lie in (0, 0.5), got {self.alpha!r}")
+        object.__setattr__(self, "n_grid", grid)
+        object.__setattr__(self, "gammas", tuple(sorted(set(gammas))))
+        object.__setattr__(self, "replicates", int(self.replicates))
+
+    def with_overrides(self, **overrides: Any) -> "Profile":
+        """A copy with some fields replaced (unknown names raise ``TypeError``)."""
+        known = set(self.__dataclass_fields__)
+        unknown = sorted(set(overrides) - known)
+        if unknown:
+            raise TypeError(f"unknown profile setting(s) {', '.join(unknown)}; known: {', '.join(sorted(known))}")
+        return replace(self, **{k: v for k, v in overrides.items() if v is not None})
+
+
+PROFILES: dict[str, Profile] = {
+    # CI: 3 discounts x 5 sample sizes x 16 replicates = 240 estimator calls per pass.
+    "quick": Profile(
+        name="quick",
+        n_grid=(128, 256, 512, 1024, 2048),
+        gammas=(0.5, 0.75, 0.9),
+        replicates=16,
+    ),
+    # Paper appendix: 5 discounts x 7 sample sizes x 48 replicates = 1680 calls per pass.
+    "full": Profile(
+        name="full",
+        n_grid=(256, 512, 1024, 2048, 4096, 8192, 16384),
+        gammas=(0.5, 0.7, 0.8, 0.9, 0.95),
+        replicates=48,
+        n_doublings=2,
+        alpha=0.005,
+    ),
+}
+
+
+def resolve_profile(profile: object, **overrides: Any) -> Profile:
+    """A :class:`Profile` from a name or an instance, with per-call overrides applied."""
+    if isinstance(profile, Profile):
+        base = profile
+    elif isinstance(profile, str) and profile in PROFILES:
+        base = PROFILES[profile]
+    else:
+        raise ValueError(f"unknown `profile` {profile!r}; choose one of {', '.join(PROFILES)} or pass a Profile")
+    return base.with_overrides(**overrides) if overrides else base

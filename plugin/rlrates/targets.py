@@ -1,0 +1,179 @@
+"""Targets: what an estimator estimates, how its output is validated, and how its error is measured.
+
+=========  ========================  ==============================================
+target     estimator returns         error against the exact answer
+=========  ========================  ==============================================
+q_pi       (S, A) float Q estimate   ``||Q_hat - Q^pi||`` (sup-norm, or mean abs.)
+q_star     (S, A) float Q estimate   ``||Q_hat - Q*||``
+policy     (S,) actions or (S, A)    ``||Q* - Q^{pi_hat}||`` (exact suboptimality)
+           probabilities
+model      (S, A, S) kernel          ``max_{s,a} ||P_hat[s,a] - P[s,a]||_1``
+=========  ========================  ==============================================
+
+The exact answer is solved once per discount (:func:`solve_truth`) and reused for
+every replicate and n.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .exact import q_pi, q_star, uniform_policy, validate_policy
+from .mdp import TabularMDP
+
+__all__ = ["TARGETS", "NORMS", "Problem", "Truth", "EstimateError", "solve_truth", "validate_estimate", "estimate_error"]
+
+TARGETS = ("q_pi", "q_star", "policy", "model")
+NORMS = ("sup", "mean")
+
+Array = NDArray[np.float64]
+
+
+class EstimateError(ValueError):
+    """An estimator returned something that is not a valid estimate for the target."""
+
+
+def validate_target(target: object) -> str:
+    if target not in TARGETS:
+        raise ValueError(f"unknown `target` {target!r}; choose one of {', '.join(TARGETS)}")
+    return str(target)
+
+
+def validate_norm(norm: object) -> str:
+    if norm not in NORMS:
+        raise ValueError(f"unknown `norm` {norm!r}; choose 'sup' (sup-norm) or 'mean' (mean absolute error)")
+    return str(norm)
+
+
+@dataclass(frozen=True)
+class Problem:
+    """What the estimator may know besides the samples: never the transition kernel."""
+
+    states: int
+    actions: int
+    rewards: Array
+    gamma: float
+    policy: Array
+    target: str
+
+    @property
+    def horizon(self) -> float:
+        """Effective horizon H = 1 / (1 - gamma)."""
+        return 1.0 / (1.0 - self.gamma)
+
+
+@dataclass
+class Truth:
+    """The exact answer for one discount, and the scale that errors saturate at."""
+
+    mdp: TabularMDP
+    gamma: float
+    target: str
+    policy: Array
+    value: Array  # Q^pi, Q* or P depending on the target
+    scale: float
+    _policy_cache: dict[bytes, float] = field(default_factory=dict, repr=False)
+
+    def problem(self) -> Problem:
+        rewards = self.mdp.R
+        policy = np.array(self.policy)
+        policy.setflags(write=False)
+        return Problem(self.mdp.states, self.mdp.actions, rewards, self.gamma, policy, self.target)
+
+
+def solve_truth(mdp: TabularMDP, gamma: float, target: str, policy: Any = None) -> Truth:
+    """Solve the exact target once for this discount."""
+    pi = uniform_policy(mdp) if policy is None else validate_policy(mdp, policy)
+    H = 1.0 / (1.0 - gamma)
+    value_scale = mdp.reward_span * H
+    if target == "q_pi":
+        return Truth(mdp, gamma, target, pi, q_pi(mdp, gamma, pi), value_scale)
+    if target in ("q_star", "policy"):
+        q, _ = q_star(mdp, gamma)
+        return Truth(mdp, gamma, target, pi, q, value_scale)
+    if target == "model":
+        return Truth(mdp, gamma, target, pi, np.asarray(mdp.P), 2.0)
+    raise ValueError(f"unknown `target` {target!r}")
+
+
+def _require_array(estimate: object, what: str) -> np.ndarray:
+    if not isinstance(estimate, np.ndarray):
+        raise EstimateError(
+            f"the estimator returned {type(estimate).__name__}, not a numpy.ndarray; return {what}"
+        )
+    return estimate
+
+
+def _require_float(estimate: np.ndarray, what: str) -> Array:
+    if estimate.dtype.kind != "f":
+        hint = " (integer values usually mean rounding or integer division)" if estimate.dtype.kind in "iub" else ""
+        raise EstimateError(f"the estimator returned dtype {estimate.dtype}; {what} must be floating point{hint}")
+    bad = ~np.isfinite(estimate)
+    if bad.any():
+        index = tuple(int(i) for i in np.argwhere(bad)[0])
+        raise EstimateError(
+            f"the estimator returned a non-finite value {estimate[index]!r} at index {index} "
+            f"({int(bad.sum())} non-finite entries in all)"
+        )
+    return estimate.astype(np.float64, copy=False)
+
+
+def validate_estimate(estimate: object, truth: Truth) -> Array:
+    """Check an estimator's return value for the target; raise :class:`EstimateError` naming the problem."""
+    S, A = truth.mdp.states, truth.mdp.actions
+    if truth.target in ("q_pi", "q_star"):
+        what = f"an (S, A) = ({S}, {A}) float array of Q-values"
+        array = _require_array(estimate, what)
+        if array.shape != (S, A):
+            raise EstimateError(f"the estimator returned shape {array.shape}; expected {what}")
+        return _require_float(array, "Q-values")
+    if truth.target == "policy":
+        what = f"({S},) integer actions or ({S}, {A}) action probabilities"
+        array = _require_array(estimate, what)
+        if array.ndim == 1 and array.shape == (S,) and array.dtype.kind not in "iu":
+            raise EstimateError(f"the estimator returned a ({S},) policy of dtype {array.dtype}; actions must be integers")
+        if array.ndim == 2 and array.shape == (S, A):
+            array = _require_float(array, "action probabilities")
+        try:
+            return validate_policy(truth.mdp, array, name="returned policy")
+        except ValueError as exc:
+            raise EstimateError(str(exc)) from None
+    what = f"an (S, A, S) = ({S}, {A}, {S}) transition estimate"
+    array = _require_float_shape(_require_array(estimate, what), (S, A, S), what)
+    if (array < 0).any():
+        s, a, t = (int(i) for i in np.argwhere(array < 0)[0])
+        raise EstimateError(f"the returned model has a negative probability at (s={s}, a={a}, s'={t})")
+    sums = array.sum(axis=2)
+    off = np.abs(sums - 1.0) > 1e-6
+    if off.any():
+        s, a = (int(i) for i in np.argwhere(off)[0])
+        raise EstimateError(f"the returned model's row (s={s}, a={a}) sums to {sums[s, a]:.10g}, not 1")
+    return array
+
+
+def _require_float_shape(array: np.ndarray, shape: tuple[int, ...], what: str) -> Array:
+    if array.shape != shape:
+        raise EstimateError(f"the estimator returned shape {array.shape}; expected {what}")
+    return _require_float(array, "model probabilities")
+
+
+def estimate_error(estimate: Array, truth: Truth, norm: str = "sup") -> float:
+    """Error of a validated estimate against the exact answer."""
+    if truth.target in ("q_pi", "q_star"):
+        diff = np.abs(estimate - truth.value)
+        return float(diff.max() if norm == "sup" else diff.mean())
+    if truth.target == "policy":
+        key = np.ascontiguousarray(estimate).tobytes()
+        cached = truth._policy_cache.get(key)
+        if cached is None:
+            gap = np.abs(truth.value - q_pi(truth.mdp, truth.gamma, estimate))
+            cached = float(gap.max() if norm == "sup" else gap.mean())
+            if len(truth._policy_cache) < 4096:
+                truth._policy_cache[key] = cached
+        return cached
+    distances = np.abs(estimate - truth.value).sum(axis=2)
+    return float(distances.max() if norm == "sup" else distances.mean())
