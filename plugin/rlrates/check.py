@@ -152,7 +152,8 @@ def check(
             f"{', '.join(f'{g:g}' for g in early)}; those cells are pre-asymptotic and left out of the fits",
             RatesWarning, stacklevel=2,
         )
-    zero_tolerance = {g: 1e-9 * max(1.0, t.scale) for g, t in truths.items()}
+    resolution = design.policy_resolution if target == "policy" else 1e-9
+    zero_tolerance = {g: resolution * max(1.0, t.scale) for g, t in truths.items()}
     scale = {g: t.scale for g, t in truths.items()}
     kernels = {g: sampling_kernel(t.mdp) for g, t in truths.items()}
 

@@ -21,6 +21,8 @@ __all__ = [
     "v_pi",
     "q_pi",
     "q_star",
+    "evaluate_arrays",
+    "policy_iteration",
     "greedy_policy",
     "suboptimality",
     "model_distance",
@@ -141,12 +143,27 @@ def q_star(mdp: TabularMDP, gamma: float) -> tuple[Array, NDArray[np.int64]]:
     Improvement switches action only on a strict gain larger than a rounding
     threshold, so the iteration terminates and ties resolve to the lowest index.
     """
-    gamma = validate_gamma(gamma)
-    S, A = mdp.states, mdp.actions
+    return policy_iteration(mdp.P, mdp.R, validate_gamma(gamma))
+
+
+def evaluate_arrays(P: Array, R: Array, gamma: float, policy: Array) -> Array:
+    """Q^pi from raw arrays (no validation): P (S, A, S), R (S, A), policy (S, A) probabilities.
+
+    For use inside estimators, e.g. to evaluate a policy in an empirical model.
+    """
+    P_pi = np.einsum("sa,sat->st", policy, P)
+    r_pi = np.einsum("sa,sa->s", policy, R)
+    values = np.linalg.solve(np.eye(P.shape[0]) - gamma * P_pi, r_pi)
+    return R + gamma * P @ values
+
+
+def policy_iteration(P: Array, R: Array, gamma: float) -> tuple[Array, NDArray[np.int64]]:
+    """Q* and a deterministic optimal policy of raw arrays (no validation; gamma in (0, 1))."""
+    S, A = R.shape
     policy = np.zeros(S, dtype=np.int64)
     rows = np.arange(S)
     for _ in range(10 * S * A + 10):  # finite: at most A^S policies, usually a handful
-        q = q_pi(mdp, gamma, policy)
+        q = evaluate_arrays(P, R, gamma, policy_matrix(policy, A))
         current = q[rows, policy]
         best = greedy_policy(q)
         scale = max(1.0, float(np.abs(q).max()))

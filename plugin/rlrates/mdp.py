@@ -30,7 +30,10 @@ class RewardRangeWarning(UserWarning):
 
 def _as_float_array(value: ArrayLike, name: str, ndim: int, layout: str) -> NDArray[np.float64]:
     try:
-        array = np.array(value, dtype=np.float64)
+        raw = np.asarray(value)
+        if np.iscomplexobj(raw):  # casting would silently drop the imaginary part
+            raise TypeError(f"complex dtype {raw.dtype} is not real")
+        array = np.array(raw, dtype=np.float64)
     except (TypeError, ValueError) as exc:
         raise ValueError(f"`{name}` must be a numeric array of shape {layout}; {exc}") from None
     if array.ndim != ndim:
@@ -142,8 +145,9 @@ class TabularMDP:
         self._metadata = dict(metadata or {})
         digest = hashlib.blake2b(digest_size=16)
         digest.update(np.asarray(P_array.shape, dtype=np.int64).tobytes())
-        digest.update(np.ascontiguousarray(P_array).tobytes())
-        digest.update(np.ascontiguousarray(R_array).tobytes())
+        # `+ 0.0` maps -0.0 to +0.0, so numerically equal models hash alike
+        digest.update(np.ascontiguousarray(P_array + 0.0).tobytes())
+        digest.update(np.ascontiguousarray(R_array + 0.0).tobytes())
         self._fingerprint = digest.hexdigest()
 
     @property

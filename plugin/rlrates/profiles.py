@@ -31,13 +31,20 @@ class Profile:
     replicates: independent draws per (gamma, n) cell in the first pass.
     more_replicates: escalation step 1 multiplies the replicates by this (1 = skip).
     n_doublings: escalation step 2 doubles the largest n this many times, one per pass.
-    alpha: total one-sided false-alarm budget, split over the three sub-tests.
+    alpha: total one-sided false-alarm budget, split over the three sub-tests
+        (and, for the floor test, over the discounts).
+    pass_alpha: one-sided level of the far bound that must lie inside the
+        tolerance before a sub-test counts as passed (the miss-rate side; not split).
     n_tolerance: slack on the pooled n-exponent before "rate too slow" fires.
     floor_tolerance: slack on each discount's upper-grid slope before "error floor" fires.
     horizon_tolerance: slack on the H-exponent before "horizon growth too steep" fires.
     min_n_per_horizon: cells with n below this multiple of H are pre-asymptotic and not fitted.
     saturation: cells whose mean error exceeds this fraction of the error scale
         (the value range, or 2 for L1 model errors) are saturated and not fitted.
+    policy_resolution: for the "policy" target, a mean suboptimality below this
+        fraction of the value range counts as zero. Near-tied actions make the
+        suboptimality a tiny plateau over a range of n (until n exceeds the
+        inverse square of the gap), which is not a rate violation.
     """
 
     name: str
@@ -47,11 +54,13 @@ class Profile:
     more_replicates: int = 2
     n_doublings: int = 2
     alpha: float = 0.01
+    pass_alpha: float = 0.05
     n_tolerance: float = 0.15
     floor_tolerance: float = 0.25
     horizon_tolerance: float = 0.3
     min_n_per_horizon: float = 8.0
     saturation: float = 0.3
+    policy_resolution: float = 1e-4
 
     def __post_init__(self) -> None:
         grid = tuple(self.n_grid)
@@ -75,8 +84,9 @@ class Profile:
             raise ValueError("`gammas` must hold at least one discount")
         if int(self.replicates) < 4:
             raise ValueError(f"`replicates` must be at least 4 for a confidence interval, got {self.replicates!r}")
-        if not 0.0 < float(self.alpha) < 0.5:
-            raise ValueError(f"`alpha` must lie in (0, 0.5), got {self.alpha!r}")
+        for level in ("alpha", "pass_alpha"):
+            if not 0.0 < float(getattr(self, level)) < 0.5:
+                raise ValueError(f"`{level}` must lie in (0, 0.5), got {getattr(self, level)!r}")
         object.__setattr__(self, "n_grid", grid)
         object.__setattr__(self, "gammas", tuple(sorted(set(gammas))))
         object.__setattr__(self, "replicates", int(self.replicates))

@@ -132,12 +132,18 @@ def draw(
     """Draw ``n`` next states for every (s, a) of ``mdp`` from its generative model.
 
     ``seed`` is an int, a sequence of ints, or a ready :class:`SeedSequence`; its
-    first child seeds the counts and its second the order of ``next_states``.
+    first child seeds the counts and its second the order of ``next_states``
+    (the same children every time: ``seed`` is not advanced, so reusing it repeats the draw).
     ``kernel`` lets a sweep pass :func:`sampling_kernel` once instead of per draw.
     """
     n = _validate_n(n)
     seq = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
-    counts_seed, order_seed = seq.spawn(2)
+    # The first two children, built without `seq.spawn` (which advances the parent's
+    # spawn counter and would make a reused SeedSequence draw differently).
+    counts_seed, order_seed = (
+        np.random.SeedSequence(seq.entropy, spawn_key=(*seq.spawn_key, i), pool_size=seq.pool_size)
+        for i in range(2)
+    )
     flat = sampling_kernel(mdp) if kernel is None else kernel
     counts = np.random.default_rng(counts_seed).multinomial(n, flat).astype(np.int64, copy=False)
     return Batch(counts.reshape(mdp.states, mdp.actions, mdp.states), n, order_seed)

@@ -12,8 +12,10 @@ Three sub-tests, each one-sided at its share of the profile's ``alpha``:
   ``claim.horizon + horizon_tolerance``.
 
 A claim passes only when no sub-test fires *and* every interval is narrow enough
-to have caught a violation of the tolerance's size (its far bound lies inside the
-tolerance). Anything else is ambiguous and asks for more replicates or larger n.
+to have caught a violation of the tolerance's size: its upper bound at level
+``1 - pass_alpha`` lies inside the claim plus tolerance. Anything else is
+ambiguous and asks for more replicates or larger n. In ``fits``, ``low`` is the
+fire-side bound (level ``1 - alpha`` share) and ``high`` the pass-side bound.
 
 Cells are left out of the fits when pre-asymptotic (n below ``min_n_per_horizon``
 times H, or mean error above ``saturation`` times the error scale). Cells whose
@@ -153,7 +155,9 @@ def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[fl
                     f"rate too slow: the n-exponent is {pooled.estimate:.2f} (lower bound {pooled.lower(alpha):.2f}), "
                     f"above the claimed {claim.n:g} plus tolerance {profile.n_tolerance:g}"
                 )
-            elif pooled.upper(alpha) > limit or any(s.upper(floor_alpha) > floor_limit for _, s in upper):
+            elif pooled.upper(profile.pass_alpha) > limit or any(
+                s.upper(profile.pass_alpha) > floor_limit for _, s in upper
+            ):
                 unclear.append("n")
             if floors or (rate_fire and "rate" in fires):
                 n_verdict = "violated"
@@ -180,13 +184,13 @@ def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[fl
                     f"{horizon.lower(alpha):.2f}), above the claimed H^{claim.horizon:g} plus tolerance "
                     f"{profile.horizon_tolerance:g}"
                 )
-            elif horizon.upper(alpha) > limit:
+            elif horizon.upper(profile.pass_alpha) > limit:
                 unclear.append("horizon")
                 h_verdict = "unclear"
         elif short:
             unclear.append("horizon")
             h_verdict = "unclear"
-    decision.fits = _fits_rows(claim, pooled, horizon, None, alpha, n_verdict, h_verdict)
+    decision.fits = _fits_rows(claim, pooled, horizon, None, (alpha, profile.pass_alpha), n_verdict, h_verdict)
     decision.fired = fires
     if fires:
         decision.status = "fail"
@@ -222,7 +226,7 @@ def _fits_rows(
     pooled: Slope | None,
     horizon: Slope | None,
     fixed: str | None,
-    alpha: float = 0.01,
+    levels: tuple[float, float] = (0.01, 0.05),
     n_verdict: str = "ok",
     h_verdict: str = "ok",
 ) -> pd.DataFrame:
@@ -233,5 +237,6 @@ def _fits_rows(
         if slope is None:
             rows.append((factor, math.nan, math.nan, math.nan, bound, fixed or verdict))
         else:
-            rows.append((factor, slope.estimate, slope.lower(alpha), slope.upper(alpha), bound, fixed or verdict))
+            low, high = slope.lower(levels[0]), slope.upper(levels[1])
+            rows.append((factor, slope.estimate, low, high, bound, fixed or verdict))
     return pd.DataFrame(rows, columns=FITS_COLUMNS)

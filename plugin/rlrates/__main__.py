@@ -1,0 +1,50 @@
+"""Command line: ``python -m rlrates demo`` checks reference estimators and a broken one."""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+
+
+def _demo(seed: int) -> int:
+    import numpy as np
+
+    import rlrates
+    from rlrates import reference
+
+    def stale_buffer_q_pi(batch: rlrates.Batch, problem: rlrates.Problem) -> np.ndarray:
+        """A plug-in evaluator after a bad refactor: it keeps only the first 32 samples."""
+        S, A = problem.states, problem.actions
+        kept = batch.next_states[:, :, :32]
+        model = np.zeros((S, A, S))
+        np.add.at(model, (np.arange(S)[:, None, None], np.arange(A)[None, :, None], kept), 1.0 / kept.shape[2])
+        return reference.evaluate_arrays(model, problem.rewards, problem.gamma, problem.policy)
+
+    mdp = rlrates.garnet(states=20, actions=4, branching=5, seed=seed)
+    claim = rlrates.Claim(n=-0.5, horizon=2.0)
+    outcomes = []
+    for label, estimator in (("plug-in evaluation", reference.plugin_q_pi), ("stale-buffer refactor", stale_buffer_q_pi)):
+        result = rlrates.check(estimator, mdp, claim, target="q_pi", seed=seed)
+        print(f"== {label} ==")
+        print(result.message)
+        print()
+        outcomes.append(result.status)
+    expected = ["pass", "fail"]
+    print(f"demo: plug-in {outcomes[0]}, stale buffer {outcomes[1]} (expected {expected[0]}, {expected[1]})")
+    return 0 if outcomes == expected else 1
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(prog="python -m rlrates", description="pytest-rlrates command line")
+    commands = parser.add_subparsers(dest="command", required=True)
+    demo = commands.add_parser("demo", help="check a correct and a broken estimator on a Garnet MDP")
+    demo.add_argument("--seed", type=int, default=0, help="master seed (default 0)")
+    args = parser.parse_args(argv)
+    if args.command == "demo":
+        return _demo(args.seed)
+    return 2  # pragma: no cover
+
+
+if __name__ == "__main__":
+    sys.exit(main())
