@@ -59,7 +59,7 @@ class Profile:
     floor_tolerance: float = 0.25
     horizon_tolerance: float = 0.3
     min_n_per_horizon: float = 8.0
-    saturation: float = 0.3
+    saturation: float = 0.5
     policy_resolution: float = 1e-4
 
     def __post_init__(self) -> None:
@@ -101,12 +101,12 @@ class Profile:
 
 
 PROFILES: dict[str, Profile] = {
-    # CI: 3 discounts x 5 sample sizes x 16 replicates = 240 estimator calls per pass.
+    # CI: 3 discounts x 5 sample sizes x 24 replicates = 360 estimator calls per pass.
     "quick": Profile(
         name="quick",
         n_grid=(128, 256, 512, 1024, 2048),
         gammas=(0.5, 0.75, 0.9),
-        replicates=16,
+        replicates=24,
     ),
     # Paper appendix: 5 discounts x 7 sample sizes x 48 replicates = 1680 calls per pass.
     "full": Profile(

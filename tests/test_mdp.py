@@ -1,0 +1,391 @@
+"""Tests of the validated, immutable TabularMDP and of the MDP families.
+
+Expected values here are worked out by hand from the definitions (each one is
+explained beside its check); none is a number printed by the code under test.
+"""
+
+from __future__ import annotations
+
+import math
+import pickle
+
+import numpy as np
+import pytest
+
+import rlrates
+from rlrates import RewardRangeWarning, TabularMDP
+from rlrates.exact import v_pi
+
+
+def _two_state() -> tuple[np.ndarray, np.ndarray]:
+    """A valid 2-state, 2-action model with rewards in [0, 1]."""
+    P = np.array(
+        [
+            [[0.5, 0.5], [1.0, 0.0]],
+            [[0.25, 0.75], [0.0, 1.0]],
+        ]
+    )
+    R = np.array([[0.0, 1.0], [0.5, 0.25]])
+    return P, R
+
+
+# --------------------------------------------------------------------------- validation
+
+
+class TestValidation:
+    def test_valid_model_is_accepted(self) -> None:
+        P, R = _two_state()
+        mdp = TabularMDP(P, R)
+        assert (mdp.states, mdp.actions) == (2, 2)
+        np.testing.assert_array_equal(mdp.P, P)
+        np.testing.assert_array_equal(mdp.R, R)
+
+    @pytest.mark.parametrize("P", [np.ones((2, 2)) / 2, np.ones((2, 2, 2, 2)) / 2, np.float64(1.0)])
+    def test_P_wrong_ndim(self, P: np.ndarray) -> None:
+        with pytest.raises(ValueError, match=r"`P` must have 3 dimensions"):
+            TabularMDP(P, np.zeros((2, 2)))
+
+    def test_R_wrong_ndim(self) -> None:
+        P, _ = _two_state()
+        with pytest.raises(ValueError, match=r"`R` must have 2 dimensions"):
+            TabularMDP(P, np.zeros(4))
+
+    def test_P_not_square_in_states(self) -> None:
+        P = np.full((2, 2, 3), 1.0 / 3.0)
+        with pytest.raises(ValueError, match=r"same S on both ends, got \(2, 2, 3\)"):
+            TabularMDP(P, np.zeros((2, 2)))
+
+    @pytest.mark.parametrize("shape", [(2, 3), (3, 2), (1, 2)])
+    def test_R_shape_must_match_P(self, shape: tuple[int, int]) -> None:
+        P, _ = _two_state()
+        with pytest.raises(ValueError, match=r"`R` must have shape \(S, A\) = \(2, 2\)"):
+            TabularMDP(P, np.zeros(shape))
+
+    @pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
+    def test_non_finite_P_names_entry(self, bad: float) -> None:
+        P, R = _two_state()
+        P[1, 0, 1] = bad
+        with pytest.raises(ValueError, match=r"non-finite entry P\[1, 0, 1\]"):
+            TabularMDP(P, R)
+
+    @pytest.mark.parametrize("bad", [np.nan, np.inf, -np.inf])
+    def test_non_finite_R_names_entry(self, bad: float) -> None:
+        P, R = _two_state()
+        R[0, 1] = bad
+        with pytest.raises(ValueError, match=r"non-finite entry R\[0, 1\]"):
+            TabularMDP(P, R)
+
+    def test_negative_probability_names_entry(self) -> None:
+        P, R = _two_state()
+        P[1, 1] = [-0.25, 1.25]  # row still sums to 1, so only the sign is wrong
+        with pytest.raises(ValueError, match=r"negative probability P\[1, 1, 0\] = -0.25"):
+            TabularMDP(P, R)
+
+    def test_row_sum_names_row_and_sum(self) -> None:
+        P, R = _two_state()
+        P[1, 0] = [0.25, 0.5]  # sums to 0.75
+        with pytest.raises(ValueError, match=r"row \(s=1, a=0\) sums to 0\.75, not 1"):
+            TabularMDP(P, R)
+
+    def test_row_sum_just_outside_tolerance(self) -> None:
+        P, R = _two_state()
+        P[0, 1] = [1.0 + 1e-6, 0.0]
+        with pytest.raises(ValueError, match=r"row \(s=0, a=1\) sums to 1\.000001"):
+            TabularMDP(P, R)
+
+    def test_row_sum_within_tolerance_accepted(self) -> None:
+        P, R = _two_state()
+        P[0, 1] = [1.0 + 1e-12, 0.0]
+        TabularMDP(P, R)
+
+    def test_no_states(self) -> None:
+        with pytest.raises(ValueError, match=r"no states"):
+            TabularMDP(np.zeros((0, 2, 0)), np.zeros((0, 2)))
+
+    def test_no_actions(self) -> None:
+        with pytest.raises(ValueError, match=r"no actions"):
+            TabularMDP(np.zeros((2, 0, 2)), np.zeros((2, 0)))
+
+    @pytest.mark.parametrize(
+        "P",
+        [
+            [[["a", "b"], ["c", "d"]]],
+            [[[0.5, 0.5], [1.0]]],  # ragged
+            {"P": 1},
+            np.full((1, 1, 1), 1.0 + 0.5j),  # complex: casting would drop the imaginary part
+        ],
+        ids=["strings", "ragged", "dict", "complex"],
+    )
+    def test_non_numeric_P(self, P: object) -> None:
+        with pytest.raises(ValueError, match=r"`P` must be a numeric array"):
+            TabularMDP(P, np.zeros((1, 1)))
+
+    def test_non_numeric_R(self) -> None:
+        with pytest.raises(ValueError, match=r"`R` must be a numeric array"):
+            TabularMDP(np.ones((1, 1, 1)), [["x"]])
+
+    def test_nested_lists_accepted(self) -> None:
+        mdp = TabularMDP([[[1.0]]], [[0.5]])
+        assert mdp.P.dtype == np.float64 and mdp.R.dtype == np.float64
+
+    @pytest.mark.parametrize("reward", [-0.5, 1.5])
+    def test_reward_outside_unit_interval_warns(self, reward: float) -> None:
+        P, R = _two_state()
+        R[1, 1] = reward
+        with pytest.warns(RewardRangeWarning, match=r"outside \[0, 1\]"):
+            TabularMDP(P, R)
+
+    def test_reward_on_unit_interval_edges_does_not_warn(self) -> None:
+        # filterwarnings = error in pyproject: any warning here would fail the test
+        P, R = _two_state()
+        R[:] = [[0.0, 1.0], [1.0, 0.0]]
+        TabularMDP(P, R)
+
+
+# --------------------------------------------------------------------------- immutability
+
+
+class TestImmutability:
+    def test_arrays_are_read_only(self) -> None:
+        mdp = TabularMDP(*_two_state())
+        with pytest.raises(ValueError, match="read-only"):
+            mdp.P[0, 0, 0] = 0.0
+        with pytest.raises(ValueError, match="read-only"):
+            mdp.R[0, 0] = 0.0
+
+    def test_input_arrays_are_copied(self) -> None:
+        P, R = _two_state()
+        mdp = TabularMDP(P, R)
+        P[0, 0] = [0.0, 1.0]
+        R[0, 0] = 0.9
+        assert mdp.P[0, 0, 0] == 0.5
+        assert mdp.R[0, 0] == 0.0
+
+    @pytest.mark.parametrize("attribute", ["P", "R", "name", "fingerprint", "states", "new_attribute", "_P"])
+    def test_attributes_cannot_be_set(self, attribute: str) -> None:
+        mdp = TabularMDP(*_two_state())
+        with pytest.raises(AttributeError):
+            setattr(mdp, attribute, 1)
+
+    def test_metadata_is_a_copy(self) -> None:
+        mdp = TabularMDP(*_two_state(), metadata={"family": "hand"})
+        mdp.metadata["family"] = "changed"
+        assert mdp.metadata == {"family": "hand"}
+
+
+# --------------------------------------------------------------------------- fingerprint
+
+
+class TestFingerprint:
+    def test_equal_constructions_share_fingerprint(self) -> None:
+        a = TabularMDP(*_two_state(), name="a", metadata={"x": 1})
+        b = TabularMDP(*_two_state(), name="b")
+        assert a.fingerprint == b.fingerprint
+        assert a == b and hash(a) == hash(b)
+
+    def test_fingerprint_is_a_hex_digest(self) -> None:
+        fp = TabularMDP(*_two_state()).fingerprint
+        assert len(fp) == 32 and int(fp, 16) >= 0
+
+    def test_negative_zero_does_not_change_fingerprint(self) -> None:
+        # -0.0 == 0.0 numerically; the models are equal, so their fingerprints must be
+        P, R = _two_state()
+        R_neg = R.copy()
+        R_neg[0, 0] = -0.0
+        assert TabularMDP(P, R).fingerprint == TabularMDP(P, R_neg).fingerprint
+
+    @pytest.mark.parametrize("which", ["P", "R"])
+    def test_one_entry_changes_fingerprint(self, which: str) -> None:
+        P, R = _two_state()
+        base = TabularMDP(P, R).fingerprint
+        if which == "P":
+            P[1, 1] = [1e-9, 1.0 - 1e-9]
+        else:
+            R[1, 0] = np.nextafter(R[1, 0], 1.0)  # smallest possible change
+        changed = TabularMDP(P, R)
+        assert changed.fingerprint != base
+        assert changed != TabularMDP(*_two_state())
+
+    def test_pickle_round_trip(self) -> None:
+        mdp = TabularMDP(*_two_state(), name="hand", metadata={"family": "hand", "k": [1, 2]})
+        back = pickle.loads(pickle.dumps(mdp))
+        assert back.fingerprint == mdp.fingerprint
+        assert back.name == "hand" and back.metadata == mdp.metadata
+        assert not back.P.flags.writeable and not back.R.flags.writeable
+
+    def test_pickle_round_trip_out_of_range_rewards_is_silent(self) -> None:
+        P, R = _two_state()
+        R[0, 0] = 5.0
+        with pytest.warns(RewardRangeWarning):
+            mdp = TabularMDP(P, R)
+        back = pickle.loads(pickle.dumps(mdp))  # a warning here would be an error
+        assert back.fingerprint == mdp.fingerprint
+
+
+# --------------------------------------------------------------------------- families
+
+
+def _assert_valid_kernel(mdp: TabularMDP) -> None:
+    assert np.all(mdp.P >= 0)
+    np.testing.assert_allclose(mdp.P.sum(axis=2), 1.0, rtol=0, atol=1e-12)
+    assert np.all((mdp.R >= 0) & (mdp.R <= 1))
+
+
+class TestGarnet:
+    @pytest.mark.parametrize(("states", "actions", "branching"), [(10, 3, 4), (7, 2, 1), (6, 4, 6), (50, 5, 10)])
+    def test_structure(self, states: int, actions: int, branching: int) -> None:
+        mdp = rlrates.garnet(states, actions, branching, seed=3)
+        assert mdp.P.shape == (states, actions, states)
+        # exactly `branching` successors with positive probability in every row
+        np.testing.assert_array_equal((mdp.P > 0).sum(axis=2), branching)
+        _assert_valid_kernel(mdp)
+        assert mdp.metadata["family"] == "garnet" and mdp.metadata["branching"] == branching
+
+    def test_rewards_spread_over_unit_interval(self) -> None:
+        # Uniform rewards (Archibald et al. 1995): with 500 of them, a mean far from 1/2
+        # would mean they are not uniform. sd of the mean = sqrt(1/12/500) ~ 0.013; the
+        # 0.07 band is > 5 sd (false-alarm rate < 1e-6 for a fresh seed; here seeded).
+        R = rlrates.garnet(100, 5, 3, seed=0).R
+        assert abs(R.mean() - 0.5) < 0.07
+        assert R.min() < 0.05 and R.max() > 0.95
+
+    def test_same_seed_same_fingerprint(self) -> None:
+        assert rlrates.garnet(12, 3, 4, seed=5).fingerprint == rlrates.garnet(12, 3, 4, seed=5).fingerprint
+
+    def test_different_seed_different_fingerprint(self) -> None:
+        prints = {rlrates.garnet(12, 3, 4, seed=s).fingerprint for s in range(5)}
+        assert len(prints) == 5
+
+    @pytest.mark.parametrize(
+        ("kwargs", "param"),
+        [
+            ({"states": 0, "actions": 2, "branching": 1}, "states"),
+            ({"states": 2.5, "actions": 2, "branching": 1}, "states"),
+            ({"states": 5, "actions": 0, "branching": 1}, "actions"),
+            ({"states": 5, "actions": True, "branching": 1}, "actions"),
+            ({"states": 5, "actions": 2, "branching": 0}, "branching"),
+            ({"states": 5, "actions": 2, "branching": 6}, "branching"),
+        ],
+    )
+    def test_bad_parameters_are_named(self, kwargs: dict[str, object], param: str) -> None:
+        with pytest.raises(ValueError, match=f"`{param}`"):
+            rlrates.garnet(**kwargs)  # type: ignore[arg-type]
+
+
+class TestOtherFamilies:
+    def test_gridworld_structure(self) -> None:
+        mdp = rlrates.gridworld(width=5, height=5, slip=0.2)
+        assert mdp.states == 25 - 3  # three default walls are not states
+        assert mdp.actions == 4
+        _assert_valid_kernel(mdp)
+        # Top-left cell (state 0), action up: up and left both hit the edge and stay,
+        # so P(stay) = (1 - slip) + 2 * slip / 4 = 0.8 + 0.1 (worked by hand).
+        assert mdp.P[0, 0, 0] == pytest.approx(0.9, abs=1e-15)
+        # reward 1 only in the goal (default: bottom-right cell, the last state)
+        np.testing.assert_array_equal(mdp.R[-1], 1.0)
+        assert mdp.R[:-1].sum() == 0.0
+
+    def test_gridworld_walls_block(self) -> None:
+        # no slip; cell (0, 1) moving down would enter the wall (1, 1), so it stays
+        mdp = rlrates.gridworld(width=3, height=3, slip=0.0, walls=((1, 1),))
+        cells = [(r, c) for r in range(3) for c in range(3) if (r, c) != (1, 1)]
+        s = cells.index((0, 1))
+        assert mdp.P[s, 2, s] == 1.0
+        assert np.all(mdp.P[:, :, :].max(axis=2) == 1.0)  # slip 0: deterministic
+
+    @pytest.mark.parametrize(
+        ("kwargs", "message"),
+        [
+            ({"slip": 1.5}, "`slip`"),
+            ({"slip": -0.1}, "`slip`"),
+            ({"width": 0}, "`width`"),
+            ({"height": 0}, "`height`"),
+            ({"width": 1, "height": 1, "walls": ((0, 0),)}, "`walls`"),
+            ({"goal": (1, 1)}, "`goal`"),
+        ],
+    )
+    def test_gridworld_bad_parameters(self, kwargs: dict[str, object], message: str) -> None:
+        with pytest.raises(ValueError, match=message):
+            rlrates.gridworld(**kwargs)  # type: ignore[arg-type]
+
+    def test_chain_structure(self) -> None:
+        mdp = rlrates.chain(states=6, slip=0.1)
+        _assert_valid_kernel(mdp)
+        # interior state 2: left moves to 1 w.p. 0.9, reverses to 3 w.p. 0.1 (by definition)
+        assert mdp.P[2, 0, 1] == pytest.approx(0.9) and mdp.P[2, 0, 3] == pytest.approx(0.1)
+        # left end, action left: both "left" and "stay" land in state 0
+        assert mdp.P[0, 0, 0] == pytest.approx(0.9) and mdp.P[0, 0, 1] == pytest.approx(0.1)
+        assert mdp.R[-1, 0] == 1.0 and mdp.R[0, 0] == pytest.approx(0.1)
+
+    @pytest.mark.parametrize(("kwargs", "param"), [({"states": 1}, "states"), ({"slip": 2.0}, "slip")])
+    def test_chain_bad_parameters(self, kwargs: dict[str, object], param: str) -> None:
+        with pytest.raises(ValueError, match=f"`{param}`"):
+            rlrates.chain(**kwargs)  # type: ignore[arg-type]
+
+    def test_ring_structure(self) -> None:
+        mdp = rlrates.ring(states=9, slip=0.3, seed=1)
+        _assert_valid_kernel(mdp)
+        # each (s, a) reaches exactly {s, s+1, s-1}; P(intended) = 0.7 + 0.3 / 3
+        np.testing.assert_array_equal((mdp.P > 0).sum(axis=2), 3)
+        assert mdp.P[4, 1, 5] == pytest.approx(0.8)
+        assert mdp.P[0, 2, 8] == pytest.approx(0.8)  # wraps around
+
+    @pytest.mark.parametrize(("kwargs", "param"), [({"states": 2}, "states"), ({"slip": "x"}, "slip")])
+    def test_ring_bad_parameters(self, kwargs: dict[str, object], param: str) -> None:
+        with pytest.raises(ValueError, match=f"`{param}`"):
+            rlrates.ring(**kwargs)  # type: ignore[arg-type]
+
+    def test_deterministic_rows_one_hot(self) -> None:
+        mdp = rlrates.deterministic(states=9, actions=4, seed=2)
+        _assert_valid_kernel(mdp)
+        assert set(np.unique(mdp.P)) == {0.0, 1.0}
+        np.testing.assert_array_equal((mdp.P == 1.0).sum(axis=2), 1)
+
+    @pytest.mark.parametrize(("kwargs", "param"), [({"states": 0}, "states"), ({"actions": -1}, "actions")])
+    def test_deterministic_bad_parameters(self, kwargs: dict[str, object], param: str) -> None:
+        with pytest.raises(ValueError, match=f"`{param}`"):
+            rlrates.deterministic(**kwargs)  # type: ignore[arg-type]
+
+
+class TestHorizonHard:
+    @pytest.mark.parametrize("gamma", [0.3, 0.5, 0.9, 0.99, 0.999])
+    def test_loop_probability(self, gamma: float) -> None:
+        mdp = rlrates.horizon_hard(actions=3)(gamma)
+        p = (4 * gamma - 1) / (3 * gamma)  # Azar, Munos and Kappen (2013), lower-bound MDP
+        for k in (1, 2, 3):
+            np.testing.assert_allclose(mdp.P[k, :, k], p, rtol=1e-15)
+            np.testing.assert_allclose(mdp.P[k, :, 4], 1 - p, rtol=1e-12)
+        _assert_valid_kernel(mdp)
+        # decision state: action a leads to loop state 1 + a
+        np.testing.assert_array_equal(mdp.P[0, :, 1:4], np.eye(3))
+        assert mdp.metadata["loop_probability"] == pytest.approx(p, rel=1e-15)
+
+    @pytest.mark.parametrize("gamma", [0.3, 0.9, 0.99, 0.999])
+    def test_loop_value_is_three_quarters_horizon(self, gamma: float) -> None:
+        # V = 1 / (1 - gamma p) and 1 - gamma p = 4 (1 - gamma) / 3, so V = 3 H / 4
+        # (Azar, Munos and Kappen 2013); the sink is absorbing with reward 0.
+        H = 1.0 / (1.0 - gamma)
+        values = v_pi(rlrates.horizon_hard()(gamma), gamma)
+        assert values[1] == pytest.approx(0.75 * H, rel=1e-12)
+        assert values[2] == pytest.approx(0.75 * H, rel=1e-12)
+        assert values[3] == 0.0
+        assert values[0] == pytest.approx(gamma * 0.75 * H, rel=1e-12)
+
+    @pytest.mark.parametrize("gamma", [0.25, 0.2, 0.01])
+    def test_small_gamma_raises(self, gamma: float) -> None:
+        with pytest.raises(ValueError, match=r"gamma > 1/4"):
+            rlrates.horizon_hard()(gamma)
+
+    def test_invalid_gamma_raises(self) -> None:
+        with pytest.raises(ValueError, match=r"`gamma` must lie in \(0, 1\)"):
+            rlrates.horizon_hard()(1.0)
+
+    def test_bad_actions(self) -> None:
+        with pytest.raises(ValueError, match="`actions`"):
+            rlrates.horizon_hard(actions=0)
+
+    def test_family_is_deterministic_in_gamma(self) -> None:
+        family = rlrates.horizon_hard()
+        assert family(0.9) == family(0.9)
+        assert family(0.9) != family(0.95)
+        assert math.isclose(family(0.9).P[1, 0, 1], (4 * 0.9 - 1) / 2.7)

@@ -1,0 +1,76 @@
+"""Property-based checks (hypothesis) of the exact solvers and the sampler on random MDPs.
+
+The properties are the defining equations (Bellman, 1957; common practice), not
+values produced by the code under test.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from rlrates import TabularMDP
+from rlrates.exact import q_pi, q_star, v_pi
+from rlrates.sampling import draw
+
+SETTINGS = settings(max_examples=40, deadline=None)
+
+
+@st.composite
+def mdps(draw_: st.DrawFn) -> TabularMDP:
+    """Random MDPs with 1-8 states, 1-4 actions, sparse or dense rows, rewards in [0, 1]."""
+    S = draw_(st.integers(1, 8))
+    A = draw_(st.integers(1, 4))
+    seed = draw_(st.integers(0, 2**32 - 1))
+    sparse = draw_(st.booleans())
+    rng = np.random.default_rng(seed)
+    weights = rng.random((S, A, S))
+    if sparse:
+        keep = rng.random((S, A, S)) < 0.3
+        keep[np.arange(S)[:, None], np.arange(A)[None, :], rng.integers(0, S, size=(S, A))] = True
+        weights = weights * keep
+    P = weights / weights.sum(axis=2, keepdims=True)
+    R = rng.random((S, A))
+    return TabularMDP(P, R)
+
+
+gammas = st.floats(min_value=0.05, max_value=0.995)
+
+
+@SETTINGS
+@given(mdp=mdps(), gamma=gammas, policy_seed=st.integers(0, 2**32 - 1))
+def test_q_pi_satisfies_bellman_equation(mdp: TabularMDP, gamma: float, policy_seed: int) -> None:
+    # Bellman expectation equation: Q(s, a) = R(s, a) + gamma sum_s' P(s'|s, a) sum_a' pi(a'|s') Q(s', a')
+    pi = np.random.default_rng(policy_seed).dirichlet(np.ones(mdp.actions), size=mdp.states)
+    q = q_pi(mdp, gamma, pi)
+    residual = mdp.R + gamma * mdp.P @ (q * pi).sum(axis=1) - q
+    assert np.abs(residual).max() <= 1e-9 * max(1.0, np.abs(q).max())
+    np.testing.assert_allclose(v_pi(mdp, gamma, pi), (q * pi).sum(axis=1), rtol=1e-10, atol=1e-10)
+    # rewards in [0, 1] give values in [0, 1 / (1 - gamma)] (common practice)
+    assert q.min() >= -1e-9 and q.max() <= 1.0 / (1.0 - gamma) + 1e-9
+
+
+@SETTINGS
+@given(mdp=mdps(), gamma=gammas)
+def test_q_star_satisfies_optimality_equation(mdp: TabularMDP, gamma: float) -> None:
+    # Bellman optimality equation: Q*(s, a) = R(s, a) + gamma sum_s' P(s'|s, a) max_a' Q*(s', a')
+    q, policy = q_star(mdp, gamma)
+    residual = mdp.R + gamma * mdp.P @ q.max(axis=1) - q
+    assert np.abs(residual).max() <= 1e-9 * max(1.0, np.abs(q).max())
+    # the returned policy is greedy for Q*
+    rows = np.arange(mdp.states)
+    assert np.all(q[rows, policy] >= q.max(axis=1) - 1e-9 * max(1.0, np.abs(q).max()))
+
+
+@SETTINGS
+@given(mdp=mdps(), n=st.integers(1, 60), seed=st.integers(0, 2**32 - 1))
+def test_counts_agree_with_next_states(mdp: TabularMDP, n: int, seed: int) -> None:
+    batch = draw(mdp, n, seed=seed)
+    S, A = mdp.states, mdp.actions
+    seq = batch.next_states
+    assert seq.shape == (S, A, n)
+    recount = (seq[..., None] == np.arange(S)).sum(axis=2)
+    np.testing.assert_array_equal(recount, batch.counts)
+    np.testing.assert_array_equal(batch.counts.sum(axis=2), n)
+    assert batch.counts[mdp.P == 0].sum() == 0
