@@ -48,7 +48,7 @@ class CellFailure:
         where = f"gamma={self.gamma:g}, n={self.n}, replicate={self.replicate}"
         if self.kind == "raised":
             return f"the estimator raised at {where}: {self.message}"
-        return f"the estimator returned an invalid estimate at {where}: {self.message}"
+        return f"invalid estimate at {where}: {self.message}"
 
 
 @dataclass

@@ -116,7 +116,7 @@ def _require_float(estimate: np.ndarray, what: str) -> Array:
     if bad.any():
         index = tuple(int(i) for i in np.argwhere(bad)[0])
         raise EstimateError(
-            f"the estimator returned a non-finite value {estimate[index]!r} at index {index} "
+            f"the estimator returned a non-finite value {float(estimate[index])} at index {index} "
             f"({int(bad.sum())} non-finite entries in all)"
         )
     return estimate.astype(np.float64, copy=False)
