@@ -40,15 +40,15 @@ _EXPORTS: dict[str, str] = {
     "Profile": "profiles",
     "PROFILES": "profiles",
     "Problem": "targets",
-    "check": "check",
-    "CheckResult": "check",
-    "RatesWarning": "check",
+    "check": "rate_check",
+    "CheckResult": "rate_check",
+    "RatesWarning": "rate_check",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .check import CheckResult, RatesWarning, check
+    from .rate_check import CheckResult, RatesWarning, check
     from .claims import Claim
     from .exact import greedy_policy, model_distance, q_pi, q_star, suboptimality, uniform_policy, v_pi
     from .families import chain, deterministic, garnet, gridworld, horizon_hard, ring

@@ -1,6 +1,6 @@
 """Plain-text explanation of a check result: claim, fits, why, the numbers, how to reproduce.
 
-Pure functions of a :class:`~rlrates.check.CheckResult`; no pytest, no I/O.
+Pure functions of a :class:`~rlrates.rate_check.CheckResult`; no pytest, no I/O.
 """
 
 from __future__ import annotations
@@ -11,7 +11,7 @@ from typing import TYPE_CHECKING
 import pandas as pd
 
 if TYPE_CHECKING:  # pragma: no cover
-    from .check import CheckResult
+    from .rate_check import CheckResult
 
 __all__ = ["format_message", "headline", "mean_error_grid", "format_interval"]
 

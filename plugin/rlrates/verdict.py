@@ -20,8 +20,10 @@ fire-side bound (level ``1 - alpha`` share) and ``high`` the pass-side bound.
 Cells are left out of the fits when pre-asymptotic (n below ``min_n_per_horizon``
 times H, or mean error above ``saturation`` times the error scale). Cells whose
 errors are floating-point zero are "faster than any power": never clamped and
-fitted. If the fast part of a curve meets the claim while the whole window does
-not, the curve is still bending: "not yet asymptotic", not "fail".
+fitted. If the rate test fires but the slope over the largest n is confidently steeper
+than over the smallest n (a curve still bending down in log-log, as a burn-in
+does), the answer is "not yet asymptotic": escalate to larger n (the fit window
+slides up), and "inconclusive" if the budget runs out, never "fail".
 """
 
 from __future__ import annotations
@@ -95,6 +97,7 @@ def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[fl
     per_gamma: list[dict[str, object]] = []
     full: list[Slope] = []
     upper: list[tuple[float, Slope]] = []
+    steepening: list[Slope] = []  # upper-part slope minus lower-part slope, per discount
     need_larger_n = False
     for gamma in gammas:
         cells = usable[usable["gamma"] == gamma].sort_values("n").tail(window)
@@ -112,8 +115,11 @@ def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[fl
                 k = max(3, math.ceil(len(positive) / 2))
                 top = positive.tail(k)
                 fast = fit_slope(np.log(top["n"].to_numpy(float)), top["log_mean"], top["log_var"], _df(top))
+                bottom = positive.head(k)
+                slow = fit_slope(np.log(bottom["n"].to_numpy(float)), bottom["log_mean"], bottom["log_var"], _df(bottom))
                 full.append(whole)
                 upper.append((gamma, fast))
+                steepening.append(Slope(fast.estimate - slow.estimate, math.hypot(fast.se, slow.se), fast.df, k))
                 row.update(state="fitted", n_min=int(positive["n"].min()), n_max=int(positive["n"].max()),
                            slope=whole.estimate, slope_se=whole.se, upper_slope=fast.estimate, upper_se=fast.se)
         per_gamma.append(row)
@@ -134,6 +140,8 @@ def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[fl
             floors = [(g, s) for g, s in upper if s.lower(floor_alpha) > floor_limit]
             rate_fire = pooled.lower(alpha) > limit
             fast_mean = float(np.mean([s.estimate for _, s in upper]))
+            # Concave in log-log (the slope is still getting steeper): pre-asymptotic, not slow.
+            bending = _pooled(steepening).upper(alpha) < 0.0
             if floors:
                 fires.append("floor")
                 for g, s in floors:
@@ -142,12 +150,12 @@ def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[fl
                         f"(lower bound {s.lower(floor_alpha):.2f}), slower than the claimed n^{claim.n:g} "
                         f"plus tolerance {profile.floor_tolerance:g}; the error stops falling (a bias)"
                     )
-            if rate_fire and not floors and fast_mean <= limit:
+            if rate_fire and not floors and bending:
                 need_larger_n = True
                 unclear.append("n")
                 decision.notes.append(
                     f"not yet asymptotic: over the whole window the n-exponent is {pooled.estimate:.2f}, but over "
-                    f"the largest n it is {fast_mean:.2f}; the curve is still bending"
+                    f"the largest n it is {fast_mean:.2f}; the curve is still bending toward steeper slopes"
                 )
             elif rate_fire:
                 fires.append("rate")
