@@ -166,12 +166,15 @@ class Member:
 def members() -> list[Member]:
     garnet = rlrates.garnet(states=20, actions=4, branching=5, seed=7)
     chain = rlrates.chain(states=10, slip=0.1)
+    grid = rlrates.gridworld(width=4, height=4, slip=0.2, walls=((1, 1),))
     hard = rlrates.horizon_hard()
     sim_lemma = rlrates.Claim(n=-0.5, horizon=2.0)
     return [
         Member("plug-in q_pi / garnet", reference.plugin_q_pi, garnet, sim_lemma, "q_pi", "pass",
                "simulation lemma: gamma/(1-gamma)^2 sqrt(S log(SA/delta)/n) (Agarwal, Jiang, Kakade, Sun, ch. 2)"),
         Member("plug-in q_pi / chain", reference.plugin_q_pi, chain, sim_lemma, "q_pi", "pass",
+               "simulation lemma, as above"),
+        Member("plug-in q_pi / grid", reference.plugin_q_pi, grid, sim_lemma, "q_pi", "pass",
                "simulation lemma, as above"),
         Member("plug-in q_pi / horizon-hard, H^1.5", reference.plugin_q_pi, hard, rlrates.Claim(n=-0.5, horizon=1.5),
                "q_pi", "pass", "plug-in error ~ sqrt(H^3/n) (Azar, Munos and Kappen 2013)"),

@@ -43,8 +43,11 @@ class Profile:
         (the value range, or 2 for L1 model errors) are saturated and not fitted.
     policy_resolution: for the "policy" target, a mean suboptimality below this
         fraction of the value range counts as zero. Near-tied actions make the
-        suboptimality a tiny plateau over a range of n (until n exceeds the
-        inverse square of the gap), which is not a rate violation.
+        suboptimality a small plateau over a range of n (until n exceeds the
+        inverse square of the gap): a power law does not describe it. Rate
+        claims on policies are therefore only meaningful on MDPs whose action
+        gaps are clear at the profile's n; check the planner's Q (target
+        "q_star") for the rate itself.
     """
 
     name: str
@@ -60,7 +63,7 @@ class Profile:
     horizon_tolerance: float = 0.3
     min_n_per_horizon: float = 8.0
     saturation: float = 0.5
-    policy_resolution: float = 1e-4
+    policy_resolution: float = 1e-3
 
     def __post_init__(self) -> None:
         grid = tuple(self.n_grid)

@@ -25,7 +25,7 @@ from .fitting import summarise_cells
 from .mdp import TabularMDP
 from .messages import format_message
 from .profiles import Profile, resolve_profile
-from .sampling import sampling_kernel
+from .sampling import sampling_kernel, support_kernel
 from .sweep import CellFailure, CellTask, rows_to_table, run_sweep
 from .targets import Truth, solve_truth, validate_norm, validate_target
 from .verdict import FITS_COLUMNS, Decision, decide
@@ -155,7 +155,7 @@ def check(
     resolution = design.policy_resolution if target == "policy" else 1e-9
     zero_tolerance = {g: resolution * max(1.0, t.scale) for g, t in truths.items()}
     scale = {g: t.scale for g, t in truths.items()}
-    kernels = {g: sampling_kernel(t.mdp) for g, t in truths.items()}
+    kernels = {g: support_kernel(sampling_kernel(t.mdp), t.mdp.states, t.mdp.actions) for g, t in truths.items()}
 
     def tasks(n_values: list[int], start: int, stop: int) -> list[CellTask]:
         return [

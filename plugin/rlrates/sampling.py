@@ -16,17 +16,20 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Sequence
+from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from numpy.typing import NDArray
 
 from .mdp import TabularMDP
 
-__all__ = ["Batch", "draw", "cell_seed", "stable_words", "sampling_kernel"]
+__all__ = ["Batch", "draw", "cell_seed", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel"]
 
 IntArray = NDArray[np.int64]
 
 
+@lru_cache(maxsize=1024)
 def stable_words(text: str, words: int = 2) -> tuple[int, ...]:
     """Turn a string into ``words`` 32-bit integers (a stable spawn-key part)."""
     digest = hashlib.blake2b(text.encode("utf-8"), digest_size=4 * words).digest()
@@ -59,6 +62,40 @@ def sampling_kernel(mdp: TabularMDP) -> NDArray[np.float64]:
     return flat
 
 
+@dataclass(frozen=True)
+class SupportKernel:
+    """A sampling kernel restricted to each row's support, for fast multinomial draws.
+
+    ``Generator.multinomial`` costs one binomial draw per category, so a sparse row
+    (a Garnet with branching b) is drawn over its b successors rather than all S.
+    ``support`` (S*A, k) holds successor indices (zero-probability padding first, so
+    that the last column, which absorbs rounding, is always a real successor).
+    """
+
+    states: int
+    actions: int
+    support: NDArray[np.int64]
+    probs: NDArray[np.float64]
+
+    def sample_counts(self, rng: np.random.Generator, n: int) -> IntArray:
+        drawn = rng.multinomial(n, self.probs)
+        counts = np.zeros((self.states * self.actions, self.states), dtype=np.int64)
+        np.put_along_axis(counts, self.support, drawn, axis=1)
+        return counts.reshape(self.states, self.actions, self.states)
+
+
+def support_kernel(kernel: NDArray[np.float64], states: int, actions: int) -> SupportKernel:
+    """Compress a dense (S*A, S) kernel from :func:`sampling_kernel` to its rows' supports."""
+    positive = kernel > 0
+    width = max(int(positive.sum(axis=1).max()), 1)
+    order = np.argsort(positive, axis=1, kind="stable")  # zero-probability columns first
+    support = np.ascontiguousarray(order[:, -width:])
+    probs = np.take_along_axis(kernel, support, axis=1)
+    probs = probs / probs.sum(axis=1, keepdims=True)
+    probs[:, -1] = np.clip(1.0 - probs[:, :-1].sum(axis=1), 0.0, None)
+    return SupportKernel(states, actions, support, probs)
+
+
 class Batch:
     """One generative-model draw: n sampled next states for each (s, a).
 
@@ -66,11 +103,11 @@ class Batch:
     array; reading ``next_states`` builds it once from the counts.
     """
 
-    def __init__(self, counts: IntArray, n: int, order_seed: np.random.SeedSequence) -> None:
+    def __init__(self, counts: IntArray, n: int, seed: np.random.SeedSequence) -> None:
         counts.setflags(write=False)
         self._counts = counts
         self._n = int(n)
-        self._order_seed = order_seed
+        self._seed = seed  # the order of next_states comes from its child 1, built on demand
         self._next_states: IntArray | None = None
 
     @property
@@ -99,7 +136,7 @@ class Batch:
             flat_counts = self._counts.reshape(S * A, S)
             ordered = np.repeat(np.tile(np.arange(S, dtype=np.int64), S * A), flat_counts.ravel())
             ordered = ordered.reshape(S * A, self._n)
-            shuffled = np.random.default_rng(self._order_seed).permuted(ordered, axis=1)
+            shuffled = np.random.default_rng(_child(self._seed, 1)).permuted(ordered, axis=1)
             shuffled = shuffled.reshape(S, A, self._n)
             shuffled.setflags(write=False)
             self._next_states = shuffled
@@ -112,6 +149,12 @@ class Batch:
 
     def __repr__(self) -> str:
         return f"Batch(states={self.states}, actions={self.actions}, n={self._n})"
+
+
+def _child(seq: np.random.SeedSequence, index: int) -> np.random.SeedSequence:
+    """Child ``index`` of ``seq``, built without ``seq.spawn`` (which advances the parent's
+    spawn counter and would make a reused SeedSequence draw differently)."""
+    return np.random.SeedSequence(seq.entropy, spawn_key=(*seq.spawn_key, index), pool_size=seq.pool_size)
 
 
 def _validate_n(n: object) -> int:
@@ -127,23 +170,20 @@ def draw(
     n: int,
     seed: int | np.random.SeedSequence | Sequence[int] = 0,
     *,
-    kernel: NDArray[np.float64] | None = None,
+    kernel: NDArray[np.float64] | SupportKernel | None = None,
 ) -> Batch:
     """Draw ``n`` next states for every (s, a) of ``mdp`` from its generative model.
 
     ``seed`` is an int, a sequence of ints, or a ready :class:`SeedSequence`; its
     first child seeds the counts and its second the order of ``next_states``
     (the same children every time: ``seed`` is not advanced, so reusing it repeats the draw).
-    ``kernel`` lets a sweep pass :func:`sampling_kernel` once instead of per draw.
+    ``kernel`` lets a sweep pass :func:`sampling_kernel` (or its :func:`support_kernel`)
+    once instead of rebuilding it per draw.
     """
     n = _validate_n(n)
     seq = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
-    # The first two children, built without `seq.spawn` (which advances the parent's
-    # spawn counter and would make a reused SeedSequence draw differently).
-    counts_seed, order_seed = (
-        np.random.SeedSequence(seq.entropy, spawn_key=(*seq.spawn_key, i), pool_size=seq.pool_size)
-        for i in range(2)
-    )
-    flat = sampling_kernel(mdp) if kernel is None else kernel
-    counts = np.random.default_rng(counts_seed).multinomial(n, flat).astype(np.int64, copy=False)
-    return Batch(counts.reshape(mdp.states, mdp.actions, mdp.states), n, order_seed)
+    if not isinstance(kernel, SupportKernel):
+        dense = sampling_kernel(mdp) if kernel is None else kernel
+        kernel = support_kernel(dense, mdp.states, mdp.actions)
+    counts = kernel.sample_counts(np.random.default_rng(_child(seq, 0)), n)
+    return Batch(counts, n, seq)

@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .sampling import cell_seed, draw, sampling_kernel
+from .sampling import SupportKernel, cell_seed, draw
 from .targets import EstimateError, Truth, estimate_error, validate_estimate
 
 __all__ = ["CellTask", "CellFailure", "CellOutcome", "run_cell", "run_sweep", "TABLE_COLUMNS"]
@@ -63,7 +63,7 @@ class CellTask:
     master_seed: int
     context: str
     norm: str = "sup"
-    kernel: np.ndarray | None = field(default=None, repr=False)
+    kernel: SupportKernel | None = field(default=None, repr=False)
 
 
 @dataclass
@@ -77,12 +77,11 @@ class CellOutcome:
 def run_cell(task: CellTask) -> CellOutcome:
     """Run the replicates of one cell; stop at the first failure, keeping earlier rows."""
     truth = task.truth
-    kernel = task.kernel if task.kernel is not None else sampling_kernel(truth.mdp)
     problem = truth.problem()
     outcome = CellOutcome(truth.gamma, task.n, [])
     for replicate in range(task.start, task.stop):
         seed = cell_seed(task.master_seed, task.context, truth.gamma, task.n, replicate)
-        batch = draw(truth.mdp, task.n, seed, kernel=kernel)
+        batch = draw(truth.mdp, task.n, seed, kernel=task.kernel)
         started = time.perf_counter()
         try:
             estimate = task.estimator(batch, problem)
