@@ -24,7 +24,7 @@ from numpy.typing import NDArray
 
 from .mdp import TabularMDP
 
-__all__ = ["Batch", "draw", "cell_seed", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel"]
+__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel"]
 
 IntArray = NDArray[np.int64]
 
@@ -39,6 +39,16 @@ def stable_words(text: str, words: int = 2) -> tuple[int, ...]:
 def gamma_key(gamma: float) -> int:
     """A stable integer for a discount factor (exact to 1e-9)."""
     return int(round(float(gamma) * 1_000_000_000))
+
+
+def block_seed(master_seed: int, context: str, gamma: float, n: int, start: int, stop: int) -> np.random.SeedSequence:
+    """The seed of replicates ``start .. stop - 1`` of one sweep cell, drawn together.
+
+    Key: (hash of ``context``, gamma, n, start, stop). A replicate is rebuilt from
+    its block's seed and its position in the block (see :func:`draw_block`).
+    """
+    key = (*stable_words(context), gamma_key(gamma), int(n), int(start), int(stop))
+    return np.random.SeedSequence(int(master_seed), spawn_key=key)
 
 
 def cell_seed(master_seed: int, context: str, gamma: float, n: int, replicate: int) -> np.random.SeedSequence:
@@ -77,11 +87,32 @@ class SupportKernel:
     support: NDArray[np.int64]
     probs: NDArray[np.float64]
 
-    def sample_counts(self, rng: np.random.Generator, n: int) -> IntArray:
-        drawn = rng.multinomial(n, self.probs)
-        counts = np.zeros((self.states * self.actions, self.states), dtype=np.int64)
-        np.put_along_axis(counts, self.support, drawn, axis=1)
-        return counts.reshape(self.states, self.actions, self.states)
+    def sample_counts(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
+        """Counts of ``replicates`` independent draws, shape (replicates, S, A, S).
+
+        Multinomial by the chain of conditional binomials (each successor's count
+        given the ones before it), vectorised over replicates and rows: one
+        ``Generator.binomial`` call per support column, whatever n and replicates.
+        """
+        rows, width = self.probs.shape
+        left = np.full((replicates, rows), n, dtype=np.int64)
+        drawn = np.empty((replicates, rows, width), dtype=np.int64)
+        for j in range(width - 1):
+            drawn[:, :, j] = rng.binomial(left, self._conditional[:, j])
+            left -= drawn[:, :, j]
+        drawn[:, :, -1] = left
+        counts = np.zeros((replicates, rows, self.states), dtype=np.int64)
+        np.put_along_axis(counts, np.broadcast_to(self.support, drawn.shape), drawn, axis=2)
+        return counts.reshape(replicates, self.states, self.actions, self.states)
+
+    @property
+    def _conditional(self) -> NDArray[np.float64]:
+        """P(successor j | not one of the successors before j), per row."""
+        before = np.cumsum(self.probs, axis=1) - self.probs
+        remaining = 1.0 - before
+        with np.errstate(divide="ignore", invalid="ignore"):
+            cond = np.where(remaining > 0, self.probs / remaining, 1.0)
+        return np.clip(cond, 0.0, 1.0)
 
 
 def support_kernel(kernel: NDArray[np.float64], states: int, actions: int) -> SupportKernel:
@@ -185,5 +216,21 @@ def draw(
     if not isinstance(kernel, SupportKernel):
         dense = sampling_kernel(mdp) if kernel is None else kernel
         kernel = support_kernel(dense, mdp.states, mdp.actions)
-    counts = kernel.sample_counts(np.random.default_rng(_child(seq, 0)), n)
+    counts = kernel.sample_counts(np.random.default_rng(_child(seq, 0)), n)[0]
     return Batch(counts, n, seq)
+
+
+def draw_block(
+    kernel: SupportKernel,
+    n: int,
+    replicates: int,
+    seed: np.random.SeedSequence,
+) -> list[Batch]:
+    """``replicates`` independent batches drawn in one vectorised call (a sweep cell's block).
+
+    Counts come from child 0 of ``seed``; batch ``r``'s next-state order from the
+    seed's child ``(1, r)``, built only if that batch's ``next_states`` is read.
+    """
+    n = _validate_n(n)
+    counts = kernel.sample_counts(np.random.default_rng(_child(seed, 0)), n, replicates)
+    return [Batch(counts[r], n, _child(seed, 1 + r)) for r in range(replicates)]

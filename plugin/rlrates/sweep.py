@@ -2,9 +2,10 @@
 
 A *cell task* holds everything one (gamma, n) cell needs (the exact answer, the
 replicate range, the master seed and a context string) and is picklable, so it
-can run in any ``concurrent.futures.Executor``. Every replicate's batch is drawn
-from its own stream :func:`rlrates.sampling.cell_seed`, so the numbers do not
-depend on execution order or on the executor.
+can run in any ``concurrent.futures.Executor``. All replicates of the task are
+drawn in one vectorised call from the block's own stream
+:func:`rlrates.sampling.block_seed`, so the numbers do not depend on execution
+order or on the executor.
 
 An estimator that raises, or returns something invalid, does not stop the
 session: the cell records a :class:`CellFailure` naming (gamma, n, replicate)
@@ -23,7 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .sampling import SupportKernel, cell_seed, draw
+from .sampling import SupportKernel, block_seed, draw_block, sampling_kernel, support_kernel
 from .targets import EstimateError, Truth, estimate_error, validate_estimate
 
 __all__ = ["CellTask", "CellFailure", "CellOutcome", "run_cell", "run_sweep", "TABLE_COLUMNS"]
@@ -79,9 +80,12 @@ def run_cell(task: CellTask) -> CellOutcome:
     truth = task.truth
     problem = truth.problem()
     outcome = CellOutcome(truth.gamma, task.n, [])
-    for replicate in range(task.start, task.stop):
-        seed = cell_seed(task.master_seed, task.context, truth.gamma, task.n, replicate)
-        batch = draw(truth.mdp, task.n, seed, kernel=task.kernel)
+    kernel = task.kernel
+    if kernel is None:
+        kernel = support_kernel(sampling_kernel(truth.mdp), truth.mdp.states, truth.mdp.actions)
+    seed = block_seed(task.master_seed, task.context, truth.gamma, task.n, task.start, task.stop)
+    batches = draw_block(kernel, task.n, task.stop - task.start, seed)
+    for replicate, batch in zip(range(task.start, task.stop), batches):
         started = time.perf_counter()
         try:
             estimate = task.estimator(batch, problem)
