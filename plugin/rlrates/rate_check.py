@@ -119,12 +119,14 @@ def check(
     replicates: int | None = None,
     context: str = "",
     reproducer: str | None = None,
+    time_limit: float | None = None,
 ) -> CheckResult:
     """Check that ``estimator``'s error on ``mdp`` falls and grows as ``claim`` says.
 
     See ``DESIGN.md`` for the estimator protocol. ``context`` is mixed into every
     stream's spawn key (the pytest layer passes the test id); ``reproducer``
-    replaces the Python call shown at the end of the message.
+    replaces the Python call shown at the end of the message. ``time_limit``
+    (seconds) turns any slower estimator call into an "error" result.
     """
     if not callable(estimator):
         raise TypeError(f"`estimator` must be callable as estimator(batch, problem), got {type(estimator).__name__}")
@@ -133,6 +135,8 @@ def check(
     target = validate_target(target)
     norm = validate_norm(norm)
     seed = _validate_seed(seed)
+    if time_limit is not None and (isinstance(time_limit, bool) or not isinstance(time_limit, (int, float)) or not time_limit > 0):
+        raise ValueError(f"`time_limit` must be a positive number of seconds, got {time_limit!r}")
     design = resolve_profile(profile, n_grid=n_grid, gammas=gammas, replicates=replicates)
     name, metadata = _describe_source(mdp)
     if claim.horizon is not None and len(design.gammas) < 2:
@@ -159,7 +163,8 @@ def check(
 
     def tasks(n_values: list[int], start: int, stop: int) -> list[CellTask]:
         return [
-            CellTask(estimator, truths[g], n, start, stop, seed, f"{context}|{truths[g].mdp.fingerprint}", norm, kernels[g])
+            CellTask(estimator, truths[g], n, start, stop, seed, f"{context}|{truths[g].mdp.fingerprint}", norm,
+                     kernels[g], time_limit)
             for g in design.gammas for n in n_values
         ]
 

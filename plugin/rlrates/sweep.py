@@ -65,6 +65,7 @@ class CellTask:
     context: str
     norm: str = "sup"
     kernel: SupportKernel | None = field(default=None, repr=False)
+    time_limit: float | None = None
 
 
 @dataclass
@@ -85,6 +86,7 @@ def run_cell(task: CellTask) -> CellOutcome:
         kernel = support_kernel(sampling_kernel(truth.mdp), truth.mdp.states, truth.mdp.actions)
     seed = block_seed(task.master_seed, task.context, truth.gamma, task.n, task.start, task.stop)
     batches = draw_block(kernel, task.n, task.stop - task.start, seed)
+    previous: object = None
     for replicate, batch in zip(range(task.start, task.stop), batches):
         started = time.perf_counter()
         try:
@@ -96,13 +98,33 @@ def run_cell(task: CellTask) -> CellOutcome:
             )
             return outcome
         seconds = time.perf_counter() - started
-        try:
-            valid = validate_estimate(estimate, truth)
-        except EstimateError as exc:
-            outcome.failure = CellFailure(truth.gamma, task.n, replicate, "invalid", str(exc), "")
+        problem_text = _call_problem(estimate, previous, seconds, task.time_limit)
+        if problem_text is None:
+            try:
+                valid = validate_estimate(estimate, truth)
+            except EstimateError as exc:
+                problem_text = str(exc)
+        if problem_text is not None:
+            outcome.failure = CellFailure(truth.gamma, task.n, replicate, "invalid", problem_text, "")
             return outcome
+        previous = estimate
         outcome.rows.append((replicate, estimate_error(valid, truth, task.norm), seconds))
     return outcome
+
+
+def _call_problem(estimate: object, previous: object, seconds: float, time_limit: float | None) -> str | None:
+    """Problems with a call that the return value alone does not show."""
+    if time_limit is not None and seconds > time_limit:
+        return (
+            f"the call took {seconds:.3g} s, over the per-call time limit of {time_limit:g} s "
+            "(a call that never returns is not interrupted; pair with a test-level timeout)"
+        )
+    if estimate is not None and estimate is previous and isinstance(estimate, np.ndarray):
+        return (
+            "the estimator returned the same array object as on the previous call; return a fresh "
+            "array each time (a reused buffer changes earlier estimates after the fact)"
+        )
+    return None
 
 
 def _outcomes(tasks: list[CellTask], executor: Executor | None) -> Iterator[CellOutcome]:
