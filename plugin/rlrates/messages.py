@@ -64,11 +64,13 @@ def format_message(result: "CheckResult") -> str:
             lines.extend("    " + line for line in result.failure.traceback.rstrip().splitlines())
     else:
         lines.append("fitted:    factor    exponent [one-sided bounds]   claimed  tolerance  verdict")
-        for row in result.fits.itertuples(index=False):
-            label = "n" if row.factor == "n" else "H"
-            interval = format_interval(row.exponent, row.low, row.high)
+        for row in result.fits.to_dict("records"):
+            factor = str(row["factor"])
+            label = "n" if factor == "n" else "H"
+            interval = format_interval(float(row["exponent"]), float(row["low"]), float(row["high"]))
             lines.append(
-                f"           {label:<8}  {interval:<28} {row.claimed:>+7.3g}  {_tolerance(result, row.factor):>+9.3g}  {row.verdict}"
+                f"           {label:<8}  {interval:<28} {float(row['claimed']):>+7.3g}  "
+                f"{_tolerance(result, factor):>+9.3g}  {row['verdict']}"
             )
         for reason in result.reasons:
             lines.append(f"why:       {reason}")
@@ -79,11 +81,12 @@ def format_message(result: "CheckResult") -> str:
     slopes = result.slopes
     if len(slopes) and "slope" in slopes:
         lines.append("per discount: gamma      H   n-slope (all)   n-slope (largest n)")
-        for row in slopes.itertuples(index=False):
-            if getattr(row, "state", "") == "fitted":
-                lines.append(f"              {row.gamma:<6g} {row.H:>5.3g}   {row.slope:>+8.3f}        {row.upper_slope:>+8.3f}")
+        for each in slopes.to_dict("records"):
+            head = f"              {float(each['gamma']):<6g} {float(each['H']):>5.3g}   "
+            if each.get("state") == "fitted":
+                lines.append(head + f"{float(each['slope']):>+8.3f}        {float(each['upper_slope']):>+8.3f}")
             else:
-                lines.append(f"              {row.gamma:<6g} {row.H:>5.3g}   {row.state}")
+                lines.append(head + str(each.get("state")))
     grid = mean_error_grid(result.table)
     if len(grid):
         lines.append("mean error by n:")

@@ -165,8 +165,8 @@ class Batch:
         if self._next_states is None:
             S, A = self.states, self.actions
             flat_counts = self._counts.reshape(S * A, S)
-            ordered = np.repeat(np.tile(np.arange(S, dtype=np.int64), S * A), flat_counts.ravel())
-            ordered = ordered.reshape(S * A, self._n)
+            laid_out = np.repeat(np.tile(np.arange(S, dtype=np.int64), S * A), flat_counts.ravel())
+            ordered = laid_out.reshape(S * A, self._n)
             shuffled = np.random.default_rng(_child(self._seed, 1)).permuted(ordered, axis=1)
             shuffled = shuffled.reshape(S, A, self._n)
             shuffled.setflags(write=False)
