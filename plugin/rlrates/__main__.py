@@ -1,4 +1,9 @@
-"""Command line: ``python -m rlrates demo`` checks reference estimators and a broken one."""
+"""Command line.
+
+``python -m rlrates demo`` checks reference estimators and a broken one;
+``python -m rlrates report DIR`` redraws the figures and the index of a report
+directory from its saved tables (no rerun).
+"""
 
 from __future__ import annotations
 
@@ -35,14 +40,40 @@ def _demo(seed: int) -> int:
     return 0 if outcomes == expected else 1
 
 
+def _report(directory: str) -> int:
+    import warnings
+
+    from .report import ReportError, ReportWarning, rebuild
+
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always", ReportWarning)
+        try:
+            written = rebuild(directory)
+        except ReportError as exc:
+            print(f"rlrates report: error: {exc}", file=sys.stderr)
+            return 2
+    for path in written:
+        print(f"wrote {path}")
+    for warning in caught:
+        if issubclass(warning.category, ReportWarning):
+            print(f"rlrates report: {warning.message}", file=sys.stderr)
+        else:  # pragma: no cover - anything else goes back to the warnings machinery
+            warnings.warn_explicit(warning.message, warning.category, warning.filename, warning.lineno)
+    return 0
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m rlrates", description="pytest-rlrates command line")
     commands = parser.add_subparsers(dest="command", required=True)
     demo = commands.add_parser("demo", help="check a correct and a broken estimator on a Garnet MDP")
     demo.add_argument("--seed", type=int, default=0, help="master seed (default 0)")
+    report = commands.add_parser("report", help="rebuild the figures and index of a report directory from its saved files")
+    report.add_argument("directory", help="the report directory (holds one folder per check)")
     args = parser.parse_args(argv)
     if args.command == "demo":
         return _demo(args.seed)
+    if args.command == "report":
+        return _report(args.directory)
     return 2  # pragma: no cover
 
 

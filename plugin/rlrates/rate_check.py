@@ -10,10 +10,11 @@ executor or on the order of work.
 
 from __future__ import annotations
 
+import pickle
 import time
 import warnings
 from collections.abc import Callable
-from concurrent.futures import Executor
+from concurrent.futures import Executor, ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -66,6 +67,9 @@ class CheckResult:
     reproducer: str = ""
     mdp_metadata: dict[str, Any] = field(default_factory=dict)
     fingerprints: dict[float, str] = field(default_factory=dict)
+    context: str = ""
+    blocks: pd.DataFrame = field(default_factory=lambda: pd.DataFrame(columns=["gamma", "n", "start", "stop"]))
+    scales: dict[float, float] = field(default_factory=dict)  # error scale per gamma (saturation reference)
 
     @property
     def passed(self) -> bool:
@@ -83,6 +87,21 @@ def _validate_seed(seed: object) -> int:
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or int(seed) < 0:
         raise ValueError(f"`seed` must be a non-negative integer, got {seed!r}")
     return int(seed)
+
+
+def _require_picklable(estimator: Callable[[Any, Any], Any], executor: Executor) -> None:
+    """A process or cluster executor pickles the estimator with every cell: check that up front."""
+    try:
+        pickle.dumps(estimator)
+    except Exception as exc:  # PicklingError, AttributeError ("local object"), TypeError, ...
+        est_name = getattr(estimator, "__qualname__", None) or type(estimator).__name__
+        raise TypeError(
+            f"`estimator` {est_name} cannot be pickled, so it cannot be sent to the "
+            f"{type(executor).__name__} (a process or cluster executor runs it in other processes): "
+            f"{type(exc).__name__}: {exc}. Define the estimator as a module-level function (not a lambda, "
+            "a closure or a function defined inside a test), or pass a "
+            "concurrent.futures.ThreadPoolExecutor, or no executor"
+        ) from exc
 
 
 def _mdp_for(mdp: MDPSource, gamma: float) -> TabularMDP:
@@ -130,6 +149,8 @@ def check(
     """
     if not callable(estimator):
         raise TypeError(f"`estimator` must be callable as estimator(batch, problem), got {type(estimator).__name__}")
+    if executor is not None and not isinstance(executor, ThreadPoolExecutor):
+        _require_picklable(estimator, executor)
     if not isinstance(claim, Claim):
         raise TypeError(f"`claim` must be an rlrates.Claim, got {type(claim).__name__}")
     target = validate_target(target)
@@ -178,8 +199,10 @@ def check(
     failure: CellFailure | None = None
     summary = pd.DataFrame()
     passes = 0
+    blocks: list[tuple[float, int, int, int]] = []
     while True:
         passes += 1
+        blocks.extend((t.truth.gamma, t.n, t.start, t.stop) for t in pending)
         part, failure = run_sweep(pending, executor)
         tables.append(part)
         table = pd.concat(tables, ignore_index=True) if len(tables) > 1 else part
@@ -245,5 +268,8 @@ def check(
         reproducer=reproducer,
         mdp_metadata=metadata,
         fingerprints={g: t.mdp.fingerprint for g, t in truths.items()},
+        context=context,
+        blocks=pd.DataFrame(blocks, columns=["gamma", "n", "start", "stop"]),
+        scales=scale,
     )
 
