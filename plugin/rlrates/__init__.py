@@ -43,6 +43,9 @@ _EXPORTS: dict[str, str] = {
     "check": "rate_check",
     "CheckResult": "rate_check",
     "RatesWarning": "rate_check",
+    "save_mdp": "storage",
+    "load_mdp": "storage",
+    "from_gymnasium": "gym_import",
 }
 
 __all__ = sorted(_EXPORTS) + ["__version__"]
@@ -52,9 +55,11 @@ if TYPE_CHECKING:  # pragma: no cover
     from .claims import Claim
     from .exact import greedy_policy, model_distance, q_pi, q_star, suboptimality, uniform_policy, v_pi
     from .families import chain, deterministic, garnet, gridworld, horizon_hard, ring
+    from .gym_import import from_gymnasium
     from .mdp import RewardRangeWarning, TabularMDP
     from .profiles import PROFILES, Profile
     from .sampling import Batch, draw
+    from .storage import load_mdp, save_mdp
     from .targets import Problem
 
 

@@ -287,9 +287,33 @@ def session_settings(config: pytest.Config) -> RatesSettings:
     return _session(config).settings
 
 
+def _prepare_report_dir(directory: Path, controller: bool) -> None:
+    """Make sure the report directory is writable; on the controller, clear earlier sessions' checks."""
+    try:
+        directory.mkdir(parents=True, exist_ok=True)
+        probe = directory / f".rlrates-write-test-{os.getpid()}"
+        probe.write_text("")
+        probe.unlink()
+    except OSError as exc:
+        raise pytest.UsageError(
+            f"{REPORT_OPTION}: cannot write to the report directory {directory}: {exc.strerror or exc}"
+        ) from None
+    if not controller:
+        return
+    import shutil
+
+    for old in directory.iterdir():  # only folders this plugin wrote: they hold a check.json
+        if old.is_dir() and (old / "check.json").is_file():
+            shutil.rmtree(old)
+    for name in ("index.md", "index.tex"):
+        (directory / name).unlink(missing_ok=True)
+
+
 def pytest_configure(config: pytest.Config) -> None:
     config.addinivalue_line("markers", MARKER_HELP)
     session = RatesSession(resolve_settings(config))
+    if session.settings.report_dir is not None:
+        _prepare_report_dir(session.settings.report_dir, controller=not hasattr(config, "workerinput"))
     config.stash[_SESSION] = session
     config.pluginmanager.register(session, "rlrates-session")
 
@@ -330,6 +354,17 @@ def pytest_terminal_summary(terminalreporter: Any, exitstatus: int, config: pyte
     session = config.stash.get(_SESSION, None)
     if session is None or not session.records:
         return
+    if session.settings.report_dir is not None:
+        from .report import FIGURES_SKIPPED, figures_available, write_index
+
+        written = write_index(session.settings.report_dir)
+        if written:
+            terminalreporter.write_line(
+                f"rlrates report: {len(session.records)} check(s) under {session.settings.report_dir} "
+                f"({', '.join(path.name for path in written)})"
+            )
+        if not figures_available():
+            terminalreporter.write_line(f"rlrates report: {FIGURES_SKIPPED}")
     from .records import format_summary
 
     lines = format_summary(session.records)
@@ -562,6 +597,11 @@ class RatesRunner:
         if problem:  # failed outside the except block, so pytest shows no exception chain
             pytest.fail(problem, pytrace=False)
         self.results.append(result)
+        if settings.report_dir is not None:
+            from .report import figures_available, write_check
+
+            label = nodeid if len(self.results) == 1 else f"{nodeid}#{len(self.results)}"
+            write_check(result, settings.report_dir, label, figures=figures_available())
         from .records import CheckRecord
 
         record = CheckRecord.from_result(result, nodeid)

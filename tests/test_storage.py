@@ -1,0 +1,195 @@
+"""save_mdp / load_mdp: round trips, hand-written JSON, and a clear error for every malformed file."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pytest
+
+import rlrates
+from rlrates.storage import FORMAT, VERSION
+
+# A two-state, two-action MDP written out by hand (its arrays are the expected values).
+HAND_P = [[[0.9, 0.1], [0.0, 1.0]], [[0.5, 0.5], [1.0, 0.0]]]
+HAND_R = [[0.0, 1.0], [0.5, 0.0]]
+HAND_SPARSE = [[0, 0, 0, 0.9], [0, 0, 1, 0.1], [0, 1, 1, 1.0], [1, 0, 0, 0.5], [1, 0, 1, 0.5], [1, 1, 0, 1.0]]
+
+
+@pytest.fixture(scope="module")
+def garnet() -> rlrates.TabularMDP:
+    return rlrates.garnet(states=12, actions=3, branching=4, seed=7)
+
+
+def _write_json(path: Path, document: Any) -> Path:
+    path.write_text(json.dumps(document), encoding="utf-8")
+    return path
+
+
+# ---------------------------------------------------------------------------------------------
+# round trips
+
+
+@pytest.mark.parametrize("suffix", [".npz", ".json", ".JSON"])
+def test_round_trip_keeps_fingerprint_name_and_metadata(garnet: rlrates.TabularMDP, tmp_path: Path, suffix: str) -> None:
+    path = rlrates.save_mdp(garnet, tmp_path / f"g{suffix}")
+    assert path == tmp_path / f"g{suffix}" and path.is_file()  # no second suffix appended
+    back = rlrates.load_mdp(path)
+    assert back.fingerprint == garnet.fingerprint
+    assert back.name == garnet.name
+    assert back.metadata == garnet.metadata
+    np.testing.assert_array_equal(back.P, garnet.P)
+    np.testing.assert_array_equal(back.R, garnet.R)
+
+
+def test_json_writes_sparse_for_sparse_kernels_and_dense_otherwise(garnet: rlrates.TabularMDP, tmp_path: Path) -> None:
+    sparse = json.loads(rlrates.save_mdp(garnet, tmp_path / "g.json").read_text())
+    assert "transitions" in sparse and "P" not in sparse  # branching 4 of 12 successors
+    assert len(sparse["transitions"]) == np.count_nonzero(garnet.P)
+    dense_mdp = rlrates.TabularMDP(HAND_P, HAND_R)
+    dense = json.loads(rlrates.save_mdp(dense_mdp, tmp_path / "d.json").read_text())
+    assert dense["P"] == HAND_P and "transitions" not in dense
+    assert (dense["format"], dense["version"]) == (FORMAT, VERSION)
+
+
+def test_numpy_metadata_is_stored_as_plain_json(tmp_path: Path) -> None:
+    mdp = rlrates.TabularMDP(HAND_P, HAND_R, name="np", metadata={"k": np.int64(3), "v": np.arange(2), "t": (1, 2)})
+    for suffix in (".npz", ".json"):
+        back = rlrates.load_mdp(rlrates.save_mdp(mdp, tmp_path / f"m{suffix}"))
+        assert back.metadata == {"k": 3, "v": [0, 1], "t": [1, 2]}  # tuples come back as lists
+
+
+def test_npz_is_read_without_pickle(garnet: rlrates.TabularMDP, tmp_path: Path) -> None:
+    path = rlrates.save_mdp(garnet, tmp_path / "g.npz")
+    with np.load(path, allow_pickle=False) as archive:
+        assert sorted(archive.files) == ["P", "R", "info"]
+        assert archive["info"].shape == () and archive["info"].dtype.kind == "U"
+
+
+# ---------------------------------------------------------------------------------------------
+# hand-written JSON
+
+
+@pytest.mark.parametrize("form", ["P", "transitions"])
+def test_hand_written_json(tmp_path: Path, form: str) -> None:
+    document = {"name": "loop", "metadata": {"by": "hand"}, "R": HAND_R}
+    document[form] = HAND_P if form == "P" else HAND_SPARSE
+    mdp = rlrates.load_mdp(_write_json(tmp_path / "loop.json", document))
+    np.testing.assert_array_equal(mdp.P, HAND_P)
+    np.testing.assert_array_equal(mdp.R, HAND_R)
+    assert (mdp.name, mdp.metadata) == ("loop", {"by": "hand"})
+
+
+def test_minimal_json_takes_its_name_from_the_file(tmp_path: Path) -> None:
+    mdp = rlrates.load_mdp(_write_json(tmp_path / "tiny.json", {"P": [[[1.0]]], "R": [[0.25]]}))
+    assert (mdp.states, mdp.actions, mdp.name, mdp.metadata) == (1, 1, "tiny", {})
+
+
+# ---------------------------------------------------------------------------------------------
+# malformed files
+
+
+@pytest.mark.parametrize(
+    ("document", "match"),
+    [
+        ({"P": HAND_P}, r"missing key 'R'"),
+        ({"R": HAND_R}, r"exactly one of 'P' .* and 'transitions' .*; found neither"),
+        ({"R": HAND_R, "P": HAND_P, "transitions": HAND_SPARSE}, r"exactly one of .*; found both"),
+        ({"R": HAND_R, "P": HAND_P, "transition": []}, r"unknown key\(s\) 'transition'"),
+        ({"R": HAND_R, "P": [[0.5, 0.5], [1.0, 0.0]]}, r"'P' must be nested lists \[S\]\[A\]\[S\]; got 2 level"),
+        ({"R": HAND_R, "P": [[[0.5, 0.5], [1.0]], [[1.0, 0.0], [1.0, 0.0]]]}, r"'P' must be nested lists .*equal lengths"),
+        ({"R": HAND_R, "P": "identity"}, r"'P' must be nested lists \[S\]\[A\]\[S\], got str"),
+        ({"R": [["a", "b"], ["c", "d"]], "P": HAND_P}, r"'R' must be a list of S lists of A numbers"),
+        ({"R": [[True, 0.0], [0.0, 0.0]], "P": HAND_P}, r"'R' must hold numbers, not true/false"),
+        ({"R": HAND_R, "transitions": {"0": 1}}, r"'transitions' must be a list of \[s, a, s_next, prob\] entries"),
+        ({"R": HAND_R, "transitions": [[0, 0, 0]]}, r"'transitions' entry 0 \(\[0, 0, 0\]\) must be a list \[s, a, s_next, prob\]"),
+        ({"R": HAND_R, "transitions": [[0, 2, 0, 1.0]]}, r"entry 0 .*`a` = 2 is out of range 0..1 \(R has shape \(2, 2\)\)"),
+        ({"R": HAND_R, "transitions": [[0, 0, 1.5, 1.0]]}, r"entry 0 .*`s_next` must be an integer, got 1.5"),
+        ({"R": HAND_R, "transitions": [[0, 0, 0, "half"]]}, r"entry 0 .*`prob` must be a number"),
+        ({"R": HAND_R, "transitions": HAND_SPARSE + [[0, 0, 0, 0.9]]}, r"entry 6 .* repeats \(s, a, s_next\) = \(0, 0, 0\) of entry 0"),
+        ({"R": HAND_R, "transitions": HAND_SPARSE[:-1]}, r"not a valid MDP: `P` row \(s=1, a=1\) sums to 0"),
+        ({"R": HAND_R, "P": [[[0.9, 0.2], [0.0, 1.0]], [[0.5, 0.5], [1.0, 0.0]]]}, r"not a valid MDP: `P` row \(s=0, a=0\) sums to 1.1"),
+        ({"R": [[0.0, 1.0]], "P": HAND_P}, r"not a valid MDP: `R` must have shape"),
+        ({"R": HAND_R, "P": HAND_P, "name": 3}, r"`name` must be a string, got int"),
+        ({"R": HAND_R, "P": HAND_P, "metadata": [1]}, r"`metadata` must be a JSON object, got list"),
+        ({"R": HAND_R, "P": HAND_P, "version": 99}, r"unsupported `version` 99"),
+        ({"R": HAND_R, "P": HAND_P, "format": "other"}, r"`format` is 'other', expected 'rlrates-mdp'"),
+        ([1, 2], r"the document must be a JSON object, got list"),
+    ],
+)
+def test_malformed_json_names_the_file_and_the_problem(tmp_path: Path, document: Any, match: str) -> None:
+    path = _write_json(tmp_path / "bad.json", document)
+    with pytest.raises(ValueError, match=r"bad\.json: .*" + match):
+        rlrates.load_mdp(path)
+
+
+def test_invalid_json_text(tmp_path: Path) -> None:
+    path = tmp_path / "broken.json"
+    path.write_text('{"R": [[0.0]], "P": [[[1.0]]]', encoding="utf-8")
+    with pytest.raises(ValueError, match=r"broken\.json: not valid JSON"):
+        rlrates.load_mdp(path)
+
+
+def _npz(path: Path, **arrays: Any) -> Path:
+    with open(path, "wb") as handle:
+        np.savez(handle, **arrays)
+    return path
+
+
+GOOD_INFO = np.array(json.dumps({"name": "x", "metadata": {}}))
+
+
+@pytest.mark.parametrize(
+    ("arrays", "match"),
+    [
+        ({"P": np.array(HAND_P), "info": GOOD_INFO}, r"missing array\(s\) R; an MDP .npz holds P, R and info \(found: P, info\)"),
+        ({"P": np.array(HAND_P), "R": np.array(HAND_R)}, r"missing array\(s\) info"),
+        ({"P": np.array(HAND_P), "R": np.array(HAND_R), "info": np.array("{not json")}, r"`info` is not valid JSON"),
+        ({"P": np.array(HAND_P), "R": np.array(HAND_R), "info": np.zeros(3)}, r"`info` must be a 0-d unicode array"),
+        ({"P": np.array(HAND_P), "R": np.array(HAND_R), "info": np.array("[1]")}, r"`info` must be a JSON object"),
+        ({"P": np.array(HAND_P).astype(str), "R": np.array(HAND_R), "info": GOOD_INFO}, r"array `P` must hold real numbers"),
+        ({"P": np.array(HAND_P)[0], "R": np.array(HAND_R), "info": GOOD_INFO}, r"not a valid MDP: `P` must have 3 dimensions"),
+        ({"P": np.array(HAND_P), "R": np.array([[0.0, np.nan], [0.0, 0.0]]), "info": GOOD_INFO},
+         r"not a valid MDP: `R` has a non-finite entry R\[0, 1\]"),
+        ({"P": np.array(HAND_P), "R": np.array(HAND_R), "info": np.array({"a": 1}, dtype=object)},
+         r"cannot read the .npz archive: .*allow_pickle"),
+    ],
+)
+def test_malformed_npz_names_the_file_and_the_problem(tmp_path: Path, arrays: dict[str, Any], match: str) -> None:
+    path = _npz(tmp_path / "bad.npz", **arrays)
+    with pytest.raises(ValueError, match=r"bad\.npz: .*" + match):
+        rlrates.load_mdp(path)
+
+
+def test_a_file_that_is_not_an_archive(tmp_path: Path) -> None:
+    path = tmp_path / "text.npz"
+    path.write_text("P R info\n", encoding="utf-8")
+    with pytest.raises(ValueError, match=r"text\.npz: "):
+        rlrates.load_mdp(path)
+    single = tmp_path / "single.npz"
+    with single.open("wb") as handle:
+        np.save(handle, np.zeros(3))
+    with pytest.raises(ValueError, match=r"single\.npz: not an \.npz archive \(it holds a single \.npy array\)"):
+        rlrates.load_mdp(single)
+
+
+def test_extension_and_missing_file(garnet: rlrates.TabularMDP, tmp_path: Path) -> None:
+    with pytest.raises(ValueError, match=r"g\.txt: unsupported extension '\.txt'; an MDP file must end in \.npz or \.json"):
+        rlrates.save_mdp(garnet, tmp_path / "g.txt")
+    with pytest.raises(ValueError, match=r"noext: no file extension; an MDP file must end in"):
+        rlrates.load_mdp(tmp_path / "noext")
+    with pytest.raises(ValueError, match=r"absent\.json: no such file"):
+        rlrates.load_mdp(tmp_path / "absent.json")
+    assert not (tmp_path / "g.txt").exists()
+
+
+def test_metadata_that_is_not_json_is_refused_before_writing(tmp_path: Path) -> None:
+    mdp = rlrates.TabularMDP(HAND_P, HAND_R, name="odd", metadata={"when": object()})
+    for suffix in (".npz", ".json"):
+        with pytest.raises(ValueError, match=r"cannot save the metadata of MDP 'odd': .*object is not JSON data"):
+            rlrates.save_mdp(mdp, tmp_path / f"odd{suffix}")
+        assert not (tmp_path / f"odd{suffix}").exists()
+    with pytest.raises(TypeError, match=r"`mdp` must be a TabularMDP, got dict"):
+        rlrates.save_mdp({"P": HAND_P}, tmp_path / "x.json")  # type: ignore[arg-type]
