@@ -1,0 +1,1 @@
+"""Reservoir lab: sample-efficient release planning for a small irrigation reservoir."""

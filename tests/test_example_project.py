@@ -1,0 +1,65 @@
+"""The README's main job end to end: the example project's rate tests write a complete report.
+
+Also keeps the README and ``.ci/run`` in step: CI must run exactly the README's commands.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def _readme_commands() -> list[str]:
+    blocks = re.findall(r"```bash\n(.*?)```", (ROOT / "README.md").read_text(), flags=re.DOTALL)
+    return [line.strip() for block in blocks[:2] for line in block.strip().splitlines()]
+
+
+def test_ci_runs_exactly_the_readme_set_up_commands() -> None:
+    commands = _readme_commands()
+    assert len(commands) == 2
+    ci_lines = [line.strip() for line in (ROOT / ".ci" / "run").read_text().splitlines()]
+    for command in commands:
+        assert command in ci_lines, command
+
+
+@pytest.fixture(scope="module")
+def report(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, subprocess.CompletedProcess[str]]:
+    directory = tmp_path_factory.mktemp("report")
+    run = subprocess.run(
+        [sys.executable, "-m", "pytest", "example_project", "-p", "no:cacheprovider", "-q",
+         "--rlrates-report", str(directory)],
+        cwd=ROOT, capture_output=True, text=True, timeout=600,
+    )
+    return directory, run
+
+
+def test_the_example_project_passes_and_its_regression_stays_caught(report: tuple[Path, subprocess.CompletedProcess[str]]) -> None:
+    _, run = report
+    assert run.returncode == 0, run.stdout + run.stderr
+    assert re.search(r"\d+ passed, 1 xfailed", run.stdout), run.stdout
+    assert "FAIL (floor" in run.stdout  # the summary names why the kept regression fails
+
+
+def test_the_index_lists_every_check_and_rebuilds_byte_for_byte(report: tuple[Path, subprocess.CompletedProcess[str]]) -> None:
+    directory, run = report
+    records = sorted(directory.glob("*/check.json"))
+    checks = int(re.search(r"(\d+) check\(s\):", run.stdout).group(1))  # type: ignore[union-attr]
+    assert len(records) == checks >= 10
+    index = (directory / "index.md").read_text()
+    for path in records:
+        assert json.loads(path.read_text())["test_id"] in index
+        assert (path.parent / "errors.csv").is_file()
+    before = {name: (directory / name).read_bytes() for name in ("index.md", "index.tex")}
+    for name in before:
+        (directory / name).unlink()
+    rebuilt = subprocess.run([sys.executable, "-m", "rlrates", "report", str(directory)],
+                             capture_output=True, text=True, timeout=600)
+    assert rebuilt.returncode == 0, rebuilt.stderr
+    assert {name: (directory / name).read_bytes() for name in before} == before
