@@ -144,12 +144,13 @@ def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[fl
             bending = _pooled(steepening).upper(alpha) < 0.0
             if floors:
                 fires.append("floor")
-                for g, s in floors:
-                    decision.reasons.append(
-                        f"error floor at gamma={g:g}: over the largest n the error falls like n^{s.estimate:.2f} "
-                        f"(lower bound {s.lower(floor_alpha):.2f}), slower than the claimed n^{claim.n:g} "
-                        f"plus tolerance {profile.floor_tolerance:g}; the error stops falling (a bias)"
-                    )
+                where = ", ".join(
+                    f"gamma={g:g} (n^{s.estimate:+.2f}, lower bound {s.lower(floor_alpha):+.2f})" for g, s in floors
+                )
+                decision.reasons.append(
+                    f"error floor: over the largest n the error stops falling at {where}; the claim allows at most "
+                    f"n^{claim.n:g} plus tolerance {profile.floor_tolerance:g} (a bias the data cannot remove)"
+                )
             if rate_fire and not floors and bending:
                 need_larger_n = True
                 unclear.append("n")
