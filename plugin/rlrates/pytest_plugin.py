@@ -546,6 +546,17 @@ class RatesRunner:
         """The command that reruns this test alone with the same seed and profile."""
         return reproduce_command(self._item.config, self._item.nodeid, self.seed, self.profile)
 
+    def _report(self, result: CheckResult) -> None:
+        """Keep the result; write its report folder when the session has a report directory."""
+        self.results.append(result)
+        report_dir = self._session.settings.report_dir
+        if report_dir is not None:
+            from .report import figures_available, write_check
+
+            nodeid = self._item.nodeid
+            label = nodeid if len(self.results) == 1 else f"{nodeid}#{len(self.results)}"
+            write_check(result, report_dir, label, figures=figures_available())
+
     def __call__(
         self,
         estimator: Callable[[Any, Any], Any],
@@ -574,7 +585,7 @@ class RatesRunner:
                 f"use {SEED_OPTION} for the seed and {WORKERS_OPTION} for parallel sweeps",
                 pytrace=False,
             )
-        from .rate_check import check
+        from .rate_check import CheckInterrupted, check
 
         settings = self._session.settings
         problem = ""
@@ -594,14 +605,12 @@ class RatesRunner:
             )
         except (TypeError, ValueError) as exc:
             problem = f"rlrates: the check in {nodeid} could not run: {type(exc).__name__}: {exc}"
+        except CheckInterrupted as interrupted:  # keep what was computed, then let pytest stop cleanly
+            self._report(interrupted.result)
+            raise
         if problem:  # failed outside the except block, so pytest shows no exception chain
             pytest.fail(problem, pytrace=False)
-        self.results.append(result)
-        if settings.report_dir is not None:
-            from .report import figures_available, write_check
-
-            label = nodeid if len(self.results) == 1 else f"{nodeid}#{len(self.results)}"
-            write_check(result, settings.report_dir, label, figures=figures_available())
+        self._report(result)
         from .records import CheckRecord
 
         record = CheckRecord.from_result(result, nodeid)

@@ -31,11 +31,23 @@ from .sweep import CellFailure, CellTask, rows_to_table, run_sweep
 from .targets import Truth, solve_truth, validate_norm, validate_target
 from .verdict import FITS_COLUMNS, Decision, decide
 
-__all__ = ["check", "CheckResult", "RatesWarning", "STATUSES"]
+__all__ = ["check", "CheckResult", "CheckInterrupted", "RatesWarning", "STATUSES"]
 
 STATUSES = ("pass", "fail", "inconclusive", "error")
 
 MDPSource = TabularMDP | Callable[[float], TabularMDP]
+
+
+class CheckInterrupted(KeyboardInterrupt):
+    """A KeyboardInterrupt during a sweep, carrying the partial result (status "error").
+
+    Catching it as a KeyboardInterrupt behaves as usual; callers that want the rows
+    computed so far (the pytest layer writes them to the report) read ``.result``.
+    """
+
+    def __init__(self, result: "CheckResult") -> None:
+        super().__init__(result.failure.describe() if result.failure else "interrupted")
+        self.result = result
 
 
 class RatesWarning(UserWarning):
@@ -246,7 +258,7 @@ def check(
             f"budget spent after {passes} pass(es): {reps} replicates per cell, n up to {max(n_values)}; "
             "a larger budget (profile 'full', or more replicates / a longer n_grid) may settle it"
         )
-    return CheckResult(
+    result = CheckResult(
         status=status,
         claim=claim,
         target=target,
@@ -272,4 +284,6 @@ def check(
         blocks=pd.DataFrame(blocks, columns=["gamma", "n", "start", "stop"]),
         scales=scale,
     )
-
+    if failure is not None and failure.kind == "interrupted":
+        raise CheckInterrupted(result)
+    return result

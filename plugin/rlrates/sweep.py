@@ -41,7 +41,7 @@ class CellFailure:
     gamma: float
     n: int
     replicate: int
-    kind: str  # "raised" or "invalid"
+    kind: str  # "raised", "invalid" or "interrupted"
     message: str
     traceback: str
 
@@ -49,6 +49,8 @@ class CellFailure:
         where = f"gamma={self.gamma:g}, n={self.n}, replicate={self.replicate}"
         if self.kind == "raised":
             return f"the estimator raised at {where}: {self.message}"
+        if self.kind == "interrupted":
+            return f"interrupted (KeyboardInterrupt) at {where}; the rows finished before it are kept"
         return f"invalid estimate at {where}: {self.message}"
 
 
@@ -91,6 +93,9 @@ def run_cell(task: CellTask) -> CellOutcome:
         started = time.perf_counter()
         try:
             estimate = task.estimator(batch, problem)
+        except KeyboardInterrupt:  # keep what is done; rate_check re-raises after recording it
+            outcome.failure = CellFailure(truth.gamma, task.n, replicate, "interrupted", "KeyboardInterrupt", "")
+            return outcome
         except Exception as exc:  # the estimator's own bug: record it, keep the session alive
             outcome.failure = CellFailure(
                 truth.gamma, task.n, replicate, "raised", f"{type(exc).__name__}: {exc}",

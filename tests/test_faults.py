@@ -1,0 +1,129 @@
+"""Faults and determinism in real pytest sessions: test order, failing neighbours, interrupts, reports.
+
+Each test runs a real inner test file in a subprocess with ``pytester``.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import xml.etree.ElementTree as ET
+from pathlib import Path
+
+import pytest
+
+ESTIMATORS = '''
+import numpy as np
+
+def plug_in(batch, problem):
+    model = batch.counts / batch.n
+    P_pi = np.einsum("sa,sat->st", problem.policy, model)
+    r_pi = (problem.policy * problem.rewards).sum(axis=1)
+    v = np.linalg.solve(np.eye(problem.states) - problem.gamma * P_pi, r_pi)
+    return problem.rewards + problem.gamma * model @ v
+
+def raises(batch, problem):
+    raise RuntimeError("broken estimator")
+
+def interrupted_at_large_n(batch, problem):
+    if batch.n >= 512:
+        raise KeyboardInterrupt
+    return plug_in(batch, problem)
+'''
+
+TESTS = {
+    "a": '''
+@pytest.mark.rlrates(n=-0.5, horizon=2.0)
+def test_a(rlrates):
+    rlrates(plug_in, rl.garnet(10, 2, 3, seed=1))
+''',
+    "b": '''
+@pytest.mark.rlrates(n=-0.5)
+def test_b(rlrates):
+    rlrates(plug_in, rl.chain(8))
+''',
+    "broken": '''
+@pytest.mark.rlrates(n=-0.5)
+def test_broken(rlrates):
+    rlrates(raises, rl.garnet(10, 2, 3, seed=1))
+''',
+}
+
+HEADER = "import pytest\nimport rlrates as rl\nfrom estimators import plug_in, raises, interrupted_at_large_n\n"
+
+
+@pytest.fixture
+def project(pytester: pytest.Pytester) -> pytest.Pytester:
+    pytester.makepyfile(estimators=ESTIMATORS)
+    pytester.makeini("[pytest]\naddopts = -p no:cacheprovider\n")
+    return pytester
+
+
+def _properties(junit: Path) -> dict[str, str]:
+    """Test name -> the rlrates record it carried in the JUnit XML."""
+    found = {}
+    for case in ET.parse(junit).getroot().iter("testcase"):
+        for prop in case.iter("property"):
+            if prop.get("name") == "rlrates":
+                found[case.get("name", "")] = prop.get("value", "")
+    return found
+
+
+def _numbers(record: str) -> object:
+    data = json.loads(record)
+    data.pop("seconds", None)
+    return data
+
+
+def test_test_order_and_failing_neighbours_do_not_change_the_numbers(project: pytest.Pytester) -> None:
+    # order a, b
+    project.makepyfile(test_inner=HEADER + TESTS["a"] + TESTS["b"])
+    first = project.runpytest_subprocess("--junitxml=first.xml")
+    first.assert_outcomes(passed=2)
+    # order b, broken, a: reordered, with a failing estimator in between
+    project.makepyfile(test_inner=HEADER + TESTS["b"] + TESTS["broken"] + TESTS["a"])
+    second = project.runpytest_subprocess("--junitxml=second.xml")
+    second.assert_outcomes(passed=2, failed=1)
+    one = _properties(project.path / "first.xml")
+    two = _properties(project.path / "second.xml")
+    assert set(one) == {"test_a", "test_b"}
+    for name in ("test_a", "test_b"):
+        assert _numbers(one[name]) == _numbers(two[name])
+
+
+def test_an_unwritable_report_directory_is_a_usage_error(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + TESTS["b"])
+    (project.path / "occupied").write_text("a file, not a folder")
+    result = project.runpytest_subprocess("--rlrates-report=occupied/reports")
+    assert result.ret == pytest.ExitCode.USAGE_ERROR
+    result.stderr.fnmatch_lines(["*--rlrates-report: cannot write to the report directory*occupied*reports*"])
+
+
+def test_an_erroring_check_still_writes_its_raw_table(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + TESTS["a"] + TESTS["broken"])
+    result = project.runpytest_subprocess("--rlrates-report=out")
+    result.assert_outcomes(passed=1, failed=1)
+    folders = {json.loads(p.read_text())["test_id"]: p.parent for p in (project.path / "out").glob("*/check.json")}
+    broken = folders["test_inner.py::test_broken"]
+    record = json.loads((broken / "check.json").read_text())
+    assert record["status"] == "error"
+    assert "broken estimator" in record["failure"]["traceback"]
+    assert (broken / "errors.csv").read_text().startswith("gamma,H,n,replicate,error,seconds")
+    assert "test_inner.py::test_a" in (project.path / "out" / "index.md").read_text()
+
+
+def test_an_interrupt_mid_sweep_keeps_the_rows_on_disk_and_ends_cleanly(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + '''
+@pytest.mark.rlrates(n=-0.5)
+def test_interrupted(rlrates):
+    rlrates(interrupted_at_large_n, rl.garnet(10, 2, 3, seed=1))
+''')
+    result = project.runpytest_subprocess("--rlrates-report=out")
+    assert result.ret == pytest.ExitCode.INTERRUPTED
+    result.stdout.fnmatch_lines(["*KeyboardInterrupt*"])
+    (folder,) = [p.parent for p in (project.path / "out").glob("*/check.json")]
+    record = json.loads((folder / "check.json").read_text())
+    assert record["failure"]["kind"] == "interrupted"
+    rows = (folder / "errors.csv").read_text().strip().splitlines()[1:]
+    assert len(rows) >= 2 * 24  # the cells at n = 128 and 256 of the first discount were finished
+    assert {int(re.split(",", row)[2]) for row in rows} <= {128, 256}
