@@ -2,8 +2,8 @@
 
 The full table (hundreds of seeds per member, with confidence intervals) is made by
 ``benchmarks/calibrate.py`` and kept in ``docs/calibration-quick.md``: 0 false alarms in
-2860 checks of correct members (95% upper bound 0.13% per check) and 0 misses in 2660
-checks of broken ones. At those rates the 33 correct-member checks here would all pass
+3040 checks of correct members (95% upper bound 0.12% per check) and 0 misses in 2480
+checks of broken ones. At those rates the 30 correct-member checks here would all pass
 for a fresh choice of seeds with probability above 95%; the seeds are fixed, so the test is
 deterministic either way.
 """
