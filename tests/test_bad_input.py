@@ -68,6 +68,58 @@ def _same_object(batch: Any, problem: Any) -> np.ndarray:
     return _SHARED
 
 
+def _process_pool_with_a_lambda() -> None:
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=1) as pool:
+        rlrates.check(lambda batch, problem: reference.plugin_q_pi(batch, problem), MDP, CLAIM, executor=pool, **SMALL)
+
+
+def _report_dir_under_a_file() -> None:
+    from rlrates.pytest_plugin import _prepare_report_dir
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        blocker = Path(tmp) / "occupied"
+        blocker.write_text("a file")
+        try:
+            _prepare_report_dir(blocker / "reports", controller=True)
+        except pytest.UsageError as exc:
+            raise ValueError(str(exc)) from None
+
+
+def _saved_report(tmp: Path) -> Path:
+    from rlrates.report import write_check
+
+    result = rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **SMALL)
+    return write_check(result, tmp, "tests/test_x.py::test_saved", figures=False)
+
+
+def _corrupt_report(edit: Callable[[Path], None]) -> Callable[[], None]:
+    def trigger() -> None:
+        import tempfile
+
+        from rlrates.report import rebuild
+
+        with tempfile.TemporaryDirectory() as tmp:
+            folder = _saved_report(Path(tmp))
+            edit(folder)
+            rebuild(tmp)
+
+    return trigger
+
+
+def _truncate_json(folder: Path) -> None:
+    path = folder / "check.json"
+    path.write_text(path.read_text()[:-40])
+
+
+def _drop_error_column(folder: Path) -> None:
+    path = folder / "errors.csv"
+    lines = path.read_text().splitlines()
+    path.write_text("\n".join(",".join(line.split(",")[:4] + line.split(",")[5:]) for line in lines) + "\n")
+
+
 @dataclass(frozen=True)
 class Case:
     id: str
@@ -112,6 +164,10 @@ CATALOGUE = [
     Case("estimator-same-object", lambda: _run(_same_object), r"replicate=1: the estimator returned the same array object"),
     Case("family-not-mdp", lambda: rlrates.check(reference.plugin_q_pi, lambda g: "mdp", CLAIM, **SMALL), r"returned str for gamma=0.5, not a TabularMDP"),
     Case("time-limit", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, time_limit=-1), r"`time_limit` must be a positive number of seconds, got -1"),
+    Case("estimator-not-picklable", _process_pool_with_a_lambda, r"cannot be pickled, so it cannot be sent to the ProcessPoolExecutor.*module-level function"),
+    Case("report-dir-not-writable", _report_dir_under_a_file, r"--rlrates-report: cannot write to the report directory .*occupied/reports"),
+    Case("report-json-corrupt", _corrupt_report(_truncate_json), r"check.json: not valid JSON \(line \d+, column \d+"),
+    Case("report-csv-edited", _corrupt_report(_drop_error_column), r"errors.csv: .*error"),
 ]
 
 
