@@ -16,7 +16,7 @@ import numpy as np
 
 import rlrates
 from rlrates import reference
-from rlrates.exact import evaluate_arrays, policy_iteration
+from rlrates.exact import evaluate_arrays
 
 
 # ----------------------------------------------------------------------------------------------

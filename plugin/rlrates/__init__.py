@@ -50,17 +50,34 @@ _EXPORTS: dict[str, str] = {
 
 __all__ = sorted(_EXPORTS) + ["__version__"]
 
-if TYPE_CHECKING:  # pragma: no cover
-    from .rate_check import CheckResult, RatesWarning, check
-    from .claims import Claim
-    from .exact import greedy_policy, model_distance, q_pi, q_star, suboptimality, uniform_policy, v_pi
-    from .families import chain, deterministic, garnet, gridworld, horizon_hard, ring
-    from .gym_import import from_gymnasium
-    from .mdp import RewardRangeWarning, TabularMDP
-    from .profiles import PROFILES, Profile
-    from .sampling import Batch, draw
-    from .storage import load_mdp, save_mdp
-    from .targets import Problem
+if TYPE_CHECKING:  # pragma: no cover  (explicit re-exports for type checkers)
+    from .rate_check import CheckResult as CheckResult
+    from .rate_check import RatesWarning as RatesWarning
+    from .rate_check import check as check
+    from .claims import Claim as Claim
+    from .exact import greedy_policy as greedy_policy
+    from .exact import model_distance as model_distance
+    from .exact import q_pi as q_pi
+    from .exact import q_star as q_star
+    from .exact import suboptimality as suboptimality
+    from .exact import uniform_policy as uniform_policy
+    from .exact import v_pi as v_pi
+    from .families import chain as chain
+    from .families import deterministic as deterministic
+    from .families import garnet as garnet
+    from .families import gridworld as gridworld
+    from .families import horizon_hard as horizon_hard
+    from .families import ring as ring
+    from .gym_import import from_gymnasium as from_gymnasium
+    from .mdp import RewardRangeWarning as RewardRangeWarning
+    from .mdp import TabularMDP as TabularMDP
+    from .profiles import PROFILES as PROFILES
+    from .profiles import Profile as Profile
+    from .sampling import Batch as Batch
+    from .sampling import draw as draw
+    from .storage import load_mdp as load_mdp
+    from .storage import save_mdp as save_mdp
+    from .targets import Problem as Problem
 
 
 def __getattr__(name: str) -> Any:
