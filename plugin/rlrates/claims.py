@@ -19,7 +19,7 @@ def _exponent(value: object, name: str) -> float | None:
     if isinstance(value, bool) or not isinstance(value, (int, float)) and not hasattr(value, "__float__"):
         raise TypeError(f"`{name}` exponent must be a number or None, got {value!r} of type {type(value).__name__}")
     try:
-        number = float(value)  # type: ignore[arg-type]
+        number = float(value)
     except (TypeError, ValueError):
         raise TypeError(f"`{name}` exponent must be a number or None, got {value!r}") from None
     if not math.isfinite(number):
