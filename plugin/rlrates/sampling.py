@@ -134,11 +134,13 @@ class Batch:
     array; reading ``next_states`` builds it once from the counts.
     """
 
-    def __init__(self, counts: IntArray, n: int, seed: np.random.SeedSequence) -> None:
+    def __init__(self, counts: IntArray, n: int, seed: np.random.SeedSequence, path: tuple[int, ...] = ()) -> None:
         counts.setflags(write=False)
         self._counts = counts
         self._n = int(n)
-        self._seed = seed  # the order of next_states comes from its child 1, built on demand
+        # the order of next_states comes from the child (*path, 1) of `seed`, built on demand
+        self._seed = seed
+        self._path = path
         self._next_states: IntArray | None = None
 
     @property
@@ -167,7 +169,7 @@ class Batch:
             flat_counts = self._counts.reshape(S * A, S)
             laid_out = np.repeat(np.tile(np.arange(S, dtype=np.int64), S * A), flat_counts.ravel())
             ordered = laid_out.reshape(S * A, self._n)
-            shuffled = np.random.default_rng(_child(self._seed, 1)).permuted(ordered, axis=1)
+            shuffled = np.random.default_rng(_child(self._seed, *self._path, 1)).permuted(ordered, axis=1)
             shuffled = shuffled.reshape(S, A, self._n)
             shuffled.setflags(write=False)
             self._next_states = shuffled
@@ -182,10 +184,10 @@ class Batch:
         return f"Batch(states={self.states}, actions={self.actions}, n={self._n})"
 
 
-def _child(seq: np.random.SeedSequence, index: int) -> np.random.SeedSequence:
-    """Child ``index`` of ``seq``, built without ``seq.spawn`` (which advances the parent's
-    spawn counter and would make a reused SeedSequence draw differently)."""
-    return np.random.SeedSequence(seq.entropy, spawn_key=(*seq.spawn_key, index), pool_size=seq.pool_size)
+def _child(seq: np.random.SeedSequence, *path: int) -> np.random.SeedSequence:
+    """The descendant of ``seq`` at spawn-key ``path``, built without ``seq.spawn`` (which
+    advances the parent's spawn counter and would make a reused SeedSequence draw differently)."""
+    return np.random.SeedSequence(seq.entropy, spawn_key=(*seq.spawn_key, *path), pool_size=seq.pool_size)
 
 
 def _validate_n(n: object) -> int:
@@ -233,4 +235,4 @@ def draw_block(
     """
     n = _validate_n(n)
     counts = kernel.sample_counts(np.random.default_rng(_child(seed, 0)), n, replicates)
-    return [Batch(counts[r], n, _child(seed, 1 + r)) for r in range(replicates)]
+    return [Batch(counts[r], n, seed, (1 + r,)) for r in range(replicates)]
