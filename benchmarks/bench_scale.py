@@ -10,7 +10,7 @@ Three measurements, printed as one table at the end:
    the plugin's own work is ``elapsed - estimator_seconds`` (sampling, exact solves,
    fits, verdict), shown as a fraction of the check's wall time.
 2. **Process pool**: one full-profile check (5 discounts x 7 sample sizes x 48
-   replicates) of ``reference.plugin_q_pi`` on garnet(S, 4, 10), S = 300 by default
+   replicates) of ``reference.plugin_q_pi`` on garnet(S, 4, 10), S = 400 by default
    (about 10 s or more serially), once serially and once with
    ``ProcessPoolExecutor(workers)``, twice: with a cold pool (its workers import numpy,
    scipy, pandas and rlrates while the check runs, as in a one-off script) and with a
@@ -204,7 +204,7 @@ def large(states: int) -> list[tuple[str, str]]:
 
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--states", type=int, default=300, help="garnet size for the serial vs pool run (default 300)")
+    parser.add_argument("--states", type=int, default=400, help="garnet size for the serial vs pool run (default 400)")
     parser.add_argument("--workers", type=int, default=2, help="process-pool workers (default 2)")
     parser.add_argument("--large", action="store_true", help="also run the S=500 full check with peak memory")
     parser.add_argument("--large-states", type=int, default=500, help="garnet size for --large (default 500)")

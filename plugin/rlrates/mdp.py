@@ -194,7 +194,9 @@ class TabularMDP:
         object.__setattr__(self, key, value)
 
     def __reduce__(self) -> tuple[Any, ...]:
-        return (_rebuild, (np.array(self._P), np.array(self._R), self._name, self._metadata))
+        # The arrays were validated when this object was built: unpickling (for example in
+        # a process-pool worker, once per sweep cell) restores them without validating again.
+        return (_restore, (self._P, self._R, self._name, self._metadata, self._fingerprint))
 
     def __eq__(self, other: object) -> bool:
         if not isinstance(other, TabularMDP):
@@ -211,7 +213,15 @@ class TabularMDP:
         )
 
 
-def _rebuild(P: NDArray[np.float64], R: NDArray[np.float64], name: str, metadata: dict[str, Any]) -> TabularMDP:
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore", RewardRangeWarning)
-        return TabularMDP(P, R, name=name, metadata=metadata)
+def _restore(
+    P: NDArray[np.float64], R: NDArray[np.float64], name: str, metadata: dict[str, Any], fingerprint: str
+) -> TabularMDP:
+    """Rebuild a pickled TabularMDP from its already validated parts."""
+    mdp = object.__new__(TabularMDP)
+    P = np.asarray(P, dtype=np.float64)  # a fresh array from the pickle: no copy needed
+    R = np.asarray(R, dtype=np.float64)
+    P.setflags(write=False)
+    R.setflags(write=False)
+    for slot, value in (("_P", P), ("_R", R), ("_name", name), ("_metadata", dict(metadata)), ("_fingerprint", fingerprint)):
+        object.__setattr__(mdp, slot, value)
+    return mdp
