@@ -20,7 +20,7 @@ import pytest
 
 import rlrates.rate_check  # noqa: F401  (loads numpy, scipy, pandas before pytester snapshots sys.modules)
 from rlrates.claims import Claim
-from rlrates.pytest_plugin import MarkerError, merge_specs, parse_marker
+from rlrates.marker_spec import MarkerError, merge_specs, parse_marker
 
 # The inner projects' estimators: vectorised numpy, each one a common kind of bug or its fix.
 ESTIMATORS = '''

@@ -16,12 +16,14 @@ from __future__ import annotations
 import argparse
 import os
 import shlex
-from collections.abc import Callable, Iterable, Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import pytest
+
+from .marker_spec import MARKER, MarkerError, MarkerSpec, merge_specs, parse_marker
 
 if TYPE_CHECKING:  # pragma: no cover
     from concurrent.futures import Executor
@@ -48,7 +50,6 @@ __all__ = [
 # Module-level imports stay light (pytest and the standard library only): the rest of
 # rlrates, even its pure-Python parts, is imported inside the hooks that need it.
 
-MARKER = "rlrates"
 MDP_FIXTURE = "rlrates_mdp"
 PROFILE_OPTION = "--rlrates-profile"
 SEED_OPTION = "--rlrates-seed"
@@ -376,94 +377,7 @@ def pytest_terminal_summary(terminalreporter: Any, exitstatus: int, config: pyte
         terminalreporter.write_line(line)
 
 
-# --------------------------------------------------------------------------- the marker
-
-
-class MarkerError(ValueError):
-    """A ``@pytest.mark.rlrates`` argument is unusable; the message names it and the test."""
-
-
-MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "profile", "suite", "mdps", "policy")
-
-
-@dataclass(frozen=True)
-class MarkerSpec:
-    """What one or more ``rlrates`` markers say; ``None`` means "not said"."""
-
-    claim: Claim | None = None
-    target: str | None = None
-    profile: str | Profile | None = None
-    members: tuple[SuiteMember, ...] | None = None
-    policy: Any = None
-
-
-def _bad(where: str, text: str) -> MarkerError:
-    return MarkerError(f"@pytest.mark.{MARKER} on {where}: {text}")
-
-
-def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -> MarkerSpec:
-    """Validate one marker's arguments; raise :class:`MarkerError` naming the first bad one."""
-    unknown = [key for key in kwargs if key not in MARKER_KEYWORDS]
-    if unknown:
-        import difflib
-
-        close = difflib.get_close_matches(unknown[0], MARKER_KEYWORDS, n=1)
-        hint = f" (did you mean `{close[0]}`?)" if close else ""
-        raise _bad(where, f"unknown keyword `{unknown[0]}`{hint}; known: {', '.join(MARKER_KEYWORDS)}")
-    if len(args) > 1:
-        raise _bad(where, f"takes at most one positional argument (the claim), got {len(args)}: {args!r}")
-    if args and "claim" in kwargs:
-        raise _bad(where, "the claim is given twice, positionally and as `claim=`")
-    from .claims import Claim
-    from .profiles import PROFILES, Profile
-    from .suite import SuiteError, custom_members, select_members
-
-    claim = args[0] if args else kwargs.get("claim")
-    exponents = {key: kwargs[key] for key in ("n", "horizon") if key in kwargs}
-    if claim is not None and exponents:
-        raise _bad(where, f"give either `claim` or the exponents {' and '.join(f'`{k}=`' for k in exponents)}, not both")
-    if claim is not None and not isinstance(claim, Claim):
-        raise _bad(where, f"`claim` must be an rlrates.Claim, got {claim!r} of type {type(claim).__name__}")
-    if exponents:
-        try:
-            claim = Claim(n=exponents.get("n"), horizon=exponents.get("horizon"))
-        except (TypeError, ValueError) as exc:
-            raise _bad(where, f"bad exponent: {exc}") from None
-    target = kwargs.get("target")
-    if target is not None:
-        from .targets import validate_target
-
-        try:
-            target = validate_target(target)
-        except ValueError as exc:
-            raise _bad(where, str(exc)) from None
-    profile = kwargs.get("profile")
-    if profile is not None and not isinstance(profile, Profile) and profile not in PROFILES:
-        raise _bad(where, f"unknown `profile` {profile!r}; choose one of {', '.join(PROFILES)} or pass an rlrates.Profile")
-    if kwargs.get("suite") is not None and kwargs.get("mdps") is not None:
-        raise _bad(where, "give `suite=` (narrow the standard suite) or `mdps=` (replace it), not both")
-    members: tuple[SuiteMember, ...] | None = None
-    try:
-        if kwargs.get("suite") is not None:
-            members = tuple(select_members(kwargs["suite"], where="`suite`"))
-            if not members:
-                raise SuiteError(f"`suite` {kwargs['suite']!r} matches no member")
-        elif "mdps" in kwargs:
-            members = tuple(custom_members(kwargs["mdps"], where="`mdps`"))
-    except SuiteError as exc:
-        raise _bad(where, str(exc)) from None
-    return MarkerSpec(claim=claim, target=target, profile=profile, members=members, policy=kwargs.get("policy"))
-
-
-def merge_specs(specs: Iterable[MarkerSpec]) -> MarkerSpec:
-    """Combine markers, closest first (function over class over module): the first one that says a thing wins."""
-    merged: dict[str, Any] = {}
-    for spec in specs:
-        for name in ("claim", "target", "profile", "members", "policy"):
-            value = getattr(spec, name)
-            if value is not None and name not in merged:
-                merged[name] = value
-    return MarkerSpec(**merged)
+# --------------------------------------------------------------------------- the marker (see marker_spec.py)
 
 
 def marker_spec(node: pytest.Item | Any) -> MarkerSpec:

@@ -1,0 +1,111 @@
+"""The ``rlrates`` marker's arguments: validation and merging, with no pytest import.
+
+``@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, profile=None,
+suite=None, mdps=None, policy=None)``: the claim under test (an ``rlrates.Claim``, or its
+exponents ``n=`` / ``horizon=``), defaults for the ``rlrates`` fixture (target, profile,
+policy), and the MDPs of ``rlrates_mdp`` (``suite=`` narrows the standard suite to member
+names or tags; ``mdps=`` replaces it with a list or a dict ``{id: mdp}``). The pytest layer
+validates every marker at collection, so a bad argument is reported before any estimator runs.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+if TYPE_CHECKING:  # pragma: no cover
+    from .claims import Claim
+    from .profiles import Profile
+    from .suite import SuiteMember
+
+__all__ = ["MARKER", "MARKER_KEYWORDS", "MarkerError", "MarkerSpec", "parse_marker", "merge_specs"]
+
+MARKER = "rlrates"
+
+
+class MarkerError(ValueError):
+    """A ``@pytest.mark.rlrates`` argument is unusable; the message names it and the test."""
+
+
+MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "profile", "suite", "mdps", "policy")
+
+
+@dataclass(frozen=True)
+class MarkerSpec:
+    """What one or more ``rlrates`` markers say; ``None`` means "not said"."""
+
+    claim: Claim | None = None
+    target: str | None = None
+    profile: str | Profile | None = None
+    members: tuple[SuiteMember, ...] | None = None
+    policy: Any = None
+
+
+def _bad(where: str, text: str) -> MarkerError:
+    return MarkerError(f"@pytest.mark.{MARKER} on {where}: {text}")
+
+
+def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -> MarkerSpec:
+    """Validate one marker's arguments; raise :class:`MarkerError` naming the first bad one."""
+    unknown = [key for key in kwargs if key not in MARKER_KEYWORDS]
+    if unknown:
+        import difflib
+
+        close = difflib.get_close_matches(unknown[0], MARKER_KEYWORDS, n=1)
+        hint = f" (did you mean `{close[0]}`?)" if close else ""
+        raise _bad(where, f"unknown keyword `{unknown[0]}`{hint}; known: {', '.join(MARKER_KEYWORDS)}")
+    if len(args) > 1:
+        raise _bad(where, f"takes at most one positional argument (the claim), got {len(args)}: {args!r}")
+    if args and "claim" in kwargs:
+        raise _bad(where, "the claim is given twice, positionally and as `claim=`")
+    from .claims import Claim
+    from .profiles import PROFILES, Profile
+    from .suite import SuiteError, custom_members, select_members
+
+    claim = args[0] if args else kwargs.get("claim")
+    exponents = {key: kwargs[key] for key in ("n", "horizon") if key in kwargs}
+    if claim is not None and exponents:
+        raise _bad(where, f"give either `claim` or the exponents {' and '.join(f'`{k}=`' for k in exponents)}, not both")
+    if claim is not None and not isinstance(claim, Claim):
+        raise _bad(where, f"`claim` must be an rlrates.Claim, got {claim!r} of type {type(claim).__name__}")
+    if exponents:
+        try:
+            claim = Claim(n=exponents.get("n"), horizon=exponents.get("horizon"))
+        except (TypeError, ValueError) as exc:
+            raise _bad(where, f"bad exponent: {exc}") from None
+    target = kwargs.get("target")
+    if target is not None:
+        from .targets import validate_target
+
+        try:
+            target = validate_target(target)
+        except ValueError as exc:
+            raise _bad(where, str(exc)) from None
+    profile = kwargs.get("profile")
+    if profile is not None and not isinstance(profile, Profile) and profile not in PROFILES:
+        raise _bad(where, f"unknown `profile` {profile!r}; choose one of {', '.join(PROFILES)} or pass an rlrates.Profile")
+    if kwargs.get("suite") is not None and kwargs.get("mdps") is not None:
+        raise _bad(where, "give `suite=` (narrow the standard suite) or `mdps=` (replace it), not both")
+    members: tuple[SuiteMember, ...] | None = None
+    try:
+        if kwargs.get("suite") is not None:
+            members = tuple(select_members(kwargs["suite"], where="`suite`"))
+            if not members:
+                raise SuiteError(f"`suite` {kwargs['suite']!r} matches no member")
+        elif "mdps" in kwargs:
+            members = tuple(custom_members(kwargs["mdps"], where="`mdps`"))
+    except SuiteError as exc:
+        raise _bad(where, str(exc)) from None
+    return MarkerSpec(claim=claim, target=target, profile=profile, members=members, policy=kwargs.get("policy"))
+
+
+def merge_specs(specs: Iterable[MarkerSpec]) -> MarkerSpec:
+    """Combine markers, closest first (function over class over module): the first one that says a thing wins."""
+    merged: dict[str, Any] = {}
+    for spec in specs:
+        for name in ("claim", "target", "profile", "members", "policy"):
+            value = getattr(spec, name)
+            if value is not None and name not in merged:
+                merged[name] = value
+    return MarkerSpec(**merged)
