@@ -65,4 +65,4 @@ class Claim:
 
     def as_call(self) -> str:
         """Python source that rebuilds this claim."""
-        return f"Claim(n={self.n!r}, horizon={self.horizon!r})"
+        return f"rlrates.Claim(n={self.n!r}, horizon={self.horizon!r})"

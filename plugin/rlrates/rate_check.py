@@ -116,6 +116,24 @@ def _require_picklable(estimator: Callable[[Any, Any], Any], executor: Executor)
         ) from exc
 
 
+_FAMILY_CALLS = {
+    "garnet": ("garnet", ("states", "actions", "branching", "seed")),
+    "chain": ("chain", ("states", "slip", "seed")),
+    "ring": ("ring", ("states", "slip", "seed")),
+    "deterministic": ("deterministic", ("states", "actions", "seed")),
+    "horizon_hard": ("horizon_hard", ("actions",)),
+}
+
+
+def _mdp_call(name: str, metadata: dict[str, Any]) -> str:
+    """Python that rebuilds a family member from its metadata, or the MDP's name otherwise."""
+    known = _FAMILY_CALLS.get(str(metadata.get("family")))
+    if known is None or any(key not in metadata for key in known[1]):
+        return name
+    function, keys = known
+    return f"rlrates.{function}(" + ", ".join(f"{key}={metadata[key]!r}" for key in keys) + ")"
+
+
 def _mdp_for(mdp: MDPSource, gamma: float) -> TabularMDP:
     if isinstance(mdp, TabularMDP):
         return mdp
@@ -248,9 +266,14 @@ def check(
         fits = decision.fits
     if reproducer is None:
         est_name = getattr(estimator, "__qualname__", None) or type(estimator).__name__
+        extras = {"norm": norm if norm != "sup" else None, "n_grid": n_grid, "gammas": gammas,
+                  "replicates": replicates, "context": context or None, "time_limit": time_limit}
         reproducer = (
-            f"rlrates.check({est_name}, {name}, {claim.as_call()}, target={target!r}, "
-            f"profile={design.name!r}, seed={seed}" + (f", context={context!r}" if context else "") + ")"
+            f"rlrates.check({est_name}, {_mdp_call(name, metadata)}, {claim.as_call()}, target={target!r}, "
+            + ("policy=<the policy given>, " if policy is not None else "")
+            + f"profile={design.name!r}, seed={seed}"
+            + "".join(f", {key}={value!r}" for key, value in extras.items() if value is not None)
+            + ")"
         )
     notes = list(decision.notes)
     if status == "inconclusive":
