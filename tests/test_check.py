@@ -251,3 +251,12 @@ def test_a_failure_message_answers_the_four_questions(garnet: rlrates.TabularMDP
     last = text.splitlines()[-1]
     assert last.startswith("reproduce: rlrates.check(stale_buffer_q_pi")
     assert "seed=4" in last and "context='tests/test_x.py::test_y'" in last
+
+
+def test_the_python_reproducer_reruns_the_same_check() -> None:
+    mdp = rlrates.garnet(states=10, actions=2, branching=3, seed=1)
+    result = rlrates.check(zoo.stale_buffer_q_pi, mdp, CLAIM, seed=4, n_grid=(128, 256, 512), replicates=8,
+                           context="tests/test_x.py::test_y")
+    again = eval(result.reproducer, {"rlrates": rlrates, "stale_buffer_q_pi": zoo.stale_buffer_q_pi})
+    pd.testing.assert_frame_equal(_numbers(result), _numbers(again))
+    assert again.status == result.status
