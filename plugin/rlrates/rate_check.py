@@ -35,6 +35,9 @@ __all__ = ["check", "CheckResult", "CheckInterrupted", "RatesWarning", "STATUSES
 
 STATUSES = ("pass", "fail", "inconclusive", "error")
 
+#: Largest number of counts drawn in one block (8M int64 = 64 MB); larger cells are split.
+BLOCK_ELEMENTS = 8_000_000
+
 MDPSource = TabularMDP | Callable[[float], TabularMDP]
 
 
@@ -213,11 +216,18 @@ def check(
     kernels = {g: support_kernel(sampling_kernel(t.mdp), t.mdp.states, t.mdp.actions) for g, t in truths.items()}
 
     def tasks(n_values: list[int], start: int, stop: int) -> list[CellTask]:
-        return [
-            CellTask(estimator, truths[g], n, start, stop, seed, f"{context}|{truths[g].mdp.fingerprint}", norm,
-                     kernels[g], time_limit)
-            for g in design.gammas for n in n_values
-        ]
+        tasks_out = []
+        for g in design.gammas:
+            mdp_g = truths[g].mdp
+            # A block's counts are (replicates, S, A, S) int64: split large MDPs' blocks so that
+            # one block stays under BLOCK_ELEMENTS (the split is part of the design, so it is
+            # the same for every executor and recorded in `blocks`).
+            size = max(1, BLOCK_ELEMENTS // (mdp_g.states * mdp_g.actions * mdp_g.states))
+            for n in n_values:
+                for low in range(start, stop, size):
+                    tasks_out.append(CellTask(estimator, truths[g], n, low, min(low + size, stop), seed,
+                                              f"{context}|{mdp_g.fingerprint}", norm, kernels[g], time_limit))
+        return tasks_out
 
     n_values = list(design.n_grid)
     reps = design.replicates
