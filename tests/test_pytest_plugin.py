@@ -233,6 +233,17 @@ def test_ini_key_narrows_the_default_suite_but_not_a_marked_test(project: pytest
     assert sum("::test_narrowed[" in line for line in listed) == 2
 
 
+def test_suite_option_beats_the_ini_key_and_names_a_bad_selector(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner_suite_ids=SUITE_TESTS)
+    project.makeini("[pytest]\nrlrates_suite = random\n")
+    listed = project.runpytest("--collect-only", "-q", "--rlrates-suite=chain, deterministic").stdout.lines
+    default = [line.split("::", 1)[1] for line in listed if "::test_default[" in line]
+    assert default == ["test_default[chain]", "test_default[deterministic]"]
+    bad = project.runpytest("--collect-only", "--rlrates-suite=chian")
+    assert bad.ret == pytest.ExitCode.USAGE_ERROR
+    bad.stderr.fnmatch_lines(["*--rlrates-suite*chian*"])
+
+
 def test_collection_builds_no_mdp_and_imports_no_numpy(project: pytest.Pytester) -> None:
     project.makepyfile(test_inner_lazy="""
         import pytest

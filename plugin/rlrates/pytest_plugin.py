@@ -56,6 +56,7 @@ SEED_OPTION = "--rlrates-seed"
 REPORT_OPTION = "--rlrates-report"
 WORKERS_OPTION = "--rlrates-workers"
 INCONCLUSIVE_OPTION = "--rlrates-inconclusive"
+SUITE_OPTION = "--rlrates-suite"
 INCONCLUSIVE_CHOICES = ("fail", "skip")
 #: The names of ``rlrates.PROFILES``, spelled out so that ``--help`` needs no import.
 PROFILE_NAMES = ("quick", "full")
@@ -112,6 +113,19 @@ def _parse_workers(text: str) -> int:
     return workers
 
 
+def _parse_suite(text: str) -> tuple[str, ...]:
+    from .suite import SuiteError, select_members
+
+    keys = tuple(part.strip() for part in text.split(",") if part.strip())
+    if not keys:
+        raise argparse.ArgumentTypeError(f"give member names or tags separated by commas, got {text!r}")
+    try:
+        select_members(keys, where=SUITE_OPTION)
+    except SuiteError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+    return keys
+
+
 def _parse_inconclusive(text: str) -> str:
     if text not in INCONCLUSIVE_CHOICES:
         raise argparse.ArgumentTypeError(
@@ -145,6 +159,11 @@ def pytest_addoption(parser: pytest.Parser) -> None:
         metavar="ACTION",
         help="what an inconclusive check does to its test: fail (default) or skip with the reason; "
         "it never passes (ini key rlrates_inconclusive).",
+    )
+    group.addoption(
+        SUITE_OPTION, dest="rlrates_suite", type=_parse_suite, default=None, metavar="SELECTORS",
+        help="comma-separated member names or tags of the standard MDP suite that rlrates_mdp runs over, "
+        "e.g. random,chain (default: all; ini key rlrates_suite). A marker's suite= or mdps= still wins.",
     )
     parser.addini("rlrates_profile", "rlrates: default sweep profile (quick or full).", type="string", default="")
     parser.addini("rlrates_seed", f"rlrates: default master seed (integer >= 0 or '{RANDOM_SEED}').", type="string",
@@ -207,8 +226,9 @@ def resolve_settings(config: pytest.Config) -> RatesSettings:
     elif str(config.getini("rlrates_report")).strip():
         base = config.inipath.parent if config.inipath else config.rootpath
         report = base / str(config.getini("rlrates_report")).strip()
-    suite_keys = [str(item) for item in config.getini("rlrates_suite") or []]
-    if suite_keys:
+    from_option = config.getoption("rlrates_suite")
+    suite_keys = list(from_option) if from_option else [str(item) for item in config.getini("rlrates_suite") or []]
+    if suite_keys and not from_option:
         from .suite import SuiteError, select_members
 
         try:
@@ -417,7 +437,7 @@ def pytest_generate_tests(metafunc: pytest.Metafunc) -> None:
     if members is None:
         from .suite import select_members
 
-        members = tuple(select_members(_session(metafunc.config).settings.suite, where="ini key rlrates_suite"))
+        members = tuple(select_members(_session(metafunc.config).settings.suite, where="the session's suite"))
     metafunc.parametrize(MDP_FIXTURE, members, ids=[member.name for member in members], indirect=True)
 
 
