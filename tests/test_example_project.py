@@ -63,3 +63,13 @@ def test_the_index_lists_every_check_and_rebuilds_byte_for_byte(report: tuple[Pa
                              capture_output=True, text=True, timeout=600)
     assert rebuilt.returncode == 0, rebuilt.stderr
     assert {name: (directory / name).read_bytes() for name in before} == before
+
+
+def test_the_readme_example_test_file_runs_as_shown(pytester: pytest.Pytester) -> None:
+    blocks = re.findall(r"```python\n(.*?)```", (ROOT / "README.md").read_text(), flags=re.DOTALL)
+    example = next(block for block in blocks if "def test_" in block)
+    pytester.makepyfile(test_my_estimators=example)
+    result = pytester.runpytest_subprocess("-p", "no:cacheprovider")
+    result.assert_outcomes(passed=3, failed=1)
+    result.stdout.fnmatch_lines(["*rlrates FAIL (error floor, rate too slow)*",
+                                 "reproduce: pytest test_my_estimators.py::test_refactored_plug_in_rate*"])
