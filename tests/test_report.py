@@ -29,7 +29,7 @@ from rlrates import CheckResult
 from rlrates.figures import build_figure, cell_means, horizon_cells, n_slopes
 from rlrates.report import ReportError, ReportWarning, folder_name, read_check, rebuild, write_check, write_index
 from rlrates.report_index import index_latex, index_markdown, latex_escape
-from rlrates.sampling import draw_block, sampling_kernel, support_kernel
+from rlrates.sampling import draw_block, mdp_kernel
 from rlrates.targets import estimate_error, solve_truth
 
 PASS_ID = "tests/test_rates.py::test_plugin[garnet_10]"
@@ -205,7 +205,7 @@ def test_recorded_streams_rebuild_a_replicate_exactly(session: Path, garnet: rlr
                 and b["start"] <= row["replicate"] < b["stop"]]
     seed = np.random.SeedSequence(streams["master_seed"],
                                   spawn_key=(*stream["spawn_key_prefix"], block["n"], block["start"], block["stop"]))
-    kernel = support_kernel(sampling_kernel(garnet), garnet.states, garnet.actions)
+    kernel = mdp_kernel(garnet)
     batch = draw_block(kernel, block["n"], block["stop"] - block["start"], seed)[int(row["replicate"]) - block["start"]]
     truth = solve_truth(garnet, float(row["gamma"]), "q_pi")
     assert estimate_error(reference.plugin_q_pi(batch, truth.problem()), truth) == row["error"]

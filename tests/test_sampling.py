@@ -332,9 +332,9 @@ def test_plug_in_sd_matches_delta_method(horizon: int) -> None:
 
 
 def test_a_block_of_replicates_is_reproducible_and_consistent(garnet: TabularMDP) -> None:
-    from rlrates.sampling import block_seed, draw_block, support_kernel
+    from rlrates.sampling import block_seed, draw_block, mdp_kernel
 
-    kernel = support_kernel(sampling_kernel(garnet), garnet.states, garnet.actions)
+    kernel = mdp_kernel(garnet)
     seed = block_seed(7, "tests/x.py::t", 0.9, 64, 0, 6)
     first = draw_block(kernel, 64, 6, seed)
     again = draw_block(kernel, 64, 6, block_seed(7, "tests/x.py::t", 0.9, 64, 0, 6))
@@ -354,9 +354,9 @@ def test_a_block_of_replicates_is_reproducible_and_consistent(garnet: TabularMDP
 def test_block_counts_follow_the_multinomial(garnet: TabularMDP) -> None:
     # Pooled counts of 400 replicates against P by a chi-square test per row block (scipy.stats);
     # seeded, deterministic; a correct sampler fails at level 1e-3 (false-alarm rate 0.1%).
-    from rlrates.sampling import block_seed, draw_block, support_kernel
+    from rlrates.sampling import block_seed, draw_block, mdp_kernel
 
-    kernel = support_kernel(sampling_kernel(garnet), garnet.states, garnet.actions)
+    kernel = mdp_kernel(garnet)
     batches = draw_block(kernel, 50, 400, block_seed(1, "chi2", 0.5, 50, 0, 400))
     pooled = sum(b.counts for b in batches)
     observed = pooled.reshape(-1, garnet.states)

@@ -26,8 +26,8 @@ from .fitting import summarise_cells
 from .mdp import TabularMDP
 from .messages import format_message
 from .profiles import Profile, resolve_profile
-from .sampling import sampling_kernel, support_kernel
-from .sweep import CellFailure, CellTask, rows_to_table, run_sweep
+from .sampling import SupportKernel, mdp_kernel
+from .sweep import CellFailure, CellTask, run_sweep
 from .targets import Truth, solve_truth, validate_norm, validate_target
 from .verdict import FITS_COLUMNS, Decision, decide
 
@@ -213,7 +213,12 @@ def check(
     resolution = design.policy_resolution if target == "policy" else 1e-9
     zero_tolerance = {g: resolution * max(1.0, t.scale) for g, t in truths.items()}
     scale = {g: t.scale for g, t in truths.items()}
-    kernels = {g: support_kernel(sampling_kernel(t.mdp), t.mdp.states, t.mdp.actions) for g, t in truths.items()}
+    kernels: dict[float, SupportKernel] = {}
+    by_fingerprint: dict[str, SupportKernel] = {}  # one MDP serves every gamma unless it is a family
+    for g, t in truths.items():
+        if t.mdp.fingerprint not in by_fingerprint:
+            by_fingerprint[t.mdp.fingerprint] = mdp_kernel(t.mdp)
+        kernels[g] = by_fingerprint[t.mdp.fingerprint]
 
     def tasks(n_values: list[int], start: int, stop: int) -> list[CellTask]:
         tasks_out = []
@@ -245,18 +250,17 @@ def check(
         blocks.extend((t.truth.gamma, t.n, t.start, t.stop) for t in pending)
         part, failure = run_sweep(pending, executor)
         tables.append(part)
-        table = pd.concat(tables, ignore_index=True) if len(tables) > 1 else part
+        table = pd.concat(tables, ignore_index=True)
         if failure is not None:
             break
         summary = summarise_cells(table, zero_tolerance)
         decision = decide(summary, claim, design, scale, window=len(design.n_grid))
         if decision.status != "ambiguous":
             break
-        if decision.need == "replicates" and not replicates_added:
-            pending = tasks(n_values, reps, reps * design.more_replicates)
-            reps *= design.more_replicates
-            replicates_added = True
-        elif doublings_left > 0:
+        # Escalate: more replicates first when the intervals are too wide, larger n first when
+        # the curve is not yet asymptotic; either one when the other is spent.
+        more_n = doublings_left > 0 and (decision.need == "larger_n" or replicates_added)
+        if more_n:
             n_values.append(max(n_values) * 2)
             pending = tasks(n_values[-1:], 0, reps)
             doublings_left -= 1
@@ -266,7 +270,6 @@ def check(
             replicates_added = True
         else:
             break
-    table = rows_to_table([]) if not tables else pd.concat(tables, ignore_index=True)
     table = table.sort_values(["gamma", "n", "replicate"], ignore_index=True)
     if failure is not None:
         status = "error"

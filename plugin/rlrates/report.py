@@ -211,13 +211,18 @@ def _lookup(record: Mapping[str, Any], dotted: str) -> tuple[bool, Any]:
     return True, value
 
 
-def _read_record(path: Path) -> dict[str, Any]:
+def _read_saved_text(path: Path) -> str:
+    """A report file's text, or a ReportError naming the file and what is wrong with it."""
     try:
-        text = path.read_text(encoding="utf-8")
+        return path.read_text(encoding="utf-8")
     except FileNotFoundError:
-        raise ReportError(f"{path}: missing (every check folder needs {RECORD_FILE})") from None
+        raise ReportError(f"{path}: missing (every check folder needs {path.name})") from None
     except (OSError, UnicodeDecodeError) as exc:
         raise ReportError(f"{path}: cannot be read: {exc}") from None
+
+
+def _read_record(path: Path) -> dict[str, Any]:
+    text = _read_saved_text(path)
     try:
         record = json.loads(text)
     except json.JSONDecodeError as exc:
@@ -247,12 +252,7 @@ def _read_record(path: Path) -> dict[str, Any]:
 
 
 def _read_errors(path: Path, record_path: Path, expected_sha256: str) -> pd.DataFrame:
-    try:
-        text = path.read_text(encoding="utf-8")
-    except FileNotFoundError:
-        raise ReportError(f"{path}: missing (every check folder needs {ERRORS_FILE})") from None
-    except (OSError, UnicodeDecodeError) as exc:
-        raise ReportError(f"{path}: cannot be read: {exc}") from None
+    text = _read_saved_text(path)
     try:
         frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False)
     except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:

@@ -24,7 +24,7 @@ from numpy.typing import NDArray
 
 from .mdp import TabularMDP
 
-__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel"]
+__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel"]
 
 IntArray = NDArray[np.int64]
 
@@ -125,6 +125,11 @@ def support_kernel(kernel: NDArray[np.float64], states: int, actions: int) -> Su
     probs = probs / probs.sum(axis=1, keepdims=True)
     probs[:, -1] = np.clip(1.0 - probs[:, :-1].sum(axis=1), 0.0, None)
     return SupportKernel(states, actions, support, probs)
+
+
+def mdp_kernel(mdp: TabularMDP) -> SupportKernel:
+    """The support kernel of an MDP, ready for :func:`draw` and :func:`draw_block`."""
+    return support_kernel(sampling_kernel(mdp), mdp.states, mdp.actions)
 
 
 class Batch:

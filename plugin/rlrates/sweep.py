@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .sampling import SupportKernel, block_seed, draw_block, sampling_kernel, support_kernel
+from .sampling import SupportKernel, block_seed, draw_block, mdp_kernel
 from .targets import EstimateError, Truth, estimate_error, validate_estimate
 
 __all__ = ["CellTask", "CellFailure", "CellOutcome", "run_cell", "run_sweep", "TABLE_COLUMNS"]
@@ -85,7 +85,7 @@ def run_cell(task: CellTask) -> CellOutcome:
     outcome = CellOutcome(truth.gamma, task.n, [])
     kernel = task.kernel
     if kernel is None:
-        kernel = support_kernel(sampling_kernel(truth.mdp), truth.mdp.states, truth.mdp.actions)
+        kernel = mdp_kernel(truth.mdp)
     seed = block_seed(task.master_seed, task.context, truth.gamma, task.n, task.start, task.stop)
     batches = draw_block(kernel, task.n, task.stop - task.start, seed)
     previous: object = None
