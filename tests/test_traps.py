@@ -178,3 +178,18 @@ def test_pooling_alone_would_hide_a_floor_at_one_discount(garnet: rlrates.Tabula
     assert result.status == "fail"
     assert "floor" in result.fired
     assert re.search(r"error floor: .* stops falling at gamma=0.5 \(n\^", result.message)
+
+
+def test_a_discount_without_enough_asymptotic_points_is_not_passed_unseen(garnet: rlrates.TabularMDP) -> None:
+    # n from 32 to 128: at gamma = 0.9 (8 H = 80) only n = 128 is asymptotic, so that discount
+    # cannot be fitted; the other two can. Without the budget to go to larger n, no pass.
+    profile = PROFILES["quick"].with_overrides(n_doublings=0)
+    with pytest.warns(RatesWarning, match="below 8 H for gamma in 0.9"):
+        result = rlrates.check(reference.plugin_q_pi, garnet, rlrates.Claim(n=-0.5), seed=0, profile=profile,
+                               n_grid=(32, 64, 128))
+    assert result.status == "inconclusive", result.message
+    assert "fewer than 3 asymptotic points at gamma=0.9" in result.message
+    # with doublings, larger n covers gamma = 0.9 too and the check settles
+    with pytest.warns(RatesWarning):
+        settled = rlrates.check(reference.plugin_q_pi, garnet, rlrates.Claim(n=-0.5), seed=0, n_grid=(32, 64, 128))
+    assert settled.status == "pass", settled.message

@@ -168,6 +168,13 @@ def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[fl
                 s.upper(profile.pass_alpha) > floor_limit for _, s in upper
             ):
                 unclear.append("n")
+            short_gammas = [row["gamma"] for row in per_gamma if row["state"] == "too few asymptotic points"]
+            if short_gammas and not fires and "n" not in unclear:
+                unclear.append("n")  # a discount the fits could not cover cannot count as passed
+                decision.notes.append(
+                    "fewer than 3 asymptotic points at gamma="
+                    + ", ".join(f"{g:g}" for g in short_gammas) + ": the n-claim is untested there"
+                )
             if floors or (rate_fire and "rate" in fires):
                 n_verdict = "violated"
             elif "n" in unclear:
