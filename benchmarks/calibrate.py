@@ -3,7 +3,7 @@
     python benchmarks/calibrate.py --seeds 300 --slow-seeds 40 --profile quick --workers 2 \
         --markdown docs/calibration.md
 
-For every zoo member (tests/zoo.py) and master seed it runs one whole check and
+For every zoo member (tests/engine/zoo.py) and master seed it runs one whole check and
 tallies pass / fail / inconclusive / error. Printed per member: the share of each
 verdict with Clopper-Pearson 95% intervals (scipy.stats.binomtest), and the mean
 time per check. Summary lines: the false-alarm rate (correct members that
@@ -22,7 +22,7 @@ from pathlib import Path
 import pandas as pd
 from scipy import stats
 
-sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests"))
+sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "engine"))
 
 import rlrates  # noqa: E402
 import zoo  # noqa: E402

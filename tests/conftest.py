@@ -1,8 +1,0 @@
-"""Make the estimator zoo (tests/zoo.py) importable from every test module."""
-
-from __future__ import annotations
-
-import sys
-from pathlib import Path
-
-sys.path.insert(0, str(Path(__file__).parent))

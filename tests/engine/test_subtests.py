@@ -1,0 +1,169 @@
+"""Each sub-test of a verdict on its own, with slopes built by hand, and how decide() combines them.
+
+Expected bounds are computed with scipy.stats' normal quantile (the reference for
+Slope's bounds at infinite degrees of freedom); the decision rules are the ones
+documented in rlrates.subtests.
+"""
+
+from __future__ import annotations
+
+import math
+
+import pandas as pd
+import pytest
+from scipy import stats
+
+import rlrates
+from rlrates.fitting import DiscountFit, Slope
+from rlrates.profiles import PROFILES
+from rlrates.subtests import coverage_test, floor_test, horizon_test, rate_test, short_discounts
+from rlrates.verdict import decide
+
+QUICK = PROFILES["quick"]
+ALPHA = QUICK.alpha / 3  # an n and H claim: the n-claim counts twice (rate and floor)
+
+
+def slope(estimate: float, se: float = 0.02) -> Slope:
+    return Slope(estimate, se, math.inf, 5)
+
+
+def discount(gamma: float, whole: float, upper: float | None = None, steepening: float = 0.0, se: float = 0.02) -> DiscountFit:
+    return DiscountFit(gamma, slope(whole, se), slope(whole if upper is None else upper, se), slope(steepening, se))
+
+
+def test_slope_bounds_use_the_normal_quantile_at_infinite_df() -> None:
+    s = slope(-0.5, 0.1)
+    z = stats.norm.ppf(1 - 0.01)
+    assert s.lower(0.01) == pytest.approx(-0.5 - z * 0.1, abs=1e-12)
+    assert s.upper(0.01) == pytest.approx(-0.5 + z * 0.1, abs=1e-12)
+
+
+def test_detectable_is_the_exponent_caught_with_95_percent_power() -> None:
+    # A true exponent d gives estimates ~ N(d, se); the lower bound clears the limit when
+    # estimate > limit + z_{1-alpha} se, which has probability 95% at d = limit + (z_{1-alpha} + z_0.95) se.
+    s = slope(-0.5, 0.05)
+    d = s.detectable(-0.35, 0.01)
+    assert d == pytest.approx(-0.35 + (stats.norm.ppf(0.99) + stats.norm.ppf(0.95)) * 0.05, abs=1e-12)
+    power = 1 - stats.norm.cdf(-0.35 + stats.norm.ppf(0.99) * 0.05, loc=d, scale=0.05)
+    assert power == pytest.approx(0.95, abs=1e-9)
+
+
+# ------------------------------------------------------------------------------------ rate
+
+
+def test_rate_test_passes_a_slope_well_inside_the_tolerance() -> None:
+    result = rate_test([discount(0.5, -0.5), discount(0.9, -0.52)], -0.5, QUICK, ALPHA, floor_fired=False)
+    assert (result.name, result.verdict, result.need) == ("rate", "ok", None)
+
+
+def test_rate_test_fires_on_a_slope_confidently_above_claim_plus_tolerance() -> None:
+    result = rate_test([discount(0.5, -0.1), discount(0.9, -0.12)], -0.5, QUICK, ALPHA, floor_fired=False)
+    assert result.verdict == "violated"
+    assert "rate too slow: the n-exponent is -0.11" in result.reason
+
+
+def test_rate_test_asks_for_larger_n_while_the_curve_still_steepens() -> None:
+    bending = [discount(0.5, -0.1, upper=-0.4, steepening=-0.4), discount(0.9, -0.1, upper=-0.4, steepening=-0.4)]
+    result = rate_test(bending, -0.5, QUICK, ALPHA, floor_fired=False)
+    assert (result.verdict, result.need) == ("unclear", "larger_n")
+    assert result.note.startswith("not yet asymptotic")
+    # ... but a floor that fired takes the excuse away
+    assert rate_test(bending, -0.5, QUICK, ALPHA, floor_fired=True).verdict == "violated"
+
+
+def test_rate_test_is_unclear_when_the_interval_straddles_the_limit() -> None:
+    result = rate_test([discount(0.5, -0.35, se=0.1)], -0.5, QUICK, ALPHA, floor_fired=False)
+    assert (result.verdict, result.need) == ("unclear", "replicates")
+
+
+# ------------------------------------------------------------------------------------ floor
+
+
+def test_floor_test_fires_at_the_discount_whose_upper_slope_flattens() -> None:
+    result = floor_test([discount(0.5, -0.5), discount(0.9, -0.4, upper=0.0)], -0.5, QUICK, ALPHA)
+    assert result.verdict == "violated"
+    assert "gamma=0.9" in result.reason and "gamma=0.5" not in result.reason
+
+
+def test_floor_test_is_ok_on_steady_slopes_and_unclear_on_wide_ones() -> None:
+    assert floor_test([discount(0.5, -0.5), discount(0.9, -0.5)], -0.5, QUICK, ALPHA).verdict == "ok"
+    assert floor_test([discount(0.5, -0.5, upper=-0.3, se=0.1)], -0.5, QUICK, ALPHA).verdict == "unclear"
+    assert floor_test([], -0.5, QUICK, ALPHA).verdict == "ok"
+
+
+# ------------------------------------------------------------------------------------ coverage
+
+
+def _slopes(*states: str) -> pd.DataFrame:
+    return pd.DataFrame({"gamma": [0.5, 0.75, 0.9][: len(states)], "state": list(states)})
+
+
+def test_coverage_test_names_the_discounts_without_enough_points() -> None:
+    result = coverage_test(_slopes("fitted", "too few asymptotic points", "fitted"))
+    assert (result.verdict, result.need) == ("unclear", "larger_n")
+    assert "gamma=0.75" in result.note
+    assert short_discounts(_slopes("fitted", "too few asymptotic points")) == [0.75]
+
+
+def test_coverage_test_notes_errors_that_vanish_everywhere() -> None:
+    result = coverage_test(_slopes("vanished", "vanished"))
+    assert result.verdict == "ok" and "faster than any power" in result.note
+    assert coverage_test(_slopes("fitted", "vanished")) .note == ""
+
+
+# ------------------------------------------------------------------------------------ horizon
+
+
+def test_horizon_test_fires_passes_and_waits() -> None:
+    assert horizon_test(slope(3.0), 2048, False, 2.0, QUICK, ALPHA).verdict == "violated"
+    ok = horizon_test(slope(1.5), 2048, False, 2.0, QUICK, ALPHA)
+    assert ok.verdict == "ok" and ok.note == "H-exponent fitted at n=2048"
+    assert horizon_test(slope(2.2, se=0.2), 2048, False, 2.0, QUICK, ALPHA).need == "replicates"
+    missing = horizon_test(None, None, False, 2.0, QUICK, ALPHA)
+    assert (missing.verdict, missing.need) == ("unclear", "larger_n")
+
+
+# ------------------------------------------------------------------------------------ decide
+
+
+def _summary(slope_n: float, horizon: float, zero: bool = False, size: float = 0.05) -> pd.DataFrame:
+    rows = []
+    for gamma in (0.5, 0.75, 0.9):
+        H = 1 / (1 - gamma)
+        for n in (128, 256, 512, 1024, 2048):
+            mean = 0.0 if zero else size * n**slope_n * H**horizon
+            rows.append({"gamma": gamma, "n": n, "replicates": 24, "mean": mean, "sd": 0.01 * mean, "H": H,
+                         "zero": zero, "log_mean": math.log(mean) if mean else -math.inf,
+                         "log_var": (0.01**2) / 24 if mean else 0.0})
+    return pd.DataFrame(rows)
+
+
+SCALE = {0.5: 2.0, 0.75: 4.0, 0.9: 10.0}
+
+
+def test_decide_combines_sub_tests_into_one_decision() -> None:
+    claim = rlrates.Claim(n=-0.5, horizon=2.0)
+    passing = decide(_summary(-0.5, 1.5), claim, QUICK, SCALE, window=5)
+    assert passing.status == "pass" and [s.name for s in passing.subtests] == ["floor", "rate", "coverage", "horizon"]
+    assert [fit.verdict for fit in passing.fits] == ["ok", "ok"]
+    assert passing.fits[0].exponent == pytest.approx(-0.5, abs=1e-9)  # an exact power law, fitted exactly
+    failing = decide(_summary(-0.1, 3.0, size=1e-4), claim, QUICK, SCALE, window=5)  # 1e-4 H^3 stays unsaturated
+    assert failing.status == "fail" and failing.fired == ("floor", "rate", "horizon")
+    assert [fit.verdict for fit in failing.fits] == ["violated", "violated"]
+
+
+def test_decide_marks_the_cells_that_entered_the_fits() -> None:
+    decision = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), QUICK, SCALE, window=5)
+    cells = decision.cells.set_index(["gamma", "n"])
+    # n < 8 H is pre-asymptotic: at gamma=0.9 (H=10) n=128 < 80 is not, so every cell is fitted here
+    assert cells["fitted"].all() and (cells["left_out"] == "").all()
+    small_window = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), QUICK, SCALE, window=4).cells
+    assert set(small_window.loc[~small_window["fitted"], "n"]) == {128}
+    assert set(small_window.loc[~small_window["fitted"], "left_out"]) == {"below the fit window"}
+
+
+def test_decide_on_exact_errors_passes_without_fitting() -> None:
+    decision = decide(_summary(-0.5, 1.0, zero=True), rlrates.Claim(n=-0.5, horizon=1.0), QUICK, SCALE, window=5)
+    assert decision.status == "pass" and decision.exact
+    assert [fit.verdict for fit in decision.fits] == ["exact", "exact"]
+    assert all(math.isnan(fit.exponent) for fit in decision.fits)
