@@ -1,20 +1,26 @@
 """The session index of a report directory: one row per check, as Markdown and as a LaTeX tabular.
 
-Pure text functions of the parsed ``check.json`` records (and the folders they
-sit in, relative to the index). No timestamps, no machine-dependent text and
-fixed float formats, so rebuilding an index from the same records gives the same
-bytes.
+The text is a pure function of the parsed ``check.json`` records (and the
+folders they sit in, relative to the index). No timestamps, no machine-dependent
+text and fixed float formats, so rebuilding an index from the same records gives
+the same bytes. :func:`write_index` reads every record under a directory and
+writes ``index.md`` and ``index.tex`` next to the check folders.
 """
 
 from __future__ import annotations
 
 import re
 from collections import Counter
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
+from pathlib import Path
 from typing import Any
 from urllib.parse import quote
 
-__all__ = ["index_markdown", "index_latex", "latex_escape"]
+from ..vocabulary import STATUSES, Factor
+from .files import FIGURE_FILES, INDEX_FILES, RECORD_FILE, find_checks, write_text
+from .schema import read_record, record_fit
+
+__all__ = ["index_markdown", "index_latex", "latex_escape", "index_entries", "write_index_files", "write_index"]
 
 Entry = tuple[str, Mapping[str, Any]]  # (folder relative to the index, parsed check.json)
 
@@ -33,16 +39,16 @@ def latex_escape(text: str) -> str:
     return _LATEX_PATTERN.sub(lambda match: _LATEX_SPECIAL[match.group()], text)
 
 
-def _numbers(record: Mapping[str, Any], factor: str) -> tuple[float, float, float] | None | str:
+def _numbers(record: Mapping[str, Any], factor: Factor) -> tuple[float, float, float] | None | str:
     """(exponent, low, high); ``None`` when not claimed; a reason when claimed but not measured."""
     if record["claim"][factor] is None:
         return None
-    fit = next((fit for fit in record["fits"] if fit["factor"] == factor), None)
+    fit = record_fit(record, factor)
     if fit is None:
         return "estimator error" if record["status"] == "error" else "no fit"
-    if fit["exponent"] is None or fit["low"] is None or fit["high"] is None:
-        return str(fit["verdict"])
-    return float(fit["exponent"]), float(fit["low"]), float(fit["high"])
+    if not fit.measured:
+        return str(fit.verdict)
+    return fit.exponent, fit.low, fit.high
 
 
 def _verdict(record: Mapping[str, Any]) -> str:
@@ -60,8 +66,28 @@ def _fixed(value: float) -> str:
 
 def _tally(entries: Sequence[Entry]) -> str:
     counts = Counter(str(record["status"]) for _, record in entries)
-    parts = [f"{counts[s]} {s}" for s in ("pass", "fail", "inconclusive", "error") if counts[s]]
+    parts = [f"{counts[s]} {s}" for s in STATUSES if counts[s]]
     return f"{len(entries)} check(s): {', '.join(parts)}"
+
+
+# Per dialect: not claimed, exact, not fitted (with the reason), measured (exponent, low, high).
+_EXPONENT_WORDS = {
+    "markdown": ("not claimed", "exact (zero error)", "not fitted ({})", "{} [{}, {}]"),
+    "latex": ("---", "exact", "n/a ({})", "${}$ [${}$, ${}$]"),
+}
+
+
+def _exponent_cell(record: Mapping[str, Any], factor: Factor, dialect: str) -> str:
+    """The exponent column of one row: the fitted exponent and its bounds, or why there is none."""
+    not_claimed, exact, not_fitted, measured = _EXPONENT_WORDS[dialect]
+    numbers = _numbers(record, factor)
+    if numbers is None:
+        return not_claimed
+    if numbers == "exact":
+        return exact
+    if isinstance(numbers, str):
+        return not_fitted.format(latex_escape(numbers) if dialect == "latex" else numbers)
+    return measured.format(*map(_fixed, numbers))
 
 
 # --------------------------------------------------------------------------- Markdown
@@ -80,18 +106,6 @@ def _md_code(text: str) -> str:
     return f"{fence}{pad}{body}{pad}{fence}"
 
 
-def _md_exponent(record: Mapping[str, Any], factor: str) -> str:
-    numbers = _numbers(record, factor)
-    if numbers is None:
-        return "not claimed"
-    if numbers == "exact":
-        return "exact (zero error)"
-    if isinstance(numbers, str):
-        return f"not fitted ({numbers})"
-    exponent, low, high = numbers
-    return f"{_fixed(exponent)} [{_fixed(low)}, {_fixed(high)}]"
-
-
 def _md_claim(claim: Mapping[str, Any]) -> str:
     parts = [f"{symbol}^{claim[key]:g}" for key, symbol in (("n", "n"), ("horizon", "H")) if claim[key] is not None]
     return " ".join(parts)
@@ -107,15 +121,16 @@ def index_markdown(entries: Sequence[Entry]) -> str:
         "| test | target | MDP | n-exponent | H-exponent | claim | verdict | files |",
         "|---|---|---|---|---|---|---|---|",
     ]
+    png, pdf = FIGURE_FILES
     for folder, record in entries:
         link = quote(folder)
-        files = f"[figure]({link}/figure.png) · [pdf]({link}/figure.pdf) · [data]({link}/check.json)"
+        files = f"[figure]({link}/{png}) · [pdf]({link}/{pdf}) · [data]({link}/{RECORD_FILE})"
         cells = [
             _md_code(str(record["test_id"])),
             _md_cell(str(record["target"])),
             _md_cell(str(record["mdp"]["name"])),
-            _md_exponent(record, "n"),
-            _md_exponent(record, "horizon"),
+            _exponent_cell(record, "n", "markdown"),
+            _exponent_cell(record, "horizon", "markdown"),
             _md_cell(_md_claim(record["claim"])),
             _md_cell(_verdict(record)),
             files,
@@ -125,18 +140,6 @@ def index_markdown(entries: Sequence[Entry]) -> str:
 
 
 # --------------------------------------------------------------------------- LaTeX
-
-
-def _tex_exponent(record: Mapping[str, Any], factor: str) -> str:
-    numbers = _numbers(record, factor)
-    if numbers is None:
-        return "---"
-    if numbers == "exact":
-        return "exact"
-    if isinstance(numbers, str):
-        return f"n/a ({latex_escape(numbers)})"
-    exponent, low, high = numbers
-    return f"${_fixed(exponent)}$ [${_fixed(low)}$, ${_fixed(high)}$]"
 
 
 def _tex_claim(claim: Mapping[str, Any]) -> str:
@@ -160,11 +163,39 @@ def index_latex(entries: Sequence[Entry]) -> str:
             r"\texttt{" + latex_escape(str(record["test_id"])) + "}",
             _LATEX_TARGETS.get(target, latex_escape(target)),
             latex_escape(str(record["mdp"]["name"])),
-            _tex_exponent(record, "n"),
-            _tex_exponent(record, "horizon"),
+            _exponent_cell(record, "n", "latex"),
+            _exponent_cell(record, "horizon", "latex"),
             _tex_claim(record["claim"]),
             latex_escape(_verdict(record)),
         ]
         lines.append(" & ".join(cells) + r" \\")
     lines += [r"\bottomrule", r"\end{tabular}"]
     return "\n".join(lines) + "\n"
+
+
+# --------------------------------------------------------------------------- files
+
+
+def index_entries(directory: Path, records: Iterable[tuple[Path, Mapping[str, Any]]]) -> list[Entry]:
+    """(folder relative to the index, record) pairs, sorted by test id (then folder) so the index is stable."""
+    entries = [(folder.relative_to(directory).as_posix(), record) for folder, record in records]
+    return sorted(entries, key=lambda entry: (str(entry[1]["test_id"]), entry[0]))
+
+
+def write_index_files(directory: Path, entries: Sequence[Entry]) -> list[Path]:
+    """Write ``index.md`` and ``index.tex`` of ``entries`` into ``directory``."""
+    markdown, latex = INDEX_FILES
+    return [write_text(directory / markdown, index_markdown(entries)),
+            write_text(directory / latex, index_latex(entries))]
+
+
+def write_index(directory: Path | str) -> list[Path]:
+    """Write ``index.md`` and ``index.tex`` from every ``check.json`` under ``directory``.
+
+    Returns the files written; ``[]`` (and nothing written) when there is no check.
+    """
+    root = Path(directory)
+    folders = find_checks(root)
+    if not folders:
+        return []
+    return write_index_files(root, index_entries(root, ((f, read_record(f / RECORD_FILE)) for f in folders)))

@@ -1,0 +1,242 @@
+"""``check.json``: the content of a check's record, built from a result and validated when read back.
+
+Top-level keys (schema ``rlrates-check/2``)::
+
+    schema        "rlrates-check/2"
+    test_id       the pytest node id (or any id the caller gives)
+    status        "pass" | "fail" | "inconclusive" | "error"
+    fired         sub-tests that fired: "rate", "floor", "horizon"
+    reasons       why the verdict, one sentence per item
+    notes         remarks (cells left out of the fits, where the H-exponent was fitted, ...)
+    claim         {n, horizon, text}: the claimed exponents (null when not claimed)
+    target, norm  what was estimated and how its error was measured
+    fits          one Fit.to_dict() per claimed factor: factor, exponent, se, low, high,
+                  low_level, high_level, claimed, tolerance, detectable, verdict
+    bounds        what low and high mean (one-sided bounds at the levels low_level, high_level)
+    slopes        the per-discount n-slopes: gamma, H, points, state, and for fitted
+                  discounts n_min, n_max, slope, slope_se, upper_slope, upper_se
+    cells         one entry per (gamma, n) cell of the last decision: gamma, n,
+                  replicates, mean, usable (asymptotic and not saturated), zero (error
+                  vanished), fitted (entered an n-fit), left_out (why not; "" when fitted)
+    profile       every field of the Profile (dataclasses.asdict)
+    seed          the master seed
+    streams       how every replicate's random stream is built: context, key layout,
+                  per-discount spawn-key prefixes, replicate blocks
+    mdp           {name, metadata, fingerprints {repr(gamma): hex}, scales {repr(gamma): error scale}}
+    run           {started, finished (UTC ISO 8601), elapsed_seconds, estimator_seconds,
+                  passes, estimator_calls}
+    environment   {versions {rlrates, python, numpy, scipy, pandas, pytest, matplotlib},
+                  platform, python, implementation, machine, git_commit}
+    failure       null, or {gamma, n, replicate, kind, message, traceback, description}
+    reproducer    the call that reproduces the check
+    message       the check's full explanation
+    data          {errors: "errors.csv", rows, columns, sha256 of the CSV text}
+    extra         whatever the caller adds (for example the pytest-xdist worker)
+
+:func:`check_record` builds the record; :func:`read_record` reads one back and
+checks every key the report code relies on, so a hand-edited file is refused
+with the file and the key named; :func:`record_fit` gives a record's fit of one
+factor back as a :class:`rlrates.result.Fit`. Pure: no pytest import.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+from collections.abc import Mapping
+from datetime import datetime, timedelta, timezone
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from ..result import FIT_KEYS, Fit
+from ..vocabulary import ERROR_COLUMNS, STATUSES, Factor
+from .files import ERRORS_FILE, ReportError, read_text
+from .provenance import environment, frame_records, json_safe, streams
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
+    from ..result import CheckResult
+
+__all__ = ["SCHEMA", "CELL_KEYS", "check_record", "record_text", "read_record", "record_fit"]
+
+#: Version tag of ``check.json``; readers refuse other versions.
+SCHEMA = "rlrates-check/2"
+
+_NUMBER = (int, float)
+_OPTIONAL_NUMBER = (int, float, type(None))
+
+#: The keys of one entry of ``cells``, with the JSON types each may take.
+CELL_KEYS: tuple[tuple[str, type | tuple[type, ...]], ...] = (
+    ("gamma", _NUMBER), ("n", int), ("replicates", int), ("mean", _OPTIONAL_NUMBER),
+    ("usable", bool), ("zero", bool), ("fitted", bool), ("left_out", str),
+)
+
+_REQUIRED: tuple[tuple[str, type | tuple[type, ...]], ...] = (
+    ("schema", str), ("test_id", str), ("status", str), ("target", str), ("norm", str),
+    ("claim", dict), ("claim.n", _OPTIONAL_NUMBER), ("claim.horizon", _OPTIONAL_NUMBER),
+    ("fits", list), ("slopes", list), ("cells", list), ("fired", list), ("mdp", dict), ("mdp.name", str),
+    ("profile", dict), ("profile.name", str), ("seed", int), ("data", dict), ("data.sha256", str),
+)
+
+
+# --------------------------------------------------------------------------- building
+
+
+def _cells(summary: "pd.DataFrame") -> list[dict[str, Any]]:
+    """One entry per (gamma, n) cell of the decision's summary (``[]`` when no pass was decided)."""
+    if not len(summary):
+        return []
+    return frame_records(summary.loc[:, [key for key, _ in CELL_KEYS]])
+
+
+def _failure(result: "CheckResult") -> dict[str, Any] | None:
+    failure = result.failure
+    if failure is None:
+        return None
+    return {
+        "gamma": float(failure.gamma), "n": int(failure.n), "replicate": int(failure.replicate),
+        "kind": failure.kind, "message": failure.message, "traceback": failure.traceback,
+        "description": failure.describe(),
+    }
+
+
+def _by_discount(values: Mapping[float, Any]) -> dict[str, Any]:
+    return {repr(float(gamma)): json_safe(value) for gamma, value in sorted(values.items())}
+
+
+def _run(result: "CheckResult", rows: int) -> dict[str, Any]:
+    finished = datetime.now(timezone.utc)
+    started = finished - timedelta(seconds=float(result.run.elapsed))
+    return {
+        "started": started.isoformat(timespec="microseconds"),
+        "finished": finished.isoformat(timespec="microseconds"),
+        "elapsed_seconds": float(result.run.elapsed),
+        "estimator_seconds": float(result.run.estimator_seconds),
+        "passes": int(result.run.passes),
+        "estimator_calls": rows,
+    }
+
+
+def check_record(result: "CheckResult", test_id: str, errors_sha256: str, rows: int,
+                 extra: Mapping[str, Any] | None = None) -> dict[str, Any]:
+    """The content of ``check.json`` for one check (see the module docstring for the keys)."""
+    return {
+        "schema": SCHEMA,
+        "test_id": test_id,
+        "status": result.status,
+        "fired": list(result.fired),
+        "reasons": list(result.reasons),
+        "notes": list(result.notes),
+        "claim": {"n": result.claim.n, "horizon": result.claim.horizon, "text": result.claim.describe()},
+        "target": result.target,
+        "norm": result.norm,
+        "fits": [fit.to_dict() for fit in result.factors],
+        "bounds": {
+            "low": "fire-side one-sided bound at level low_level = 1 - alpha / (number of sub-tests)",
+            "high": "pass-side one-sided bound at level high_level = 1 - profile.pass_alpha",
+        },
+        "slopes": frame_records(result.evidence.slopes),
+        "cells": _cells(result.evidence.summary),
+        "profile": json_safe(dataclasses.asdict(result.profile)),
+        "seed": int(result.seed),
+        "streams": streams(result),
+        "mdp": {
+            "name": result.mdp.name,
+            "metadata": json_safe(result.mdp.metadata),
+            "fingerprints": _by_discount(result.mdp.fingerprints),
+            "scales": _by_discount(result.mdp.scales),
+        },
+        "run": _run(result, rows),
+        "environment": environment(),
+        "failure": _failure(result),
+        "reproducer": result.run.reproducer,
+        "message": result.message,
+        "data": {"errors": ERRORS_FILE, "rows": rows, "columns": list(ERROR_COLUMNS), "sha256": errors_sha256},
+        "extra": json_safe(dict(extra or {})),
+    }
+
+
+def record_text(record: Mapping[str, Any]) -> str:
+    """The text of ``check.json``: indented, strict JSON (no NaN), UTF-8 kept as is."""
+    return json.dumps(record, indent=2, allow_nan=False, ensure_ascii=False) + "\n"
+
+
+# --------------------------------------------------------------------------- validating
+
+
+def _lookup(record: Mapping[str, Any], dotted: str) -> tuple[bool, Any]:
+    value: Any = record
+    for part in dotted.split("."):
+        if not isinstance(value, Mapping) or part not in value:
+            return False, None
+        value = value[part]
+    return True, value
+
+
+def _has_type(value: Any, kinds: type | tuple[type, ...]) -> bool:
+    """``isinstance``, except that a JSON true/false is not a number."""
+    allowed = kinds if isinstance(kinds, tuple) else (kinds,)
+    if isinstance(value, bool):
+        return bool in allowed
+    return isinstance(value, allowed)
+
+
+def _check_keys(path: Path, record: Mapping[str, Any]) -> None:
+    for key, kinds in _REQUIRED:
+        found, value = _lookup(record, key)
+        if not found:
+            raise ReportError(f"{path}: missing key {key!r}")
+        if not _has_type(value, kinds):
+            raise ReportError(f"{path}: key {key!r} has the wrong type ({type(value).__name__}: {value!r})")
+    if record["schema"] != SCHEMA:
+        raise ReportError(f"{path}: schema {record['schema']!r} is not {SCHEMA!r}; rewrite it with this version of rlrates")
+    if record["status"] not in STATUSES:
+        raise ReportError(f"{path}: status {record['status']!r} is not one of {', '.join(STATUSES)}")
+
+
+def _entries(path: Path, record: Mapping[str, Any], key: str, needed: tuple[str, ...]) -> list[Mapping[str, Any]]:
+    """The objects of the list ``record[key]``, each holding the keys ``needed``."""
+    entries = record[key]
+    for i, entry in enumerate(entries):
+        if not isinstance(entry, dict):
+            raise ReportError(f"{path}: {key}[{i}] must be an object, found {type(entry).__name__}")
+        for name in needed:
+            if name not in entry:
+                raise ReportError(f"{path}: missing key '{key}[{i}].{name}'")
+    return list(entries)
+
+
+def _check_entries(path: Path, record: Mapping[str, Any]) -> None:
+    """Every fit reads back as a :class:`Fit`; every cell and slope has its keys, of the right types."""
+    for i, fit in enumerate(_entries(path, record, "fits", FIT_KEYS)):
+        try:
+            Fit.from_dict(fit)
+        except ValueError as exc:
+            raise ReportError(f"{path}: fits[{i}]: {exc}") from None
+    for i, cell in enumerate(_entries(path, record, "cells", tuple(key for key, _ in CELL_KEYS))):
+        for name, kinds in CELL_KEYS:
+            if not _has_type(cell[name], kinds):
+                raise ReportError(f"{path}: cells[{i}].{name} has the wrong type ({cell[name]!r})")
+    for i, slope in enumerate(_entries(path, record, "slopes", ("gamma", "state"))):
+        if not _has_type(slope["gamma"], _NUMBER) or not _has_type(slope.get("slope"), _OPTIONAL_NUMBER):
+            raise ReportError(f"{path}: slopes[{i}] needs a number gamma and a number (or null) slope")
+
+
+def read_record(path: Path) -> dict[str, Any]:
+    """Read and validate one ``check.json``; a :class:`ReportError` names the file and the key at fault."""
+    text = read_text(path)
+    try:
+        record = json.loads(text)
+    except json.JSONDecodeError as exc:
+        raise ReportError(f"{path}: not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})") from None
+    if not isinstance(record, dict):
+        raise ReportError(f"{path}: expected a JSON object at the top level, found {type(record).__name__}")
+    _check_keys(path, record)
+    _check_entries(path, record)
+    return record
+
+
+def record_fit(record: Mapping[str, Any], factor: Factor) -> Fit | None:
+    """The fit of ``factor`` in a (validated) record, or ``None`` when it has none."""
+    return next((Fit.from_dict(fit) for fit in record["fits"] if fit["factor"] == factor), None)

@@ -1,0 +1,73 @@
+"""``errors.csv``: a check's tidy error table, written repr-exact and validated when read back.
+
+One row per (gamma, n, replicate) with the columns
+:data:`rlrates.vocabulary.ERROR_COLUMNS`, sorted by gamma, n and replicate.
+Floats are written with 17 significant digits, so reading the file back gives
+the very same numbers. Pure: no pytest import.
+"""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..vocabulary import ERROR_COLUMNS
+from .files import ReportError, read_text, text_digest
+
+__all__ = ["errors_table", "csv_text", "read_errors"]
+
+_INTEGER_COLUMNS = ("n", "replicate")
+
+
+def errors_table(table: pd.DataFrame) -> pd.DataFrame:
+    """The columns of ``errors.csv`` from a check's table, sorted by gamma, n and replicate."""
+    missing = [c for c in ERROR_COLUMNS if c not in table.columns]
+    if missing:
+        raise ValueError(f"the check's table lacks column(s) {', '.join(missing)}; expected {', '.join(ERROR_COLUMNS)}")
+    return table.loc[:, list(ERROR_COLUMNS)].sort_values(["gamma", "n", "replicate"], ignore_index=True)
+
+
+def csv_text(table: pd.DataFrame) -> str:
+    """The text of ``errors.csv``: repr-exact floats, ``\\n`` line ends, no index."""
+    return str(table.to_csv(index=False, float_format="%.17g", lineterminator="\n"))
+
+
+def read_errors(path: Path, record_path: Path, expected_sha256: str) -> pd.DataFrame:
+    """Read and validate ``errors.csv``: every column present, every value a finite number, the digest unchanged."""
+    text = read_text(path)
+    try:
+        frame = pd.read_csv(io.StringIO(text), dtype=str, keep_default_na=False)
+    except (pd.errors.ParserError, pd.errors.EmptyDataError) as exc:
+        raise ReportError(f"{path}: not a readable CSV table ({str(exc).strip()})") from None
+    missing = [c for c in ERROR_COLUMNS if c not in frame.columns]
+    if missing:
+        raise ReportError(
+            f"{path}: missing column(s) {', '.join(missing)}; expected {', '.join(ERROR_COLUMNS)}, "
+            f"found {', '.join(map(str, frame.columns)) or 'none'}"
+        )
+    table = pd.DataFrame(index=frame.index)
+    for column in ERROR_COLUMNS:
+        table[column] = _numbers(path, frame, column)
+    if text_digest(text) != expected_sha256:
+        raise ReportError(
+            f"{path}: contents differ from the sha256 recorded in {record_path} (edited after the run?); "
+            "rerun the check to regenerate both"
+        )
+    return table
+
+
+def _numbers(path: Path, frame: pd.DataFrame, column: str) -> pd.Series:
+    """One column as finite numbers (integers for n and replicate), or a ReportError naming the first bad line."""
+    values = pd.to_numeric(frame[column], errors="coerce")
+    integer = column in _INTEGER_COLUMNS
+    bad = values.isna().to_numpy() | ~np.isfinite(values.to_numpy(float))
+    if integer:
+        bad |= values.fillna(0).to_numpy(float) % 1 != 0
+    if bad.any():
+        row = int(np.argmax(bad))
+        raise ReportError(f"{path}: line {row + 2}, column {column!r}: {frame[column].iloc[row]!r} is not a finite number"
+                          + (" (an integer)" if integer else ""))
+    return values.astype(np.int64 if integer else float)

@@ -1,0 +1,183 @@
+"""Tests of the report figures: drawn from the check's record and table, never refitted.
+
+Real checks come from tests/report_checks.py; the hand-made cases are power laws
+(error = 3 n^-1/2 H^3/2, two equal replicates per cell), whose means are exact.
+"""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pytest
+from matplotlib.colors import to_hex
+from matplotlib.lines import Line2D
+from matplotlib.text import Text
+from report_checks import FAIL_ID, PASS_ID, failing, garnet, passing  # noqa: F401 (fixtures)
+
+import rlrates
+from rlrates import CheckResult, RatesWarning, reference
+from rlrates.report import folder_name, read_check, rebuild, write_check
+from rlrates.report.figure_data import NOT_DECIDED, cell_points, discount_slopes, horizon_points
+from rlrates.report.figures import build_figure
+from rlrates.result import Fit
+
+PRE_ASYMPTOTIC = "pre-asymptotic (n < 8 H)"
+
+
+def power_law_table() -> pd.DataFrame:
+    n = np.repeat([64, 128, 256, 512], 2)
+    return pd.concat([
+        pd.DataFrame({"gamma": g, "H": 1 / (1 - g), "n": n, "replicate": np.tile([0, 1], 4),
+                      "error": 3.0 * n ** -0.5 * (1 / (1 - g)) ** 1.5, "seconds": 0.0})
+        for g in (0.5, 0.9)
+    ], ignore_index=True)
+
+
+def mark(gamma: float, n: int, fitted: bool = True, left_out: str = "", usable: bool = True) -> dict[str, Any]:
+    mean = 3.0 * n ** -0.5 * (1 / (1 - gamma)) ** 1.5
+    return {"gamma": gamma, "n": n, "replicates": 2, "mean": mean, "usable": usable, "zero": False,
+            "fitted": fitted, "left_out": left_out}
+
+
+def power_law_record(slopes: tuple[float, float] = (-0.25, -0.75)) -> dict[str, Any]:
+    """A record whose n-slopes deliberately differ from the data's -0.5, and whose (0.9, 64) cell was left out."""
+    cells = [mark(g, n) for g in (0.5, 0.9) for n in (64, 128, 256, 512)]
+    cells[4] = mark(0.9, 64, fitted=False, left_out=PRE_ASYMPTOTIC, usable=False)
+    fit = Fit("n", exponent=-0.5, se=0.01, low=-0.52, high=-0.48, low_level=0.99, high_level=0.95, claimed=-0.5,
+              tolerance=0.15, detectable=-0.3, verdict="ok")
+    return {
+        "status": "pass", "target": "q_pi", "norm": "sup", "claim": {"n": -0.5, "horizon": None},
+        "fits": [fit.to_dict()], "failure": None, "cells": cells,
+        "slopes": [{"gamma": 0.5, "state": "fitted", "slope": slopes[0]}, {"gamma": 0.9, "state": "fitted", "slope": slopes[1]}],
+    }
+
+
+def open_points(figure: Any) -> set[tuple[float, float]]:
+    """The (n, mean) of the open markers of panel (a)."""
+    return {(float(x), float(y)) for line in figure.axes[0].get_lines()
+            if line.get_linestyle() == "None" and to_hex(line.get_markerfacecolor()) == "#ffffff"
+            for x, y in zip(line.get_xdata(), line.get_ydata())}
+
+
+def legend_texts(figure: Any) -> list[str]:
+    (legend,) = figure.legends
+    return [t.get_text() for t in legend.get_texts()]
+
+
+# --------------------------------------------------------------------------- the cells a figure shows
+
+
+def test_cells_take_their_means_from_the_table_and_their_marks_from_the_record() -> None:
+    record = power_law_record()
+    record["cells"] = record["cells"][:-1]  # (0.9, 512) is not in the record: no verdict covers it
+    cells = cell_points(power_law_table(), record)
+    np.testing.assert_allclose(cells["mean"], 3.0 * cells["n"] ** -0.5 * cells["H"] ** 1.5, rtol=1e-15)
+    assert (cells["se"] == 0).all() and (cells["replicates"] == 2).all()
+    by_cell = cells.set_index(["gamma", "n"])
+    assert by_cell.loc[(0.9, 64), "left_out"] == PRE_ASYMPTOTIC and not by_cell.loc[(0.9, 64), "fitted"]
+    assert by_cell.loc[(0.9, 512), "left_out"] == NOT_DECIDED and not by_cell.loc[(0.9, 512), "fitted"]
+    assert int(cells["fitted"].sum()) == 6
+    assert discount_slopes(record) == {0.5: -0.25, 0.9: -0.75}
+    record["slopes"][1] = {"gamma": 0.9, "state": "too few asymptotic points", "slope": None}
+    assert discount_slopes(record) == {0.5: -0.25, 0.9: None}
+
+
+def test_horizon_cells_are_those_of_the_checks_h_fit() -> None:
+    record = power_law_record()
+    for cell in record["cells"]:
+        if cell["n"] == 512 and cell["gamma"] == 0.9:
+            cell["usable"] = False  # saturated, say: the H-fit moves to n = 256
+    at, fitted = horizon_points(cell_points(power_law_table(), record))
+    assert fitted and at["n"].unique().tolist() == [256] and at["gamma"].tolist() == [0.5, 0.9]
+    for cell in record["cells"]:
+        cell["usable"] = cell["gamma"] == 0.5  # no n is usable at both discounts: the largest common n, open
+    at, fitted = horizon_points(cell_points(power_law_table(), record))
+    assert not fitted and at["n"].unique().tolist() == [512]
+    table = power_law_table()
+    at, fitted = horizon_points(cell_points(table[~((table["gamma"] == 0.9) & (table["n"] == 512))], record))
+    assert not fitted and at["n"].unique().tolist() == [256]  # the largest n every discount reached
+
+
+def test_legend_slopes_and_open_markers_follow_the_record() -> None:
+    """The record's slopes (-0.25, -0.75) are shown, not the data's -0.5; the left-out cell is drawn open."""
+    figure = build_figure(power_law_table(), power_law_record())
+    assert figure is not None
+    labels = legend_texts(figure)
+    assert "$\\gamma$=0.5, H=2: n-slope \u22120.25" in labels and "$\\gamma$=0.9, H=10: n-slope \u22120.75" in labels
+    assert f"(a) open: {PRE_ASYMPTOTIC}" in labels
+    ((n, mean),) = open_points(figure)
+    assert n == 64 and mean == pytest.approx(3.0 * 64 ** -0.5 * 10 ** 1.5, rel=1e-12)
+
+
+# --------------------------------------------------------------------------- figures of real checks
+
+
+@pytest.fixture(scope="module")
+def saved_failing(tmp_path_factory: pytest.TempPathFactory, failing: CheckResult) -> Path:
+    return write_check(failing, tmp_path_factory.mktemp("report"), FAIL_ID)
+
+
+def test_figure_is_readable(saved_failing: Path) -> None:
+    saved = read_check(saved_failing)
+    figure = build_figure(saved.errors, saved.record)
+    assert figure is not None
+    figure.canvas.draw()
+    renderer = figure.canvas.get_renderer()  # type: ignore[attr-defined]
+    assert tuple(figure.get_size_inches()) == (7.0, 2.8)
+    texts = [t for t in figure.findobj(Text) if isinstance(t, Text) and t.get_text() and t.get_visible()]
+    assert len(texts) > 20 and min(float(t.get_fontsize()) for t in texts) >= 8
+    (legend,) = figure.legends
+    labels = legend_texts(figure)
+    slopes = [(entry["gamma"], entry["slope"]) for entry in saved.record["slopes"]]
+    assert len(slopes) == 3
+    for gamma, slope in slopes:
+        assert any(f"={gamma:g}," in label and f"{abs(slope):.2f}" in label for label in labels)
+    assert any("claimed $n^{-0.5}$" in label for label in labels)
+    assert any("claimed $H^{2}$" in label for label in labels)
+    (h_fit,) = [fit for fit in saved.record["fits"] if fit["factor"] == "horizon"]
+    assert "(b) fitted H-exponent " + f"{h_fit['exponent']:+.2f}".replace("-", "\u2212") in labels
+    discounts = [h for h in legend.legend_handles if isinstance(h, Line2D) and h.get_marker() not in ("None", "")
+                 and h.get_linestyle() != "None"]
+    assert len(discounts) == len({h.get_color() for h in discounts}) == len({h.get_marker() for h in discounts}) == 3
+    boxes = [ax.get_tightbbox(renderer) for ax in figure.axes] + [legend.get_window_extent(renderer)]
+    for i, first in enumerate(boxes):
+        for second in boxes[i + 1:]:
+            assert first is not None and second is not None and not first.overlaps(second), "panels and legend overlap"
+    assert all(box is not None and box.x0 >= -1 and box.x1 <= figure.bbox.width + 1 for box in boxes), "cut off"
+
+
+def test_left_out_cells_of_a_real_check_are_drawn_open(garnet: rlrates.TabularMDP, tmp_path: Path) -> None:
+    """A grid that starts below 8 H: the check leaves those cells out, and the figure draws exactly them open."""
+    with pytest.warns(RatesWarning, match="pre-asymptotic"):
+        result = rlrates.check(reference.plugin_q_pi, garnet, rlrates.Claim(n=-0.5, horizon=2.0), seed=3,
+                               n_grid=(32, 64, 128, 256, 512, 1024), context=PASS_ID)
+    saved = read_check(write_check(result, tmp_path, PASS_ID, figures=False))
+    left_out = {(float(c["n"]), c["mean"]) for c in saved.record["cells"] if not c["fitted"]}
+    assert {c["left_out"] for c in saved.record["cells"] if not c["fitted"]} >= {PRE_ASYMPTOTIC}
+    figure = build_figure(saved.errors, saved.record)
+    assert open_points(figure) == left_out
+    assert f"(a) open: {PRE_ASYMPTOTIC}" in legend_texts(figure)
+
+
+def test_write_check_draws_from_memory_the_same_bytes_as_rebuild(monkeypatch: pytest.MonkeyPatch, tmp_path: Path,
+                                                                 passing: CheckResult) -> None:
+    """write_check does not read back the files it wrote; rebuilding from them gives the very same figures."""
+    def no_reading(*args: Any) -> None:
+        raise AssertionError("write_check read a saved file back")
+
+    from rlrates.report import checks
+
+    for name in ("read_check", "read_record", "read_errors"):
+        monkeypatch.setattr(checks, name, no_reading)
+    folder = write_check(passing, tmp_path / "first", PASS_ID)
+    monkeypatch.undo()
+    drawn = {name: (folder / name).read_bytes() for name in ("figure.png", "figure.pdf")}
+    copy = Path(shutil.copytree(folder.parent, tmp_path / "second"))
+    for name in drawn:
+        (copy / folder_name(PASS_ID) / name).unlink()
+    rebuild(copy)
+    assert {name: (copy / folder_name(PASS_ID) / name).read_bytes() for name in drawn} == drawn

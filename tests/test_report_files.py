@@ -1,0 +1,275 @@
+"""Tests of check folders: the raw table, check.json and its provenance, atomic writes, corrupt folders.
+
+Check results and report directories come from real quick-profile checks
+(tests/report_checks.py), computed once per module; every test that edits files
+works on its own folder. The index, rebuilding and the command line are tested
+in test_report_index.py, the figures in test_report_figures.py.
+"""
+
+from __future__ import annotations
+
+import importlib
+import json
+import os
+import re
+import subprocess
+import sys
+from datetime import datetime, timezone
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pytest
+from report_checks import (  # noqa: F401 (fixtures)
+    ERROR_ID, FAIL_ID, PASS_ID, erroring, failing, garnet, load, passing, session, tables_only, truncate_json,
+)
+
+import rlrates
+from rlrates import CheckResult, reference, report
+from rlrates.report import ReportError, ReportWarning, folder_name, read_check, rebuild, write_check
+from rlrates.result import FIT_KEYS, Fit
+from rlrates.sampling import draw_block, mdp_kernel, stream_context
+from rlrates.targets import estimate_error, solve_truth
+
+TABLE_COLUMNS = ["gamma", "H", "n", "replicate", "error", "seconds"]
+REPO = Path(__file__).resolve().parents[1]
+
+
+# --------------------------------------------------------------------------- folder contents
+
+
+def test_folder_names_are_safe_readable_and_distinct() -> None:
+    name = folder_name("tests/test_a.py::test_b[x|y z/..]")
+    assert re.fullmatch(r"[A-Za-z0-9._=+-]+", name)
+    assert name.startswith("tests-test_a.py-test_b-x-y-z")
+    assert re.search(r"-[0-9a-f]{8}$", name)
+    # the same slug from different ids still gives different folders
+    assert folder_name("tests/a::b") != folder_name("tests/a-b")
+    assert len(folder_name("t" * 500)) <= 69
+    assert folder_name("") .startswith("check-")
+
+
+def test_check_folder_holds_tables_and_figures(session: Path) -> None:
+    folder = session / folder_name(PASS_ID)
+    assert sorted(p.name for p in folder.iterdir()) == ["check.json", "errors.csv", "figure.pdf", "figure.png"]
+    assert (folder / "figure.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert (folder / "figure.pdf").read_bytes()[:5] == b"%PDF-"
+
+
+def test_errors_csv_is_the_raw_table_repr_exact(session: Path, passing: CheckResult) -> None:
+    saved = pd.read_csv(session / folder_name(PASS_ID) / "errors.csv")
+    assert list(saved.columns) == TABLE_COLUMNS
+    expected = passing.table[TABLE_COLUMNS].sort_values(["gamma", "n", "replicate"], ignore_index=True)
+    pd.testing.assert_frame_equal(saved, expected, check_exact=True, check_dtype=False)
+    assert (saved["error"].to_numpy() == expected["error"].to_numpy()).all()
+
+
+def test_check_json_matches_the_result(session: Path, passing: CheckResult) -> None:
+    record = load(session / folder_name(PASS_ID))
+    assert record["schema"] == report.SCHEMA
+    assert record["test_id"] == PASS_ID
+    assert (record["status"], record["target"], record["norm"]) == ("pass", "q_pi", "sup")
+    assert record["fired"] == list(passing.fired) and record["reasons"] == list(passing.reasons)
+    assert record["notes"] == list(passing.notes)
+    assert (record["claim"]["n"], record["claim"]["horizon"]) == (-0.5, 2.0)
+    assert record["seed"] == 3 and record["streams"]["master_seed"] == 3
+    assert record["mdp"]["name"] == passing.mdp.name
+    assert record["mdp"]["metadata"] == passing.mdp.metadata
+    assert record["mdp"]["fingerprints"] == {repr(g): f for g, f in passing.mdp.fingerprints.items()}
+    assert record["mdp"]["scales"] == {repr(g): s for g, s in passing.mdp.scales.items()}
+    assert record["profile"]["name"] == "quick"
+    assert record["profile"]["n_grid"] == list(passing.profile.n_grid)
+    assert record["profile"]["alpha"] == passing.profile.alpha
+    assert set(record["profile"]) == set(passing.profile.__dataclass_fields__)
+    assert [list(fit) for fit in record["fits"]] == [list(FIT_KEYS)] * len(passing.factors) == [list(FIT_KEYS)] * 2
+    assert tuple(Fit.from_dict(fit) for fit in record["fits"]) == passing.factors  # floats survive JSON exactly
+    assert record["run"]["estimator_calls"] == len(passing.table) == record["data"]["rows"]
+    assert record["failure"] is None
+    assert record["extra"] == {"worker": "gw0"}
+    assert record["reproducer"] == passing.run.reproducer and record["message"] == passing.message
+
+
+def test_check_json_records_the_fitted_cells_and_slopes(session: Path, failing: CheckResult) -> None:
+    """``cells`` and ``slopes`` are the check's own summary and n-slopes, one entry per cell and per discount."""
+    record = load(session / folder_name(FAIL_ID))
+    summary = failing.evidence.summary
+    assert len(record["cells"]) == len(summary) == len(failing.table.groupby(["gamma", "n"])) > 0
+    for cell, (_, row) in zip(record["cells"], summary.iterrows()):
+        assert list(cell) == ["gamma", "n", "replicates", "mean", "usable", "zero", "fitted", "left_out"]
+        assert (cell["gamma"], cell["n"], cell["replicates"], cell["mean"]) == (row["gamma"], row["n"], row["replicates"], row["mean"])
+        assert (cell["fitted"], cell["left_out"]) == (bool(row["fitted"]), row["left_out"])
+        assert (cell["left_out"] == "") == cell["fitted"]
+    slopes = failing.evidence.slopes
+    assert [entry["gamma"] for entry in record["slopes"]] == slopes["gamma"].tolist() == sorted(failing.mdp.fingerprints)
+    for entry, (_, row) in zip(record["slopes"], slopes.iterrows()):
+        assert entry["state"] == row["state"]
+        assert entry["slope"] == row["slope"] if row["state"] == "fitted" else entry.get("slope") is None
+
+
+def test_provenance_versions_platform_and_timestamps(session: Path, passing: CheckResult) -> None:
+    record = load(session / folder_name(PASS_ID))
+    versions = record["environment"]["versions"]
+    assert versions["rlrates"] == rlrates.__version__
+    imported = {name: importlib.import_module(name).__version__ for name in ("numpy", "scipy", "pandas", "pytest", "matplotlib")}
+    assert {name: versions[name] for name in imported} == imported
+    assert record["environment"]["platform"] and versions["python"] == ".".join(map(str, sys.version_info[:3]))
+    started = datetime.fromisoformat(record["run"]["started"])
+    finished = datetime.fromisoformat(record["run"]["finished"])
+    assert started.utcoffset() == finished.utcoffset() == timezone.utc.utcoffset(None)
+    assert abs((finished - started).total_seconds() - passing.run.elapsed) < 1e-5
+    assert abs((datetime.now(timezone.utc) - finished).total_seconds()) < 600
+
+
+def test_git_commit_inside_a_repository_and_none_outside(monkeypatch: pytest.MonkeyPatch, tmp_path: Path,
+                                                         passing: CheckResult) -> None:
+    monkeypatch.chdir(tmp_path)
+    assert load(write_check(passing, tmp_path / "a", PASS_ID, figures=False))["environment"]["git_commit"] is None
+    try:
+        head = subprocess.run(["git", "rev-parse", "HEAD"], cwd=REPO, capture_output=True, text=True, timeout=10)
+    except (OSError, subprocess.SubprocessError):
+        pytest.skip("git is not available")
+    if head.returncode != 0:
+        pytest.skip("the tests are not running from a git checkout with a commit")
+    monkeypatch.chdir(REPO)
+    recorded = load(write_check(passing, tmp_path / "b", PASS_ID, figures=False))["environment"]["git_commit"]
+    assert recorded == head.stdout.strip()
+
+
+def test_recorded_streams_rebuild_a_replicate_exactly(session: Path, garnet: rlrates.TabularMDP,
+                                                     passing: CheckResult) -> None:
+    """check.json alone (seed, context, spawn keys, blocks) redraws a replicate and reproduces its error bit for bit."""
+    assert passing.run.passes == 1  # a single-pass check: its blocks are known without help from the check
+    folder = session / folder_name(PASS_ID)
+    record = load(folder)
+    errors = pd.read_csv(folder / "errors.csv")
+    row = errors[(errors["gamma"] == 0.9) & (errors["n"] == 512) & (errors["replicate"] == 5)].iloc[0]
+    streams = record["streams"]
+    stream = next(s for s in streams["per_gamma"] if s["gamma"] == row["gamma"])
+    assert stream["fingerprint"] == garnet.fingerprint and stream["context"] == stream_context(PASS_ID, garnet.fingerprint)
+    (block,) = [b for b in streams["blocks"] if (b["gamma"], b["n"]) == (row["gamma"], row["n"])
+                and b["start"] <= row["replicate"] < b["stop"]]
+    seed = np.random.SeedSequence(streams["master_seed"],
+                                  spawn_key=(*stream["spawn_key_prefix"], block["n"], block["start"], block["stop"]))
+    kernel = mdp_kernel(garnet)
+    batch = draw_block(kernel, block["n"], block["stop"] - block["start"], seed)[int(row["replicate"]) - block["start"]]
+    truth = solve_truth(garnet, float(row["gamma"]), "q_pi")
+    assert estimate_error(reference.plugin_q_pi(batch, truth.problem()), truth) == row["error"]
+    assert len(streams["blocks"]) == len(errors.groupby(["gamma", "n"]))
+
+
+def test_erroring_check_keeps_its_rows_and_the_failure(session: Path, erroring: CheckResult) -> None:
+    folder = session / folder_name(ERROR_ID)
+    saved = read_check(folder)
+    assert len(saved.errors) == len(erroring.table) > 0
+    pd.testing.assert_frame_equal(saved.errors, erroring.table[TABLE_COLUMNS].reset_index(drop=True), check_exact=True)
+    failure = saved.record["failure"]
+    assert erroring.failure is not None
+    assert (failure["gamma"], failure["n"], failure["replicate"], failure["kind"]) == (
+        erroring.failure.gamma, erroring.failure.n, erroring.failure.replicate, "raised")
+    assert failure["message"] == "RuntimeError: buffer overflow at n=512"
+    assert "raise RuntimeError" in failure["traceback"]
+    assert saved.record["status"] == "error" and saved.record["fits"] == []
+
+
+def test_no_temporary_files_are_left(session: Path) -> None:
+    allowed = {"check.json", "errors.csv", "figure.png", "figure.pdf", "index.md", "index.tex"}
+    names = {p.name for p in session.rglob("*") if p.is_file()}
+    assert names == allowed
+
+
+def test_an_interrupted_write_keeps_the_previous_files(monkeypatch: pytest.MonkeyPatch, tables_only: Path,
+                                                       failing: CheckResult) -> None:
+    before = {name: (tables_only / name).read_bytes() for name in ("errors.csv", "check.json")}
+
+    def full_disk(source: str, target: str) -> None:
+        raise OSError(28, "No space left on device")
+
+    monkeypatch.setattr(os, "replace", full_disk)
+    with pytest.raises(OSError, match="No space left"):
+        write_check(failing, tables_only.parent, PASS_ID, figures=False)
+    assert {p.name for p in tables_only.iterdir()} == set(before)
+    assert {name: (tables_only / name).read_bytes() for name in before} == before
+
+
+# --------------------------------------------------------------------------- without matplotlib
+
+
+def test_without_matplotlib_tables_are_written_with_one_line(monkeypatch: pytest.MonkeyPatch, tmp_path: Path,
+                                                             passing: CheckResult) -> None:
+    monkeypatch.setitem(sys.modules, "matplotlib", None)
+    folder = tmp_path / folder_name(PASS_ID)
+    folder.mkdir()
+    (folder / "figure.png").write_bytes(b"stale figure of an older run")
+    with pytest.warns(ReportWarning) as caught:
+        assert write_check(passing, tmp_path, PASS_ID) == folder
+    assert [str(w.message) for w in caught] == [report.FIGURES_SKIPPED]
+    assert report.FIGURES_SKIPPED == "figures skipped: install pytest-rlrates[plot] (matplotlib) to get them"
+    assert sorted(p.name for p in folder.iterdir()) == ["check.json", "errors.csv"]  # the stale figure is gone
+    with pytest.warns(ReportWarning) as caught:
+        written = rebuild(tmp_path)
+    assert len(caught) == 1 and sorted(p.name for p in written) == ["index.md", "index.tex"]
+
+
+# --------------------------------------------------------------------------- corrupt reports
+
+
+def _edit_json(change: Any) -> Any:
+    def edit(folder: Path) -> None:
+        record = load(folder)
+        change(record)
+        (folder / "check.json").write_text(json.dumps(record), encoding="utf-8")
+    return edit
+
+
+def _edit_csv(change: Any) -> Any:
+    def edit(folder: Path) -> None:
+        path = folder / "errors.csv"
+        path.write_text(change(path.read_text(encoding="utf-8")), encoding="utf-8")
+    return edit
+
+
+CORRUPTIONS = {
+    "truncated json": (truncate_json, r"check\.json: not valid JSON \(line \d+"),
+    "json is a list": (lambda f: (f / "check.json").write_text("[]"), r"check\.json: expected a JSON object"),
+    "missing claim": (_edit_json(lambda r: r.pop("claim")), r"check\.json: missing key 'claim'"),
+    "missing nested key": (_edit_json(lambda r: r["mdp"].pop("name")), r"check\.json: missing key 'mdp\.name'"),
+    "missing fit bound": (_edit_json(lambda r: r["fits"][0].pop("low")), r"check\.json: missing key 'fits\[0\]\.low'"),
+    "fit bound not a number": (_edit_json(lambda r: r["fits"][0].update(high="0.3")),
+                               r"check\.json: fits\[0\]: fit key 'high' must be a number or null, got '0\.3'"),
+    "unknown fit verdict": (_edit_json(lambda r: r["fits"][0].update(verdict="fine")),
+                            r"check\.json: fits\[0\]: fit key 'verdict' must be one of ok, violated"),
+    "missing cell mark": (_edit_json(lambda r: r["cells"][0].pop("fitted")),
+                          r"check\.json: missing key 'cells\[0\]\.fitted'"),
+    "cell mark not a bool": (_edit_json(lambda r: r["cells"][0].update(fitted=1)),
+                             r"check\.json: cells\[0\]\.fitted has the wrong type \(1\)"),
+    "slope not a number": (_edit_json(lambda r: r["slopes"][0].update(slope="steep")),
+                           r"check\.json: slopes\[0\] needs a number gamma and a number \(or null\) slope"),
+    "wrong type": (_edit_json(lambda r: r.update(seed="zero")), r"check\.json: key 'seed' has the wrong type"),
+    "unknown status": (_edit_json(lambda r: r.update(status="passed")), r"check\.json: status 'passed' is not one of"),
+    "other schema": (_edit_json(lambda r: r.update(schema="rlrates-check/0")), r"check\.json: schema 'rlrates-check/0'"),
+    "missing csv": (lambda f: (f / "errors.csv").unlink(), r"errors\.csv: missing"),
+    "missing column": (_edit_csv(lambda t: t.replace("error,seconds", "err,seconds", 1)),
+                       r"errors\.csv: missing column\(s\) error; expected gamma, H, n, replicate, error, seconds"),
+    "not a number": (_edit_csv(lambda t: t.replace("\n0.5,2,128,0,", "\n0.5,2,128,0,oops", 1)),
+                     r"errors\.csv: line 2, column 'error': '.*' is not a finite number"),
+    "fractional n": (_edit_csv(lambda t: t.replace("\n0.5,2,128,", "\n0.5,2,128.5,", 1)),
+                     r"errors\.csv: line 2, column 'n'.*integer"),
+    "edited value": (_edit_csv(lambda t: t.replace("\n0.5,2,128,0,0", "\n0.5,2,128,0,1", 1)),
+                     r"errors\.csv: contents differ from the sha256 recorded in .*check\.json"),
+}
+
+
+@pytest.mark.parametrize("corrupt, pattern", CORRUPTIONS.values(), ids=CORRUPTIONS.keys())
+def test_corrupt_reports_raise_a_report_error_naming_the_file(tables_only: Path, corrupt: Any, pattern: str) -> None:
+    corrupt(tables_only)
+    with pytest.raises(ReportError, match=pattern) as raised:
+        rebuild(tables_only.parent)
+    assert str(tables_only) in str(raised.value)
+    assert isinstance(raised.value, ValueError)
+    assert not (tables_only.parent / "index.md").exists()  # nothing written from a corrupt report
+
+
+def test_a_clean_copy_of_the_csv_reads_back(tables_only: Path) -> None:
+    """The control for the corruption cases: the untouched folder reads without complaint."""
+    assert len(read_check(tables_only).errors) > 0
