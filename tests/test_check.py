@@ -13,6 +13,7 @@ import pytest
 import rlrates
 from rlrates import reference
 from rlrates.profiles import PROFILES
+from rlrates.result import FIT_KEYS, Fit
 
 import zoo
 
@@ -96,7 +97,8 @@ def test_reference_estimators_pass_every_target(garnet: rlrates.TabularMDP, esti
     result = rlrates.check(estimator, garnet, claim, target=target, seed=3)
     assert result.status == "pass", result.message
     assert result.passed
-    assert list(result.fits.columns) == ["factor", "exponent", "low", "high", "claimed", "verdict"]
+    assert list(result.fits.columns) == list(FIT_KEYS)
+    assert all(isinstance(fit, Fit) for fit in result.factors)
     assert set(result.fits["factor"]) == {"n"} | ({"horizon"} if claim.horizon is not None else set())
     assert list(result.table.columns) == ["gamma", "H", "n", "replicate", "error", "seconds"]
     quick = PROFILES["quick"]
@@ -234,7 +236,7 @@ def test_an_ambiguous_first_pass_escalates_before_answering(garnet: rlrates.Tabu
     result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=0)
     quick = PROFILES["quick"]
     assert result.status == "inconclusive", result.message
-    assert result.passes == 2 + quick.n_doublings
+    assert result.run.passes == 2 + quick.n_doublings
     assert result.table["replicate"].max() + 1 == quick.replicates * quick.more_replicates
     assert result.table["n"].max() == quick.n_grid[-1] * 2**quick.n_doublings
     assert "budget spent" in result.message
@@ -257,6 +259,6 @@ def test_the_python_reproducer_reruns_the_same_check() -> None:
     mdp = rlrates.garnet(states=10, actions=2, branching=3, seed=1)
     result = rlrates.check(zoo.stale_buffer_q_pi, mdp, CLAIM, seed=4, n_grid=(128, 256, 512), replicates=8,
                            context="tests/test_x.py::test_y")
-    again = eval(result.reproducer, {"rlrates": rlrates, "stale_buffer_q_pi": zoo.stale_buffer_q_pi})
+    again = eval(result.run.reproducer, {"rlrates": rlrates, "stale_buffer_q_pi": zoo.stale_buffer_q_pi})
     pd.testing.assert_frame_equal(_numbers(result), _numbers(again))
     assert again.status == result.status

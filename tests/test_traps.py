@@ -154,7 +154,7 @@ def test_curvature_is_not_mistaken_for_noise(garnet: rlrates.TabularMDP) -> None
     # the check decides in one pass.
     estimator = ShapedError(garnet, lambda n, H: 0.05 * H * n**-0.5 * (1 + 0.35 * np.sin(2.2 * np.log(n))), sigma=0.05)
     result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=0)
-    assert result.status == "pass" and result.passes == 1, result.message
+    assert result.status == "pass" and result.run.passes == 1, result.message
     means = result.table.groupby(["gamma", "n"])["error"].mean().loc[0.9]
     fit = stats.linregress(np.log(means.index.to_numpy(float)), np.log(means.to_numpy()))
     residual_halfwidth = stats.t.ppf(0.995, len(means) - 2) * fit.stderr

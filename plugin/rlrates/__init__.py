@@ -41,8 +41,11 @@ _EXPORTS: dict[str, str] = {
     "PROFILES": "profiles",
     "Problem": "targets",
     "check": "rate_check",
-    "CheckResult": "rate_check",
     "RatesWarning": "rate_check",
+    "CheckResult": "result",
+    "CheckInterrupted": "result",
+    "Fit": "result",
+    "Estimator": "sweep",
     "save_mdp": "storage",
     "load_mdp": "storage",
     "from_gymnasium": "gym_import",
@@ -51,9 +54,12 @@ _EXPORTS: dict[str, str] = {
 __all__ = sorted(_EXPORTS) + ["__version__"]
 
 if TYPE_CHECKING:  # pragma: no cover  (explicit re-exports for type checkers)
-    from .rate_check import CheckResult as CheckResult
     from .rate_check import RatesWarning as RatesWarning
     from .rate_check import check as check
+    from .result import CheckInterrupted as CheckInterrupted
+    from .result import CheckResult as CheckResult
+    from .result import Fit as Fit
+    from .sweep import Estimator as Estimator
     from .claims import Claim as Claim
     from .exact import greedy_policy as greedy_policy
     from .exact import model_distance as model_distance

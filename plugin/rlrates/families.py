@@ -16,7 +16,7 @@ import numpy as np
 from .exact import validate_gamma
 from .mdp import TabularMDP
 
-__all__ = ["garnet", "chain", "gridworld", "ring", "deterministic", "horizon_hard", "HorizonHard"]
+__all__ = ["garnet", "chain", "gridworld", "ring", "deterministic", "horizon_hard", "HorizonHard", "rebuild_call"]
 
 
 def _positive_int(value: object, name: str, minimum: int = 1) -> int:
@@ -217,3 +217,25 @@ def horizon_hard(actions: int = 2) -> HorizonHard:
     """The gamma-indexed horizon-hard family; call the result with a discount to get an MDP."""
     _positive_int(actions, "actions")
     return HorizonHard(actions=int(actions))
+
+
+#: For each family: the constructor's parameters, all recorded in the members' ``metadata``.
+_PARAMETERS: dict[str, tuple[str, ...]] = {
+    "garnet": ("states", "actions", "branching", "seed"),
+    "chain": ("states", "slip", "seed"),
+    "ring": ("states", "slip", "seed"),
+    "deterministic": ("states", "actions", "seed"),
+    "horizon_hard": ("actions",),
+}
+
+
+def rebuild_call(metadata: dict[str, object] | None) -> str | None:
+    """Python source that rebuilds a family member from its ``metadata``, e.g. ``rlrates.chain(states=10, ...)``.
+
+    ``None`` when the metadata does not name a family of this module or lacks a parameter.
+    """
+    metadata = metadata or {}
+    keys = _PARAMETERS.get(str(metadata.get("family")))
+    if keys is None or any(key not in metadata for key in keys):
+        return None
+    return f"rlrates.{metadata['family']}(" + ", ".join(f"{key}={metadata[key]!r}" for key in keys) + ")"

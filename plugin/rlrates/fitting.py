@@ -21,7 +21,7 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import stats
 
-__all__ = ["Slope", "fit_slope", "summarise_cells"]
+__all__ = ["Slope", "fit_slope", "pooled_slope", "summarise_cells", "DiscountFit", "fit_discounts", "fit_horizon"]
 
 
 @dataclass(frozen=True)
@@ -40,6 +40,14 @@ class Slope:
     def upper(self, alpha: float) -> float:
         """One-sided upper confidence bound at level ``1 - alpha``."""
         return self.estimate + self._quantile(alpha) * self.se
+
+    def detectable(self, limit: float, alpha: float, power: float = 0.95) -> float:
+        """The smallest true exponent whose lower bound at level ``1 - alpha`` clears ``limit`` with probability ``power``.
+
+        With the estimate distributed about the true exponent with this standard
+        error and degrees of freedom: ``limit + (q_{1-alpha} + q_{power}) * se``.
+        """
+        return limit + (self._quantile(alpha) + self._quantile(1.0 - power)) * self.se
 
     def _quantile(self, alpha: float) -> float:
         if math.isinf(self.df):
@@ -60,6 +68,76 @@ def fit_slope(x: ArrayLike, y: ArrayLike, variance: ArrayLike, df: float = math.
         raise ValueError("a slope needs at least two distinct x values")
     weights = centred / sxx
     return Slope(float(weights @ y_arr), float(math.sqrt(weights**2 @ var)), df, int(x_arr.size))
+
+
+def pooled_slope(slopes: list[Slope]) -> Slope:
+    """The mean of independent slopes, with its standard error."""
+    estimate = float(np.mean([s.estimate for s in slopes]))
+    se = math.sqrt(sum(s.se**2 for s in slopes)) / len(slopes)
+    return Slope(estimate, se, min(s.df for s in slopes), sum(s.points for s in slopes))
+
+
+def _df(cells: pd.DataFrame) -> float:
+    return float(max(cells["replicates"].min() - 1, 1))
+
+
+def _fit_cells(cells: pd.DataFrame, x_column: str = "n") -> Slope:
+    x = np.log(cells[x_column].to_numpy(float))
+    return fit_slope(x, cells["log_mean"], cells["log_var"], _df(cells))
+
+
+@dataclass(frozen=True)
+class DiscountFit:
+    """The n-slopes of one discount: over the whole window, over its upper and lower parts."""
+
+    gamma: float
+    whole: Slope
+    upper: Slope
+    steepening: Slope  # upper-part slope minus lower-part slope
+
+
+def fit_discounts(cells: pd.DataFrame, gammas: list[float], window: int) -> tuple[pd.DataFrame, list[DiscountFit]]:
+    """Per discount, the n-slopes over the ``window`` largest fitted cells.
+
+    ``cells`` are the usable cells (asymptotic, not saturated) of the discounts ``gammas``. Returns the slopes
+    table (one row per discount: gamma, H, points, state, and for fitted discounts
+    n_min, n_max, slope, slope_se, upper_slope, upper_se) and the fitted discounts.
+    ``state`` is "fitted", "vanished" (zero error at the largest n) or "too few
+    asymptotic points" (under 3 non-zero cells).
+    """
+    rows: list[dict[str, object]] = []
+    fitted: list[DiscountFit] = []
+    for gamma in gammas:
+        window_cells = cells[cells["gamma"] == gamma].sort_values("n").tail(window)
+        row: dict[str, object] = {"gamma": gamma, "H": 1.0 / (1.0 - gamma), "points": len(window_cells)}
+        positive = window_cells[~window_cells["zero"]]
+        if len(window_cells) and bool(window_cells["zero"].iloc[-1]):
+            row["state"] = "vanished"
+        elif len(positive) < 3:
+            row["state"] = "too few asymptotic points"
+        else:
+            k = max(3, math.ceil(len(positive) / 2))
+            whole, upper, lower = _fit_cells(positive), _fit_cells(positive.tail(k)), _fit_cells(positive.head(k))
+            fitted.append(DiscountFit(float(gamma), whole, upper, Slope(
+                upper.estimate - lower.estimate, math.hypot(upper.se, lower.se), upper.df, k)))
+            row.update(state="fitted", n_min=int(positive["n"].min()), n_max=int(positive["n"].max()),
+                       slope=whole.estimate, slope_se=whole.se, upper_slope=upper.estimate, upper_se=upper.se)
+        rows.append(row)
+    return pd.DataFrame(rows), fitted
+
+
+def fit_horizon(cells: pd.DataFrame, discounts: int) -> tuple[Slope | None, int | None]:
+    """The H-exponent at the largest n where all ``discounts`` have a usable, non-zero cell.
+
+    Returns the slope and that n, or ``(None, None)`` when no n qualifies.
+    """
+    positive = cells[~cells["zero"]]
+    counts = positive.groupby("n")["gamma"].nunique()
+    common = counts[counts == discounts].index
+    if len(common) == 0:
+        return None, None
+    n_star = int(max(common))
+    return _fit_cells(positive[positive["n"] == n_star].sort_values("gamma"), "H"), n_star
 
 
 def summarise_cells(table: pd.DataFrame, zero_tolerance: dict[float, float] | None = None) -> pd.DataFrame:

@@ -1,17 +1,15 @@
 """Plain-text explanation of a check result: claim, fits, why, the numbers, how to reproduce.
 
-Pure functions of a :class:`~rlrates.rate_check.CheckResult`; no pytest, no I/O.
+Pure functions of a :class:`~rlrates.result.CheckResult`; no pytest, no I/O.
 """
 
 from __future__ import annotations
 
 import math
-from typing import TYPE_CHECKING
 
 import pandas as pd
 
-if TYPE_CHECKING:  # pragma: no cover
-    from .rate_check import CheckResult
+from .result import CheckResult
 
 __all__ = ["format_message", "headline", "mean_error_grid", "format_interval"]
 
@@ -22,7 +20,7 @@ _REASON_NAMES = {
 }
 
 
-def headline(result: "CheckResult") -> str:
+def headline(result: CheckResult) -> str:
     """One line: status, which sub-tests fired, target and MDP."""
     status = result.status.upper()
     if result.status == "fail":
@@ -32,7 +30,7 @@ def headline(result: "CheckResult") -> str:
         status += " (undecided within the profile's budget)"
     elif result.status == "error":
         status += " (the estimator failed)"
-    return f"rlrates {status}: target {result.target} on {result.mdp_name}"
+    return f"rlrates {status}: target {result.target} on {result.mdp.name}"
 
 
 def format_interval(exponent: float, low: float, high: float) -> str:
@@ -50,11 +48,7 @@ def mean_error_grid(table: pd.DataFrame) -> pd.DataFrame:
     return grid
 
 
-def _tolerance(result: "CheckResult", factor: str) -> float:
-    return result.profile.n_tolerance if factor == "n" else result.profile.horizon_tolerance
-
-
-def format_message(result: "CheckResult") -> str:
+def format_message(result: CheckResult) -> str:
     lines = [headline(result), f"claimed:   {result.claim.describe()}  ({result.norm}-norm error)"]
     if result.failure is not None:
         lines.append(f"why:       {result.failure.describe()}")
@@ -64,13 +58,10 @@ def format_message(result: "CheckResult") -> str:
             lines.extend("    " + line for line in result.failure.traceback.rstrip().splitlines())
     else:
         lines.append("fitted:    factor    exponent [one-sided bounds]   claimed  tolerance  verdict")
-        for row in result.fits.to_dict("records"):
-            factor = str(row["factor"])
-            label = "n" if factor == "n" else "H"
-            interval = format_interval(float(row["exponent"]), float(row["low"]), float(row["high"]))
+        for fit in result.factors:
+            interval = format_interval(fit.exponent, fit.low, fit.high)
             lines.append(
-                f"           {label:<8}  {interval:<28} {float(row['claimed']):>+7.3g}  "
-                f"{_tolerance(result, factor):>+9.3g}  {row['verdict']}"
+                f"           {fit.symbol:<8}  {interval:<28} {fit.claimed:>+7.3g}  {fit.tolerance:>+9.3g}  {fit.verdict}"
             )
         for reason in result.reasons:
             lines.append(f"why:       {reason}")
@@ -78,7 +69,7 @@ def format_message(result: "CheckResult") -> str:
             lines.append("why:       no sub-test fired and every interval is inside the claim plus tolerance")
     for note in result.notes:
         lines.append(f"note:      {note}")
-    slopes = result.slopes
+    slopes = result.evidence.slopes
     if len(slopes) and "slope" in slopes:
         lines.append("per discount: gamma      H   n-slope (all)   n-slope (largest n)")
         for each in slopes.to_dict("records"):
@@ -92,9 +83,9 @@ def format_message(result: "CheckResult") -> str:
         lines.append("mean error by n:")
         lines.extend("    " + line for line in grid.to_string(float_format=lambda v: f"{v:.4g}").splitlines())
     lines.append(
-        f"profile:   {result.profile.name}, {result.passes} pass(es), {len(result.table)} estimator calls, "
-        f"{result.elapsed:.2f} s ({result.estimator_seconds:.2f} s in the estimator)"
+        f"profile:   {result.profile.name}, {result.run.passes} pass(es), {len(result.table)} estimator calls, "
+        f"{result.run.elapsed:.2f} s ({result.run.estimator_seconds:.2f} s in the estimator)"
     )
     lines.append("evidence under idealised assumptions (generative model, known rewards), not a proof")
-    lines.append(f"reproduce: {result.reproducer}")
+    lines.append(f"reproduce: {result.run.reproducer}")
     return "\n".join(lines)

@@ -106,13 +106,19 @@ class Fit:
         missing = [key for key in FIT_KEYS if key not in data]
         if missing:
             raise ValueError(f"a fit lacks key(s) {', '.join(missing)}")
-        text = {"factor", "verdict"}
-        try:
-            values = {key: (str(data[key]) if key in text else _number_or_nan(data[key])) for key in FIT_KEYS}
-        except (TypeError, ValueError):
-            bad = next(k for k in FIT_KEYS if k not in text and not _is_number(data[k]))
-            raise ValueError(f"fit key {bad!r} must be a number or null, got {data[bad]!r}") from None
-        return cls(**values)
+        numbers: dict[str, float] = {}
+        for key in FIT_KEYS:
+            if key in ("factor", "verdict"):
+                continue
+            if not _is_number(data[key]):
+                raise ValueError(f"fit key {key!r} must be a number or null, got {data[key]!r}")
+            numbers[key] = _number_or_nan(data[key])
+        factor, verdict = data["factor"], data["verdict"]
+        if factor not in FACTORS:
+            raise ValueError(f"fit key 'factor' must be one of {', '.join(FACTORS)}, got {factor!r}")
+        if verdict not in FIT_VERDICTS:
+            raise ValueError(f"fit key 'verdict' must be one of {', '.join(FIT_VERDICTS)}, got {verdict!r}")
+        return cls(factor=factor, verdict=verdict, **numbers)
 
 
 def _is_number(value: Any) -> bool:

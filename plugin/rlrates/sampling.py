@@ -24,7 +24,7 @@ from numpy.typing import NDArray
 
 from .mdp import TabularMDP
 
-__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel"]
+__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stream_context", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel"]
 
 IntArray = NDArray[np.int64]
 
@@ -34,6 +34,11 @@ def stable_words(text: str, words: int = 2) -> tuple[int, ...]:
     """Turn a string into ``words`` 32-bit integers (a stable spawn-key part)."""
     digest = hashlib.blake2b(text.encode("utf-8"), digest_size=4 * words).digest()
     return tuple(int.from_bytes(digest[4 * i : 4 * i + 4], "little") for i in range(words))
+
+
+def stream_context(context: str, fingerprint: str) -> str:
+    """The context string of an MDP's streams in a check: the caller's context and the MDP's fingerprint."""
+    return f"{context}|{fingerprint}"
 
 
 def gamma_key(gamma: float) -> int:

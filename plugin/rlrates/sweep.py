@@ -16,42 +16,29 @@ from __future__ import annotations
 
 import time
 import traceback
-from collections.abc import Callable, Iterable, Iterator
+from collections.abc import Iterable, Iterator, Mapping
 from concurrent.futures import Executor, Future
 from dataclasses import dataclass, field
-from typing import Any
+from typing import Any, Protocol
 
 import numpy as np
 import pandas as pd
 
-from .sampling import SupportKernel, block_seed, draw_block, mdp_kernel
-from .targets import EstimateError, Truth, estimate_error, validate_estimate
+from .result import Block, CellFailure
+from .sampling import Batch, SupportKernel, block_seed, draw_block, mdp_kernel, stream_context
+from .targets import EstimateError, Problem, Truth, estimate_error, validate_estimate
+from .vocabulary import ERROR_COLUMNS
 
-__all__ = ["CellTask", "CellFailure", "CellOutcome", "run_cell", "run_sweep", "TABLE_COLUMNS"]
+__all__ = ["Estimator", "CellTask", "CellOutcome", "SweepPlan", "blocks_of", "run_cell", "run_sweep", "BLOCK_ELEMENTS"]
 
-TABLE_COLUMNS = ["gamma", "H", "n", "replicate", "error", "seconds"]
+#: Largest number of counts drawn in one block (8M int64 = 64 MB); larger cells are split.
+BLOCK_ELEMENTS = 8_000_000
 
-Estimator = Callable[[Any, Any], Any]
 
+class Estimator(Protocol):
+    """What ``rlrates.check`` calls: ``estimator(batch, problem)`` returns the estimate for the target."""
 
-@dataclass(frozen=True)
-class CellFailure:
-    """Why an estimator call did not give a usable error."""
-
-    gamma: float
-    n: int
-    replicate: int
-    kind: str  # "raised", "invalid" or "interrupted"
-    message: str
-    traceback: str
-
-    def describe(self) -> str:
-        where = f"gamma={self.gamma:g}, n={self.n}, replicate={self.replicate}"
-        if self.kind == "raised":
-            return f"the estimator raised at {where}: {self.message}"
-        if self.kind == "interrupted":
-            return f"interrupted (KeyboardInterrupt) at {where}; the rows finished before it are kept"
-        return f"invalid estimate at {where}: {self.message}"
+    def __call__(self, batch: Batch, problem: Problem, /) -> Any: ...
 
 
 @dataclass
@@ -68,6 +55,43 @@ class CellTask:
     norm: str = "sup"
     kernel: SupportKernel | None = field(default=None, repr=False)
     time_limit: float | None = None
+
+
+@dataclass(frozen=True)
+class SweepPlan:
+    """Everything the cells of one check share; :meth:`tasks` plans the cells of one pass.
+
+    A block's counts are (replicates, S, A, S) int64: large MDPs split a cell's
+    replicates into several blocks so that one block stays under
+    ``BLOCK_ELEMENTS`` (the split is part of the design, so it is the same for
+    every executor and recorded in the result's blocks).
+    """
+
+    estimator: Estimator
+    truths: Mapping[float, Truth]
+    kernels: Mapping[float, SupportKernel]
+    master_seed: int
+    context: str
+    norm: str = "sup"
+    time_limit: float | None = None
+
+    def tasks(self, n_values: Iterable[int], start: int, stop: int) -> list[CellTask]:
+        """The cell tasks for every discount and every n in ``n_values``, replicates ``start .. stop - 1``."""
+        planned = []
+        for gamma, truth in self.truths.items():
+            mdp = truth.mdp
+            size = max(1, BLOCK_ELEMENTS // (mdp.states * mdp.actions * mdp.states))
+            for n in n_values:
+                for low in range(start, stop, size):
+                    planned.append(CellTask(self.estimator, truth, n, low, min(low + size, stop), self.master_seed,
+                                            stream_context(self.context, mdp.fingerprint), self.norm,
+                                            self.kernels[gamma], self.time_limit))
+        return planned
+
+
+def blocks_of(tasks: Iterable[CellTask]) -> list[Block]:
+    """The replicate blocks that ``tasks`` draw, in order."""
+    return [Block(task.truth.gamma, task.n, task.start, task.stop) for task in tasks]
 
 
 @dataclass
@@ -164,6 +188,6 @@ def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None) -> tu
 
 
 def rows_to_table(records: list[tuple[float, float, int, int, float, float]]) -> pd.DataFrame:
-    table = pd.DataFrame.from_records(records, columns=TABLE_COLUMNS)
+    table = pd.DataFrame.from_records(records, columns=list(ERROR_COLUMNS))
     table = table.astype({"gamma": float, "H": float, "n": np.int64, "replicate": np.int64, "error": float, "seconds": float})
     return table.sort_values(["gamma", "n", "replicate"], ignore_index=True)

@@ -24,11 +24,10 @@ from numpy.typing import NDArray
 
 from .exact import q_pi, q_star, uniform_policy, validate_policy
 from .mdp import TabularMDP
+from .vocabulary import NORMS, TARGETS
 
 __all__ = ["TARGETS", "NORMS", "Problem", "Truth", "EstimateError", "solve_truth", "validate_estimate", "estimate_error"]
 
-TARGETS = ("q_pi", "q_star", "policy", "model")
-NORMS = ("sup", "mean")
 
 Array = NDArray[np.float64]
 
