@@ -1,11 +1,16 @@
-"""The ``rlrates`` marker's arguments: validation and merging, with no pytest import.
+"""The ``rlrates`` marker: validating and merging its arguments, and reading the markers of a test item.
 
 ``@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, profile=None,
 suite=None, mdps=None, policy=None)``: the claim under test (an ``rlrates.Claim``, or its
 exponents ``n=`` / ``horizon=``), defaults for the ``rlrates`` fixture (target, profile,
 policy), and the MDPs of ``rlrates_mdp`` (``suite=`` narrows the standard suite to member
-names or tags; ``mdps=`` replaces it with a list or a dict ``{id: mdp}``). The pytest layer
-validates every marker at collection, so a bad argument is reported before any estimator runs.
+names or tags; ``mdps=`` replaces it with a list or a dict ``{id: mdp}``).
+
+:func:`parse_marker` and :func:`merge_specs` are plain functions of the marker's
+arguments. The pytest layer validates every marker at collection, so a bad argument
+is reported before any estimator runs: a :class:`MarkerReader` parses each marker
+once per session, and collection keeps each item's merged :class:`MarkerSpec` in the
+item's stash under :data:`ITEM_SPEC`, where the ``rlrates`` fixture reads it.
 """
 
 from __future__ import annotations
@@ -14,14 +19,27 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-if TYPE_CHECKING:  # pragma: no cover
-    from .claims import Claim
-    from .profiles import Profile
-    from .suite import SuiteMember
+import pytest
 
-__all__ = ["MARKER", "MARKER_KEYWORDS", "MarkerError", "MarkerSpec", "parse_marker", "merge_specs"]
+if TYPE_CHECKING:  # pragma: no cover
+    from ..claims import Claim
+    from ..profiles import Profile
+    from ..suite import SuiteMember
+
+__all__ = [
+    "MARKER", "MARKER_KEYWORDS", "MARKER_HELP", "MarkerError", "MarkerSpec", "parse_marker", "merge_specs",
+    "MarkerReader", "ITEM_SPEC", "item_spec",
+]
 
 MARKER = "rlrates"
+#: The marker's line in ``pytest --markers``.
+MARKER_HELP = (
+    "rlrates(claim=None, *, n=None, horizon=None, target=None, profile=None, suite=None, mdps=None, "
+    "policy=None): the rate claim under test (an rlrates.Claim, or its exponents as n= and horizon=) "
+    "plus defaults for the `rlrates` fixture (target, profile, policy); suite= narrows the standard "
+    "MDP suite of `rlrates_mdp` to member names or tags, mdps= replaces it with your own MDPs "
+    "(a list, or a dict {id: mdp})."
+)
 
 
 class MarkerError(ValueError):
@@ -59,9 +77,9 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
         raise _bad(where, f"takes at most one positional argument (the claim), got {len(args)}: {args!r}")
     if args and "claim" in kwargs:
         raise _bad(where, "the claim is given twice, positionally and as `claim=`")
-    from .claims import Claim
-    from .profiles import PROFILES, Profile
-    from .suite import SuiteError, custom_members, select_members
+    from ..claims import Claim
+    from ..profiles import PROFILES, Profile
+    from ..suite import SuiteError, custom_members, select_members
 
     claim = args[0] if args else kwargs.get("claim")
     exponents = {key: kwargs[key] for key in ("n", "horizon") if key in kwargs}
@@ -76,7 +94,7 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
             raise _bad(where, f"bad exponent: {exc}") from None
     target = kwargs.get("target")
     if target is not None:
-        from .targets import validate_target
+        from ..targets import validate_target
 
         try:
             target = validate_target(target)
@@ -109,3 +127,50 @@ def merge_specs(specs: Iterable[MarkerSpec]) -> MarkerSpec:
             if value is not None and name not in merged:
                 merged[name] = value
     return MarkerSpec(**merged)
+
+
+# --------------------------------------------------------------------------- the markers of a test item
+
+#: Where collection keeps an item's merged marker spec (read by the ``rlrates`` fixture).
+ITEM_SPEC = pytest.StashKey["MarkerSpec"]()
+
+
+class MarkerReader:
+    """Reads the merged ``rlrates`` markers of a node, parsing each marker once per session.
+
+    A marker on a class or module, or on a function whose test runs once per MDP of
+    the suite, is shared by many nodes: its parsed spec is kept (keyed on the marker
+    object) and reused. Errors are not kept, so each node's error names that node.
+    """
+
+    def __init__(self) -> None:
+        self._parsed: dict[int, tuple[Any, MarkerSpec]] = {}
+
+    def spec(self, node: Any) -> MarkerSpec:
+        """The merged markers of a test item or function definition; raise :class:`MarkerError` on a bad one."""
+        specs = [self._parse(mark, node.nodeid) for mark in node.iter_markers(MARKER)]
+        return merge_specs(specs) if specs else MarkerSpec()
+
+    def spec_or_fail(self, node: Any) -> MarkerSpec:
+        """The node's marker spec, or a clean failure with the marker error (no exception chain shown)."""
+        __tracebackhide__ = True
+        try:
+            return self.spec(node)
+        except MarkerError as exc:
+            problem = str(exc)
+        pytest.fail(problem, pytrace=False)
+
+    def _parse(self, mark: Any, where: str) -> MarkerSpec:
+        known = self._parsed.get(id(mark))
+        if known is not None and known[0] is mark:
+            return known[1]
+        spec = parse_marker(tuple(mark.args), mark.kwargs, where)
+        self._parsed[id(mark)] = (mark, spec)  # holding the mark keeps its id from being reused
+        return spec
+
+
+def item_spec(item: pytest.Item, reader: MarkerReader) -> MarkerSpec:
+    """The spec collection left in the item's stash; read now only if collection could not (a bad marker)."""
+    __tracebackhide__ = True
+    spec = item.stash.get(ITEM_SPEC, None)
+    return spec if spec is not None else reader.spec_or_fail(item)

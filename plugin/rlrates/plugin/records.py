@@ -1,57 +1,28 @@
 """Check records: the short, JSON-safe account of one check that travels on a pytest report.
 
-The pytest layer turns each :class:`~rlrates.rate_check.CheckResult` into a
+The pytest layer turns each :class:`~rlrates.result.CheckResult` into a
 :class:`CheckRecord`, attaches it to the test item as the user property
-``("rlrates", json)`` (so it crosses pytest-xdist and lands in JUnit XML), and
+``(PROPERTY_NAME, json)`` (so it crosses pytest-xdist and lands in JUnit XML), and
 formats all records of a session into the terminal summary with
-:func:`format_summary`. Pure: no pytest, no numpy at import time.
+:func:`format_summary`. No pytest import; imported only once a check has run
+(its fits are :class:`~rlrates.result.Fit` records, whose module loads pandas).
 """
 
 from __future__ import annotations
 
 import json
-import math
 from collections import Counter
 from collections.abc import Iterable, Mapping
-from dataclasses import asdict, dataclass
+from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Any
 
+from ..result import Fit
+from ..vocabulary import STATUSES
+
 if TYPE_CHECKING:  # pragma: no cover
-    from .rate_check import CheckResult
+    from ..result import CheckResult
 
-__all__ = ["PROPERTY_NAME", "FitRecord", "CheckRecord", "format_summary"]
-
-#: The name of the user property (and JUnit XML property) that carries a record.
-PROPERTY_NAME = "rlrates"
-
-
-def _as_float(value: Any) -> float:
-    return float(value)
-
-
-def _finite_or_none(value: Any) -> float | None:
-    number = _as_float(value)
-    return number if math.isfinite(number) else None
-
-
-@dataclass(frozen=True)
-class FitRecord:
-    """One fitted factor: exponent with its one-sided bounds, the claimed bound and the verdict."""
-
-    factor: str
-    exponent: float | None
-    low: float | None
-    high: float | None
-    claimed: float
-    verdict: str
-
-    def describe(self) -> str:
-        label = "n" if self.factor == "n" else "H"
-        if self.exponent is None or self.low is None or self.high is None:
-            seen = "not measurable"
-        else:
-            seen = f"{self.exponent:+.3f} in [{self.low:+.3f}, {self.high:+.3f}]"
-        return f"{label} {seen}, claimed <= {self.claimed:+g}: {self.verdict}"
+__all__ = ["CheckRecord", "format_summary"]
 
 
 @dataclass(frozen=True)
@@ -63,7 +34,7 @@ class CheckRecord:
     target: str
     mdp: str
     claim: str
-    fits: tuple[FitRecord, ...]
+    fits: tuple[Fit, ...]
     fired: tuple[str, ...]
     seconds: float
     seed: int
@@ -72,42 +43,35 @@ class CheckRecord:
     calls: int
 
     @classmethod
-    def from_result(cls, result: "CheckResult", test: str) -> "CheckRecord":
-        fits = tuple(
-            FitRecord(
-                str(row.factor),
-                _finite_or_none(row.exponent),
-                _finite_or_none(row.low),
-                _finite_or_none(row.high),
-                _as_float(row.claimed),
-                str(row.verdict),
-            )
-            for row in result.fits.itertuples(index=False)
-        )
+    def from_result(cls, result: CheckResult, test: str) -> CheckRecord:
         return cls(
             test=test,
             status=result.status,
             target=result.target,
-            mdp=result.mdp_name,
+            mdp=result.mdp.name,
             claim=result.claim.describe(),
-            fits=fits,
+            fits=tuple(result.factors),
             fired=tuple(result.fired),
-            seconds=float(result.elapsed),
+            seconds=float(result.run.elapsed),
             seed=int(result.seed),
             profile=result.profile.name,
-            passes=int(result.passes),
+            passes=int(result.run.passes),
             calls=int(len(result.table)),
         )
 
     def to_json(self) -> str:
-        return json.dumps(asdict(self), sort_keys=True, allow_nan=False)
+        data = {item.name: getattr(self, item.name) for item in fields(self)}
+        data["fits"] = [fit.to_dict() for fit in self.fits]
+        data["fired"] = list(self.fired)
+        return json.dumps(data, sort_keys=True, allow_nan=False)
 
     @classmethod
-    def from_json(cls, text: str) -> "CheckRecord":
+    def from_json(cls, text: str) -> CheckRecord:
+        """The inverse of :meth:`to_json`; raise ``ValueError`` or ``TypeError`` on text that is no check record."""
         data: dict[str, Any] = json.loads(text)
         if not isinstance(data, Mapping):
             raise ValueError(f"a check record must be a JSON object, got {text[:60]!r}")
-        fits = tuple(FitRecord(**fit) for fit in data.pop("fits", []))
+        fits = tuple(Fit.from_dict(fit) for fit in data.pop("fits", []))
         fired = tuple(data.pop("fired", []))
         return cls(fits=fits, fired=fired, **data)
 
@@ -142,7 +106,7 @@ def format_summary(records: Iterable[CheckRecord]) -> list[str] | None:
         for fit in record.fits:
             lines.append(f"{indent}{fit.describe()}")
     counts = Counter(r.status for r in ordered)
-    tally = ", ".join(f"{counts[s]} {s}" for s in ("pass", "fail", "inconclusive", "error") if counts[s])
+    tally = ", ".join(f"{counts[s]} {s}" for s in STATUSES if counts[s])
     total = sum(r.seconds for r in ordered)
     lines.append(f"{len(ordered)} check(s): {tally}; {total:.2f} s in checks")
     return lines

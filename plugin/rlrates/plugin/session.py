@@ -1,0 +1,142 @@
+"""The per-session state of the pytest layer: settings, marker reader, worker pool, built MDPs, check records.
+
+One :class:`RatesSession` per pytest session lives in ``config.stash`` and is
+registered as a plugin, so that it sees every test report, including those a
+pytest-xdist controller receives from its workers: each check's record rides on
+its report as the user property ``(PROPERTY_NAME, json)``, which is how the
+summary works under xdist. Importing this module loads nothing but pytest and
+the standard library (and the tiny vocabulary).
+"""
+
+from __future__ import annotations
+
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import pytest
+
+from ..vocabulary import PROPERTY_NAME
+from .marker import MarkerReader
+from .settings import REPORT_OPTION, RatesSettings, resolve_settings
+
+if TYPE_CHECKING:  # pragma: no cover
+    from concurrent.futures import Executor
+
+    from ..suite import SuiteMember
+    from .records import CheckRecord
+
+__all__ = ["RatesSession", "start_session", "end_session", "session_of", "session_or_none", "session_settings", "prepare_report_dir"]
+
+
+@dataclass
+class RatesSession:
+    """Per-session state: settings, the marker reader, collected check records, built MDPs and the worker pool.
+
+    Registered as a plugin so that it sees every test report, including those a
+    pytest-xdist controller receives from its workers.
+    """
+
+    settings: RatesSettings
+    markers: MarkerReader = field(default_factory=MarkerReader)
+    records: list[CheckRecord] = field(default_factory=list)
+    built: dict[str, Any] = field(default_factory=dict)
+    _seen: dict[str, int] = field(default_factory=dict)
+    _executor: Executor | None = None
+
+    def executor(self) -> Executor | None:
+        """The session's process pool, created on first use when workers > 1."""
+        if self.settings.workers <= 1:
+            return None
+        if self._executor is None:
+            from concurrent.futures import ProcessPoolExecutor
+
+            self._executor = ProcessPoolExecutor(max_workers=self.settings.workers)
+        return self._executor
+
+    def build(self, member: SuiteMember) -> Any:
+        """The member's MDP; a standard member is built once per session."""
+        if not member.standard:
+            return member.build()
+        if member.name not in self.built:
+            self.built[member.name] = member.build()
+        return self.built[member.name]
+
+    def close(self) -> None:
+        if self._executor is not None:
+            self._executor.shutdown(wait=True, cancel_futures=True)
+            self._executor = None
+
+    def pytest_runtest_logreport(self, report: pytest.TestReport) -> None:
+        texts = [value for name, value in report.user_properties if name == PROPERTY_NAME]
+        already = self._seen.get(report.nodeid, 0)
+        if len(texts) <= already:
+            return
+        from .records import CheckRecord
+
+        for text in texts[already:]:
+            try:
+                self.records.append(CheckRecord.from_json(str(text)))
+            except (ValueError, TypeError):
+                continue  # someone else's property of the same name: not ours to summarise
+        self._seen[report.nodeid] = max(already, len(texts))
+
+
+_SESSION = pytest.StashKey[RatesSession]()
+
+
+def prepare_report_dir(directory: Path, controller: bool) -> None:
+    """Make sure the report directory is writable; on the controller, clear earlier sessions' checks."""
+    try:
+        directory.mkdir(parents=True, exist_ok=True)
+        probe = directory / f".rlrates-write-test-{os.getpid()}"
+        probe.write_text("")
+        probe.unlink()
+    except OSError as exc:
+        raise pytest.UsageError(
+            f"{REPORT_OPTION}: cannot write to the report directory {directory}: {exc.strerror or exc}"
+        ) from None
+    if not controller:
+        return
+    import shutil
+
+    for old in directory.iterdir():  # only folders this plugin wrote: they hold a check.json
+        if old.is_dir() and (old / "check.json").is_file():
+            shutil.rmtree(old)
+    for name in ("index.md", "index.tex"):
+        (directory / name).unlink(missing_ok=True)
+
+
+def start_session(config: pytest.Config) -> RatesSession:
+    """Resolve the settings, prepare the report directory, keep the session in the stash and register it."""
+    session = RatesSession(resolve_settings(config))
+    if session.settings.report_dir is not None:
+        prepare_report_dir(session.settings.report_dir, controller=not hasattr(config, "workerinput"))
+    config.stash[_SESSION] = session
+    config.pluginmanager.register(session, "rlrates-session")
+    return session
+
+
+def end_session(config: pytest.Config) -> None:
+    """Shut the worker pool down and unregister the session (if it started)."""
+    session = session_or_none(config)
+    if session is not None:
+        session.close()
+        if config.pluginmanager.is_registered(session):
+            config.pluginmanager.unregister(session)
+
+
+def session_of(config: pytest.Config) -> RatesSession:
+    """The session kept in the stash of ``config``."""
+    return config.stash[_SESSION]
+
+
+def session_or_none(config: pytest.Config) -> RatesSession | None:
+    """The session kept in the stash of ``config``, or ``None`` when it did not start (a usage error)."""
+    return config.stash.get(_SESSION, None)
+
+
+def session_settings(config: pytest.Config) -> RatesSettings:
+    """The resolved rlrates settings of a pytest session (for other plugins and conftest files)."""
+    return session_of(config).settings
