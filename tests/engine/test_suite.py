@@ -13,9 +13,10 @@ import pytest
 
 import rlrates
 from rlrates.profiles import PROFILES
-from rlrates.pytest_plugin import PROFILE_NAMES, PROPERTY_NAME, reproduce_command
-from rlrates.records import PROPERTY_NAME as RECORDS_PROPERTY_NAME
-from rlrates.records import CheckRecord, FitRecord, format_summary
+from rlrates.plugin.records import CheckRecord, format_summary
+from rlrates.plugin.runner import reproduce_command
+from rlrates.plugin.settings import PROFILE_NAMES
+from rlrates.result import Fit
 from rlrates.suite import STANDARD_SUITE, SuiteError, custom_members, member_names, select_members, suite_tags
 
 # --------------------------------------------------------------------------- suite
@@ -115,38 +116,48 @@ def test_bad_custom_mdps_are_named(mdps: object, pattern: str) -> None:
 # --------------------------------------------------------------------------- records
 
 
-def test_plugin_constants_match_the_modules_they_mirror() -> None:
+def test_profile_names_shown_by_help_are_the_profiles() -> None:
     assert PROFILE_NAMES == tuple(PROFILES)
-    assert PROPERTY_NAME == RECORDS_PROPERTY_NAME
 
 
-def _record(test: str, status: str, fits: tuple[FitRecord, ...], fired: tuple[str, ...] = ()) -> CheckRecord:
+def _fit(factor: str, exponent: float, low: float, high: float, claimed: float, verdict: str) -> Fit:
+    return Fit(factor=factor, exponent=exponent, se=0.02, low=low, high=high, low_level=0.99,  # type: ignore[arg-type]
+               high_level=0.95, claimed=claimed, tolerance=0.05, detectable=math.nan, verdict=verdict)  # type: ignore[arg-type]
+
+
+def _record(test: str, status: str, fits: tuple[Fit, ...], fired: tuple[str, ...] = ()) -> CheckRecord:
     return CheckRecord(test=test, status=status, target="q_pi", mdp="chain-S10-slip0.1", claim="error <~ n^-0.5",
                        fits=fits, fired=fired, seconds=0.25, seed=5, profile="quick", passes=1, calls=240)
 
 
 def test_record_from_a_result_survives_json_with_nan_as_null() -> None:
-    fits = pd.DataFrame([("n", -0.51, -0.56, -0.47, -0.5, "ok"), ("horizon", math.nan, math.nan, math.nan, 2.0, "unclear")],
-                        columns=["factor", "exponent", "low", "high", "claimed", "verdict"])
+    from types import SimpleNamespace
 
-    class Result:  # the attributes CheckRecord.from_result reads
-        status, target, mdp_name, fired, elapsed, seed, passes = "pass", "q_pi", "grid", ["floor"], 1.5, 3, 2
-        claim = rlrates.Claim(n=-0.5, horizon=2.0)
-        profile = PROFILES["quick"]
-        table = pd.DataFrame({"error": [0.1] * 7})
-
-    Result.fits = fits  # type: ignore[attr-defined]
-    record = CheckRecord.from_result(Result(), "t.py::t")  # type: ignore[arg-type]
+    fits = (_fit("n", -0.51, -0.56, -0.47, -0.5, "ok"), _fit("horizon", math.nan, math.nan, math.nan, 2.0, "unclear"))
+    result = SimpleNamespace(  # the attributes CheckRecord.from_result reads
+        status="pass", target="q_pi", mdp=SimpleNamespace(name="grid"), fired=("floor",), seed=3,
+        run=SimpleNamespace(elapsed=1.5, passes=2), claim=rlrates.Claim(n=-0.5, horizon=2.0),
+        profile=PROFILES["quick"], table=pd.DataFrame({"error": [0.1] * 7}), factors=fits,
+    )
+    record = CheckRecord.from_result(result, "t.py::t")  # type: ignore[arg-type]
     text = record.to_json()
     assert json.loads(text)["fits"][1]["exponent"] is None  # strict JSON: no NaN
-    assert CheckRecord.from_json(text) == record
-    assert record.calls == 7 and record.fired == ("floor",) and record.claim == "error <~ n^-0.5 * H^2"
+    again = CheckRecord.from_json(text)
+    assert again.to_json() == text and again.fits[0] == fits[0] and math.isnan(again.fits[1].exponent)
+    assert (record.calls, record.seconds, record.passes, record.mdp) == (7, 1.5, 2, "grid")
+    assert record.fired == ("floor",) and record.claim == "error <~ n^-0.5 * H^2"
+
+
+@pytest.mark.parametrize("text", ['["rlrates"]', '{"test": "t"}', '{"fits": [{"factor": "n"}]}', "not json"])
+def test_a_property_that_is_no_record_is_refused(text: str) -> None:
+    with pytest.raises((ValueError, TypeError)):
+        CheckRecord.from_json(text)
 
 
 def test_summary_lists_each_check_sorted_with_fits_and_a_tally() -> None:
-    ok = FitRecord("n", -0.516, -0.565, -0.466, -0.5, "ok")
-    bad = FitRecord("n", 0.013, -0.044, 0.048, -0.5, "violated")
-    flat = FitRecord("horizon", None, None, None, 2.0, "unclear")
+    ok = _fit("n", -0.516, -0.565, -0.466, -0.5, "ok")
+    bad = _fit("n", 0.013, -0.044, 0.048, -0.5, "violated")
+    flat = _fit("horizon", math.nan, math.nan, math.nan, 2.0, "unclear")
     lines = format_summary([
         _record("t.py::test_b", "fail", (bad, flat), ("floor", "rate")),
         _record("t.py::test_a", "pass", (ok,)),

@@ -24,7 +24,7 @@ if TYPE_CHECKING:  # pragma: no cover
     from ..claims import Claim
     from ..profiles import Profile
     from ..result import CheckResult
-    from ..vocabulary import Estimator
+    from ..sweep import Estimator
     from .records import CheckRecord
     from .session import RatesSession
 

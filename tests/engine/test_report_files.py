@@ -33,7 +33,7 @@ from rlrates.sampling import draw_block, mdp_kernel, stream_context
 from rlrates.targets import estimate_error, solve_truth
 
 TABLE_COLUMNS = ["gamma", "H", "n", "replicate", "error", "seconds"]
-REPO = Path(__file__).resolve().parents[1]
+REPO = Path(__file__).resolve().parents[2]
 
 
 # --------------------------------------------------------------------------- folder contents

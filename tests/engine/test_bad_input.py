@@ -20,7 +20,7 @@ import pytest
 import rlrates
 from rlrates import reference
 
-DOCS = Path(__file__).resolve().parents[1] / "docs" / "bad-input.md"
+DOCS = Path(__file__).resolve().parents[2] / "docs" / "bad-input.md"
 MDP = rlrates.garnet(states=6, actions=2, branching=3, seed=4)
 CLAIM = rlrates.Claim(n=-0.5)
 SMALL = {"n_grid": (128, 256, 512), "replicates": 4}
@@ -76,14 +76,14 @@ def _process_pool_with_a_lambda() -> None:
 
 
 def _report_dir_under_a_file() -> None:
-    from rlrates.pytest_plugin import _prepare_report_dir
+    from rlrates.plugin.session import prepare_report_dir
     import tempfile
 
     with tempfile.TemporaryDirectory() as tmp:
         blocker = Path(tmp) / "occupied"
         blocker.write_text("a file")
         try:
-            _prepare_report_dir(blocker / "reports", controller=True)
+            prepare_report_dir(blocker / "reports", controller=True)
         except pytest.UsageError as exc:
             raise ValueError(str(exc)) from None
 

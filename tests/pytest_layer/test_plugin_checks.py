@@ -1,0 +1,245 @@
+"""End-to-end tests of checks run through the ``rlrates`` fixture: verdicts, messages, reproducers, summary, xdist.
+
+Real inner pytest runs through ``pytester`` (see ``plugin_runs``); every inner
+check is seeded, so each verdict asserted here is deterministic.
+"""
+
+from __future__ import annotations
+
+import json
+import re
+import shlex
+import xml.etree.ElementTree as ET
+
+import pytest
+from plugin_runs import project  # noqa: F401  (a fixture)
+from plugin_runs import HEADER_LINE, failure_section, run_subprocess, seeded_lines, summary_lines
+
+
+# --------------------------------------------------------------------------- verdicts and messages
+
+
+VERDICT_TESTS = """
+import pytest
+import rlrates as rl
+from estimators import plug_in, first_32, squared_discount
+
+MDP = rl.garnet(10, 2, 3, seed=1)
+
+@pytest.mark.rlrates(n=-0.5)
+def test_plug_in(rlrates):
+    result = rlrates(plug_in, MDP, replicates=32)
+    assert result.passed and result.seed == 0
+
+def test_first_32(rlrates):
+    rlrates(first_32, MDP, rl.Claim(n=-0.5))
+
+@pytest.mark.rlrates(n=-0.5, horizon=2.0)
+def test_squared_discount(rlrates):
+    rlrates(squared_discount, MDP)
+"""
+
+
+def test_correct_estimator_passes_and_two_bugs_fail_with_reasons(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner_verdicts=VERDICT_TESTS)
+    result = project.runpytest("--strict-markers", "-W", "error", "--junitxml=junit.xml")
+    result.assert_outcomes(passed=1, failed=2)
+    output = result.stdout.str()
+    assert HEADER_LINE in output
+    assert "warning" not in output.lower()
+    first_32 = failure_section(output, "test_first_32")
+    assert first_32.lstrip().startswith("rlrates FAIL (")
+    assert "error floor: over the largest n the error stops falling at gamma=" in first_32
+    assert "reproduce: pytest test_inner_verdicts.py::test_first_32 --rlrates-seed=0 --rlrates-profile=quick" in first_32
+    squared = failure_section(output, "test_squared_discount")
+    assert squared.lstrip().startswith("rlrates FAIL (")
+    assert "claimed:   error <~ n^-0.5 * H^2" in squared
+    assert "Traceback" not in first_32 + squared  # pytrace=False: the message only
+    summary = summary_lines(output)
+    assert summary[0].split() == ["verdict", "seconds", "target", "mdp", "test"]
+    heads = [line.split() for line in summary if "test_inner_verdicts.py::" in line]
+    assert [(h[0], h[-1]) for h in heads] == [
+        ("FAIL", "test_inner_verdicts.py::test_first_32"),
+        ("PASS", "test_inner_verdicts.py::test_plug_in"),
+        ("FAIL", "test_inner_verdicts.py::test_squared_discount"),
+    ]
+    assert "3 check(s): 1 pass, 2 fail;" in output
+    # the same records reach JUnit XML as properties
+    properties = {
+        case.get("name"): json.loads(prop.get("value", "{}"))
+        for case in ET.parse(project.path / "junit.xml").getroot().iter("testcase")
+        for prop in case.iter("property") if prop.get("name") == "rlrates"
+    }
+    assert {name: record["status"] for name, record in properties.items()} == {
+        "test_plug_in": "pass", "test_first_32": "fail", "test_squared_discount": "fail",
+    }
+    assert {f["factor"] for f in properties["test_squared_discount"]["fits"]} == {"n", "horizon"}
+
+
+def test_printed_reproducer_reruns_the_same_check(project: pytest.Pytester, monkeypatch: pytest.MonkeyPatch) -> None:
+    project.makeini("[pytest]\n")
+    sub = project.mkpydir("sub")
+    (sub / "test_inner_repro.py").write_text(
+        "import pytest\n"
+        "from estimators import first_32, plug_in\n"
+        "@pytest.mark.rlrates(n=-0.5, suite=['garnet-S10-A2-b3', 'chain'])\n"
+        "def test_repro(rlrates, rlrates_mdp):\n"
+        "    rlrates(plug_in, rlrates_mdp, replicates=32)\n"
+        "    rlrates(first_32, rlrates_mdp)\n"
+    )
+    monkeypatch.chdir(sub)  # invoked from a subdirectory of the rootdir: the command must say test_inner_repro.py
+    monkeypatch.syspath_prepend(project.path)
+    first = project.runpytest("--rlrates-seed=7")
+    first.assert_outcomes(failed=2)
+    output = first.stdout.str()
+    commands = re.findall(r"^reproduce: (pytest .+)$", output, re.M)
+    assert commands == [
+        "pytest 'test_inner_repro.py::test_repro[garnet-S10-A2-b3]' --rlrates-seed=7 --rlrates-profile=quick",
+        "pytest 'test_inner_repro.py::test_repro[chain]' --rlrates-seed=7 --rlrates-profile=quick",
+    ]
+    message = failure_section(output, "test_repro[garnet-S10-A2-b3]")
+    again = project.runpytest(*shlex.split(commands[0])[1:])
+    again.assert_outcomes(failed=1)
+    rerun = failure_section(again.stdout.str(), "test_repro[garnet-S10-A2-b3]")
+    assert seeded_lines(rerun) == seeded_lines(message)
+    assert "mean error by n:" in rerun
+    # and the seed matters: another master seed gives other numbers (same verdict)
+    other = project.runpytest(*shlex.split(commands[0].replace("seed=7", "seed=8"))[1:])
+    other_message = failure_section(other.stdout.str(), "test_repro[garnet-S10-A2-b3]")
+    assert other_message.lstrip().startswith("rlrates FAIL (")
+    assert seeded_lines(other_message) != seeded_lines(message)
+
+
+def test_estimator_exception_fails_with_its_traceback_and_the_cell(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner_raises="""
+        import pytest
+        import rlrates as rl
+        from estimators import breaks_at_512
+
+        @pytest.mark.rlrates(n=-0.5)
+        def test_breaks(rlrates):
+            rlrates(breaks_at_512, rl.garnet(10, 2, 3, seed=1))
+    """)
+    result = project.runpytest()
+    result.assert_outcomes(failed=1)
+    section = failure_section(result.stdout.str(), "test_breaks")
+    assert section.lstrip().startswith("rlrates ERROR (the estimator failed)")
+    assert "the estimator raised at gamma=0.5, n=512, replicate=0: RuntimeError: scratch buffer sized for 256" in section
+    assert "estimator traceback:" in section
+    assert re.search(r'File ".*estimators\.py", line \d+, in breaks_at_512', section)
+    assert "ERROR" in summary_lines(result.stdout.str())[1]
+
+
+INCONCLUSIVE_TESTS = """
+import pytest
+import rlrates as rl
+from estimators import very_noisy
+
+TINY = rl.Profile(name="tiny", n_grid=(256, 512, 1024), gammas=(0.5, 0.75), replicates=4,
+                       more_replicates=1, n_doublings=0)
+
+@pytest.mark.rlrates(n=-0.5, profile=TINY)
+def test_noisy(rlrates):
+    rlrates(very_noisy, rl.garnet(10, 2, 3, seed=1))
+"""
+
+
+def test_inconclusive_fails_by_default_and_can_skip_but_never_pass(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner_noisy=INCONCLUSIVE_TESTS)
+    default = project.runpytest()
+    default.assert_outcomes(failed=1)
+    assert failure_section(default.stdout.str(), "test_noisy").lstrip().startswith("rlrates INCONCLUSIVE")
+    for flags in (["--rlrates-inconclusive=skip"], ["-o", "rlrates_inconclusive=skip"]):
+        skipped = project.runpytest("-rs", *flags)
+        skipped.assert_outcomes(skipped=1)
+        skipped.stdout.fnmatch_lines([
+            "SKIPPED *rlrates inconclusive within the 'tiny' budget: target q_pi on garnet-S10-A2-b3-seed1 (n *, claimed <= -0.5: *",
+        ])
+        assert "INCONCLUSIVE" in summary_lines(skipped.stdout.str())[1]
+        assert "inconclusive checks skip" in skipped.stdout.str()
+    explicit = project.runpytest("--rlrates-inconclusive=fail", "-o", "rlrates_inconclusive=skip")
+    explicit.assert_outcomes(failed=1)  # the command line beats the ini key
+
+
+def test_missing_claim_and_session_owned_options_fail_before_the_estimator(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner_misuse="""
+        import rlrates as rl
+        from estimators import leaves_a_trace
+
+        def test_no_claim(rlrates):
+            rlrates(leaves_a_trace, rl.garnet(10, 2, 3))
+
+        def test_own_seed(rlrates):
+            rlrates(leaves_a_trace, rl.garnet(10, 2, 3), rl.Claim(), seed=3)
+
+        def test_bad_target(rlrates):
+            rlrates(leaves_a_trace, rl.garnet(10, 2, 3), rl.Claim(), target="v")
+    """)
+    result = project.runpytest()
+    result.assert_outcomes(failed=3)
+    assert "exception occurred" not in result.stdout.str()
+    result.stdout.fnmatch_lines([
+        "*rlrates: no claim to check in test_inner_misuse.py::test_no_claim; pass one to the fixture*",
+        "*rlrates: `seed` is set by the session and cannot be passed to the fixture in test_inner_misuse.py::test_own_seed*",
+        "*rlrates: the check in test_inner_misuse.py::test_bad_target could not run: ValueError: unknown `target` 'v'*",
+    ])
+    assert not (project.path / "estimator-ran.txt").exists()
+
+
+XDIST_TESTS = """
+import pytest
+import rlrates
+from estimators import first_32, plug_in
+
+@pytest.mark.rlrates(n=-0.5, suite=["garnet-S10-A2-b3", "chain"])
+def test_plug_in(rlrates, rlrates_mdp, record_property, worker_id):
+    record_property("worker", worker_id)
+    rlrates(plug_in, rlrates_mdp, replicates=32)
+
+@pytest.mark.rlrates(n=-0.5, suite=["garnet-S10-A2-b3", "chain"])
+def test_first_32(rlrates, rlrates_mdp, record_property, worker_id):
+    record_property("worker", worker_id)
+    rlrates(first_32, rlrates_mdp)
+"""
+
+
+def test_xdist_gives_the_same_verdicts_numbers_and_summary(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner_spread=XDIST_TESTS)
+    # A drawn seed, so that only the controller's hand-over can make the workers agree. The
+    # assertions below hold for any seed: both runs must agree, and a subsampler that stops at
+    # 32 samples fails at every seed (its error does not fall at all).
+    spread = run_subprocess(project, "-n", "2", "--rlrates-seed=random", "--junitxml=junit.xml")
+    header = re.search(r"rlrates: profile quick, master seed (\d+) \(rerun with --rlrates-seed=\1\)", spread.stdout.str())
+    assert header, spread.stdout.str()
+    seed = int(header.group(1))
+    # the controller's seed reached both workers
+    cases = list(ET.parse(project.path / "junit.xml").getroot().iter("testcase"))
+    props = [{p.get("name"): p.get("value") for p in case.iter("property")} for case in cases]
+    assert {p["worker"] for p in props} == {"gw0", "gw1"}
+    assert {json.loads(str(p["rlrates"]))["seed"] for p in props} == {seed}
+    # one process, same seed: same verdicts, same numbers, same summary
+    single = project.runpytest(f"--rlrates-seed={seed}")
+    outcomes = {k: v for k, v in single.parseoutcomes().items() if k in ("passed", "failed")}
+    assert outcomes == {k: v for k, v in spread.parseoutcomes().items() if k in ("passed", "failed")}
+    assert sum(outcomes.values()) == 4
+    single.stdout.fnmatch_lines(["FAILED *test_first_32[[]garnet-S10-A2-b3[]]*", "FAILED *test_first_32[[]chain[]]*"])
+    assert summary_lines(single.stdout.str()) == summary_lines(spread.stdout.str())
+    for test in ("test_first_32[garnet-S10-A2-b3]", "test_first_32[chain]"):
+        assert seeded_lines(failure_section(single.stdout.str(), test)) == seeded_lines(failure_section(spread.stdout.str(), test))
+
+
+def test_worker_processes_do_not_change_thenumbers(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner_pool="""
+        import pytest
+        import rlrates
+        from estimators import first_32
+
+        @pytest.mark.rlrates(n=-0.5, suite=["garnet-S10-A2-b3"])
+        def test_pool(rlrates, rlrates_mdp):
+            rlrates(first_32, rlrates_mdp)
+    """)
+    alone = project.runpytest()
+    pooled = project.runpytest("--rlrates-workers=2")
+    assert "2 worker processes per check" in pooled.stdout.str()
+    name = "test_pool[garnet-S10-A2-b3]"
+    assert seeded_lines(failure_section(pooled.stdout.str(), name)) == seeded_lines(failure_section(alone.stdout.str(), name))
