@@ -1,6 +1,6 @@
 """Tests of the report figures: drawn from the check's record and table, never refitted.
 
-Real checks come from tests/report_checks.py; the hand-made cases are power laws
+Real checks come from tests/engine/report_checks.py and conftest.py; the hand-made cases are power laws
 (error = 3 n^-1/2 H^3/2, two equal replicates per cell), whose means are exact.
 """
 
@@ -16,7 +16,7 @@ import pytest
 from matplotlib.colors import to_hex
 from matplotlib.lines import Line2D
 from matplotlib.text import Text
-from report_checks import FAIL_ID, PASS_ID, failing, garnet, passing  # noqa: F401 (fixtures)
+from report_checks import FAIL_ID, PASS_ID
 
 import rlrates
 from rlrates import CheckResult, RatesWarning, reference

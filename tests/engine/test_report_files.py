@@ -1,7 +1,7 @@
 """Tests of check folders: the raw table, check.json and its provenance, atomic writes, corrupt folders.
 
 Check results and report directories come from real quick-profile checks
-(tests/report_checks.py), computed once per module; every test that edits files
+(tests/engine/report_checks.py and conftest.py), computed once per module; every test that edits files
 works on its own folder. The index, rebuilding and the command line are tested
 in test_report_index.py, the figures in test_report_figures.py.
 """
@@ -21,9 +21,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 import pytest
-from report_checks import (  # noqa: F401 (fixtures)
-    ERROR_ID, FAIL_ID, PASS_ID, erroring, failing, garnet, load, passing, session, tables_only, truncate_json,
-)
+from report_checks import ERROR_ID, FAIL_ID, PASS_ID, load, truncate_json
 
 import rlrates
 from rlrates import CheckResult, reference, report

@@ -1,6 +1,6 @@
 """Tests of a report directory's session index (index.md, index.tex), of rebuilding it, and of the command line.
 
-The report directories come from tests/report_checks.py.
+The report directories come from tests/engine/report_checks.py and conftest.py.
 """
 
 from __future__ import annotations
@@ -12,9 +12,7 @@ import sys
 from pathlib import Path
 
 import pytest
-from report_checks import (  # noqa: F401 (fixtures)
-    ERROR_ID, FAIL_ID, PASS_ID, copy, erroring, failing, garnet, passing, session, tables_only, truncate_json,
-)
+from report_checks import ERROR_ID, FAIL_ID, PASS_ID, truncate_json
 
 from rlrates import CheckResult
 from rlrates.__main__ import main

@@ -1,4 +1,4 @@
-"""Shared parts of the end-to-end tests of the pytest layer: the inner estimators, the project, output readers.
+"""Shared parts of the end-to-end tests of the pytest layer: the inner estimators and output readers (the `project` fixture is in conftest.py).
 
 Every inner check is seeded (master seed + test id), so each verdict asserted in
 the ``test_plugin_*`` modules is deterministic. The inner MDPs are small (10
@@ -16,7 +16,7 @@ import pytest
 
 import rlrates.rate_check  # noqa: F401  (loads numpy, scipy, pandas before pytester snapshots sys.modules)
 
-__all__ = ["ESTIMATORS", "HEADER_LINE", "project", "failure_section", "seeded_lines", "summary_lines", "run_subprocess"]
+__all__ = ["ESTIMATORS", "HEADER_LINE", "failure_section", "seeded_lines", "summary_lines", "run_subprocess"]
 
 # The inner projects' estimators: vectorised numpy, each one a common kind of bug or its fix.
 ESTIMATORS = '''
@@ -72,20 +72,6 @@ def leaves_a_trace(batch, problem):
 HEADER_LINE = "rlrates: profile quick, master seed 0 (rerun with --rlrates-seed=0)"
 
 
-@pytest.fixture
-def project(pytester: pytest.Pytester, monkeypatch: pytest.MonkeyPatch) -> pytest.Pytester:
-    """A pytester project with the inner estimators importable as ``estimators``.
-
-    Inner runs leave out Hypothesis's plugin: its terminal summary would import
-    Hypothesis afresh in every in-process run (pytester restores sys.modules).
-    They also run as outside CI: with ``CI`` set, pytest prints each failure message
-    a second time in the short summary, which would double every line counted here.
-    """
-    monkeypatch.setenv("PYTEST_ADDOPTS", "-p no:hypothesispytest")
-    monkeypatch.delenv("CI", raising=False)
-    monkeypatch.delenv("BUILD_NUMBER", raising=False)
-    pytester.makepyfile(estimators=ESTIMATORS)
-    return pytester
 
 
 def failure_section(output: str, test_name: str) -> str:

@@ -29,6 +29,19 @@ def test_ci_runs_exactly_the_readme_set_up_commands() -> None:
         assert command in ci_lines, command
 
 
+def test_the_readme_main_job_can_run_again_over_its_own_report_folder() -> None:
+    """pytest finds its rootdir before plugins register their options, so a space-separated value
+    (``--rlrates-report rlrates-report``) that names an existing folder is taken for a test path and
+    moves the rootdir away from the example project. The README must pass it as one token."""
+    main_job = _readme_commands()[0].split("&& ")[-1].split()
+    pytest_args = main_job[main_job.index("pytest") + 1:]
+    (ROOT / "rlrates-report").mkdir(exist_ok=True)  # the folder a first run leaves (git-ignored)
+    run = subprocess.run([sys.executable, "-m", "pytest", *pytest_args, "--collect-only", "-q", "-p", "no:cacheprovider"],
+                         cwd=ROOT, capture_output=True, text=True, timeout=120)
+    assert run.returncode == 0, run.stdout + run.stderr
+    assert "13 tests collected" in run.stdout, run.stdout
+
+
 @pytest.fixture(scope="module")
 def report(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, subprocess.CompletedProcess[str]]:
     directory = tmp_path_factory.mktemp("report")

@@ -12,7 +12,6 @@ import shlex
 import xml.etree.ElementTree as ET
 
 import pytest
-from plugin_runs import project  # noqa: F401  (a fixture)
 from plugin_runs import HEADER_LINE, failure_section, run_subprocess, seeded_lines, summary_lines
 
 

@@ -6,7 +6,6 @@ End-to-end parts are real inner pytest runs through ``pytester`` (see ``plugin_r
 from __future__ import annotations
 
 import pytest
-from plugin_runs import project  # noqa: F401  (a fixture)
 from plugin_runs import run_subprocess
 
 from rlrates.claims import Claim

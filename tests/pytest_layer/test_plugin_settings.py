@@ -10,7 +10,6 @@ import subprocess
 import sys
 
 import pytest
-from plugin_runs import project  # noqa: F401  (a fixture)
 from plugin_runs import run_subprocess
 
 
@@ -88,3 +87,20 @@ def test_disabling_the_plugin_leaves_other_tests_alone(project: pytest.Pytester)
     run.assert_outcomes(passed=1)
     assert "rlrates" not in run.stdout.str()
 
+
+
+# --------------------------------------------------------------------------- projects with nested conftest files
+
+
+def test_a_project_with_nested_conftest_files_runs(project: pytest.Pytester) -> None:
+    """pytest hashes registered plugins when it hides a subfolder's conftest from other folders
+    (pluggy's subset_hook_caller); the session object must be hashable (by identity) for that."""
+    project.mkpydir("lab")
+    project.path.joinpath("lab", "conftest.py").write_text("import pytest\n\n@pytest.fixture\ndef lab_seed():\n    return 1\n")
+    project.path.joinpath("lab", "test_lab.py").write_text("def test_uses_lab(lab_seed):\n    assert lab_seed == 1\n")
+    project.mkpydir("other")
+    project.path.joinpath("other", "test_other.py").write_text("def test_plain():\n    pass\n")
+    result = project.runpytest("-p", "no:cacheprovider")
+    result.assert_outcomes(passed=2)
+    xdist = run_subprocess(project, "-n", "2", "-p", "no:cacheprovider")
+    assert xdist.ret == 0, xdist.stdout.str()

@@ -30,7 +30,7 @@ if TYPE_CHECKING:  # pragma: no cover
 __all__ = ["RatesSession", "start_session", "end_session", "session_of", "session_or_none", "session_settings", "prepare_report_dir"]
 
 
-@dataclass
+@dataclass(eq=False)  # hashed by identity: pytest puts registered plugins in sets
 class RatesSession:
     """Per-session state: settings, the marker reader, collected check records, built MDPs and the worker pool.
 
