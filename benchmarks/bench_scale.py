@@ -1,15 +1,15 @@
-"""Scaling out: a full-profile check serial vs a process pool, memory at S=500, and the plugin's own overhead.
+"""Scaling out: a appendix-budget check serial vs a process pool, memory at S=500, and the plugin's own overhead.
 
     python benchmarks/bench_scale.py                 # overhead + serial vs process pool
-    python benchmarks/bench_scale.py --large         # also the S=500 full check with peak memory
+    python benchmarks/bench_scale.py --large         # also the S=500 appendix-budget check with peak memory
     python benchmarks/bench_scale.py --states 300 --workers 2
 
 Three measurements, printed as one table at the end:
 
-1. **Overhead**: a quick check of ``reference.plugin_q_pi`` on garnet(20, 4, 5), best of 3;
+1. **Overhead**: a ci-budget check of ``reference.plugin_q_pi`` on garnet(20, 4, 5), best of 3;
    the plugin's own work is ``elapsed - estimator_seconds`` (sampling, exact solves,
    fits, verdict), shown as a fraction of the check's wall time.
-2. **Process pool**: one full-profile check (5 discounts x 7 sample sizes x 48
+2. **Process pool**: one appendix-budget check (5 discounts x 7 sample sizes x 48
    replicates) of ``reference.plugin_q_pi`` on garnet(S, 4, 10), S = 400 by default
    (about 10 s or more serially), once serially and once with
    ``ProcessPoolExecutor(workers)``, twice: with a cold pool (its workers import numpy,
@@ -20,7 +20,7 @@ Three measurements, printed as one table at the end:
    process's, and the workers' without their start-up imports): on a busy machine the
    wall-clock speed-up says more about the neighbours than about the pool, while
    ``serial CPU / max(main CPU, workers' CPU / workers)`` estimates the speed-up on free cores.
-3. **Large** (``--large``, a minute or more): the same full check on garnet(500, 4, 10),
+3. **Large** (``--large``, a minute or more): the same appendix-budget check on garnet(500, 4, 10),
    serially, with the peak of traced allocations (``tracemalloc``) and the process's
    peak resident size (``resource.getrusage``). The estimator reads only
    ``batch.counts``; a wrapper counts the batches whose (S, A, n) ``next_states``
@@ -120,7 +120,7 @@ def overhead() -> list[tuple[str, str]]:
     best = min((rlrates.check(reference.plugin_q_pi, mdp, CLAIM, seed=s) for s in range(3)), key=lambda r: r.elapsed)
     own = best.elapsed - best.estimator_seconds
     return [
-        ("quick check, garnet(20, 4, 5): wall s", f"{best.elapsed:.3f}"),
+        ("ci-budget check, garnet(20, 4, 5): wall s", f"{best.elapsed:.3f}"),
         ("  estimator s / calls", f"{best.estimator_seconds:.3f} / {len(best.table)}"),
         ("  plugin's own work s (fraction of wall)", f"{own:.3f} ({own / best.elapsed:.0%})"),
     ]
@@ -141,12 +141,12 @@ def _warm_pool(workers: int) -> ProcessPoolExecutor:
 def process_pool(states: int, workers: int) -> list[tuple[str, str]]:
     mdp = rlrates.garnet(states=states, actions=4, branching=10, seed=0)
     started, cpu = time.perf_counter(), time.process_time()
-    serial = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, profile="full", seed=0)
+    serial = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, budget="appendix", seed=0)
     serial_wall, serial_cpu = time.perf_counter() - started, time.process_time() - cpu
     # cold: a fresh pool whose workers import everything while the check runs
     started = time.perf_counter()
     with ProcessPoolExecutor(max_workers=workers) as pool:
-        cold = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, profile="full", seed=0, executor=pool)
+        cold = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, budget="appendix", seed=0, executor=pool)
         cold_wall = time.perf_counter() - started
     # the CPU a warm pool's start-up costs (imports), to subtract below
     before = _children_cpu()
@@ -158,7 +158,7 @@ def process_pool(states: int, workers: int) -> list[tuple[str, str]]:
     with _warm_pool(workers) as pool:
         spawn = time.perf_counter() - spawn_started
         started, cpu = time.perf_counter(), time.process_time()
-        parallel = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, profile="full", seed=0, executor=pool)
+        parallel = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, budget="appendix", seed=0, executor=pool)
         parallel_wall, main_cpu = time.perf_counter() - started, time.process_time() - cpu
     workers_cpu = _children_cpu() - before - startup_cpu
     pd.testing.assert_frame_equal(_numbers(serial), _numbers(cold), check_exact=True)
@@ -168,7 +168,7 @@ def process_pool(states: int, workers: int) -> list[tuple[str, str]]:
     # if every process had a core of its own, the slowest of (main process, a worker) would set the pace
     free_cores = serial_cpu / max(main_cpu, workers_cpu / workers)
     return [
-        (f"full check, garnet({states}, 4, 10): calls / cells", f"{len(serial.table)} / {cells} (status {serial.status})"),
+        (f"appendix-budget check, garnet({states}, 4, 10): calls / cells", f"{len(serial.table)} / {cells} (status {serial.status})"),
         ("  serial: wall s, CPU s (estimator s)", f"{serial_wall:.2f}, {serial_cpu:.2f} ({serial.estimator_seconds:.2f})"),
         (f"  ProcessPoolExecutor({workers}), cold pool: wall s", f"{cold_wall:.2f} (speed-up {serial_wall / cold_wall:.2f}x)"),
         (f"  ProcessPoolExecutor({workers}), warm pool: wall s", f"{parallel_wall:.2f} (+ {spawn:.2f} start-up and imports)"),
@@ -185,7 +185,7 @@ def large(states: int) -> list[tuple[str, str]]:
     estimator = CountingEstimator()
     tracemalloc.start()
     started = time.perf_counter()
-    result = rlrates.check(estimator, mdp, CLAIM, profile="full", seed=0)
+    result = rlrates.check(estimator, mdp, CLAIM, budget="appendix", seed=0)
     wall = time.perf_counter() - started
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
@@ -194,7 +194,7 @@ def large(states: int) -> list[tuple[str, str]]:
     assert estimator.built == 0, f"{estimator.built} batches built next_states"
     one_view = states * 4 * max(result.table["n"]) * 8 / 1e6
     return [
-        (f"full check, garnet({states}, 4, 10): wall s (estimator s)", f"{wall:.1f} ({result.estimator_seconds:.1f}), status {result.status}"),
+        (f"appendix-budget check, garnet({states}, 4, 10): wall s (estimator s)", f"{wall:.1f} ({result.estimator_seconds:.1f}), status {result.status}"),
         ("  peak traced allocations MB (tracemalloc)", f"{peak / 1e6:.0f}"),
         ("  peak resident size MB (ru_maxrss, whole process)", f"{rss_mb:.0f}"),
         ("  calls / batches that built next_states", f"{estimator.calls} / {estimator.built}"),
@@ -206,7 +206,7 @@ def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--states", type=int, default=400, help="garnet size for the serial vs pool run (default 400)")
     parser.add_argument("--workers", type=int, default=2, help="process-pool workers (default 2)")
-    parser.add_argument("--large", action="store_true", help="also run the S=500 full check with peak memory")
+    parser.add_argument("--large", action="store_true", help="also run the S=500 appendix-budget check with peak memory")
     parser.add_argument("--large-states", type=int, default=500, help="garnet size for --large (default 500)")
     args = parser.parse_args(argv)
     rows = overhead()

@@ -1,6 +1,6 @@
 """Calibration: how often is a check wrong? Runs the zoo under many master seeds.
 
-    python benchmarks/calibrate.py --seeds 300 --slow-seeds 40 --profile quick --workers 2 \
+    python benchmarks/calibrate.py --seeds 300 --slow-seeds 40 --budget ci --workers 2 \
         --markdown docs/calibration.md
 
 For every zoo member (tests/engine/zoo.py) and master seed it runs one whole check and
@@ -29,10 +29,10 @@ import zoo  # noqa: E402
 
 
 def _run(job: tuple[int, int, str]) -> tuple[int, str, float]:
-    index, seed, profile = job
+    index, seed, budget = job
     member = zoo.members()[index]
     started = time.perf_counter()
-    result = rlrates.check(member.estimator, member.mdp, member.claim, target=member.target, profile=profile, seed=seed)
+    result = rlrates.check(member.estimator, member.mdp, member.claim, target=member.target, budget=budget, seed=seed)
     return index, result.status, time.perf_counter() - started
 
 
@@ -43,10 +43,10 @@ def _interval(k: int, n: int) -> str:
     return f"{k / n:.3f} [{ci.low:.3f}, {ci.high:.3f}]"
 
 
-def calibrate(seeds: int, slow_seeds: int, profile: str, workers: int) -> pd.DataFrame:
+def calibrate(seeds: int, slow_seeds: int, budget: str, workers: int) -> pd.DataFrame:
     members = zoo.members()
     jobs = [
-        (i, seed, profile)
+        (i, seed, budget)
         for i, member in enumerate(members)
         for seed in range(slow_seeds if member.slow else seeds)
     ]
@@ -82,19 +82,19 @@ def main() -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seeds", type=int, default=50, help="master seeds per fast member")
     parser.add_argument("--slow-seeds", type=int, default=10, help="master seeds per slow (Q-learning) member")
-    parser.add_argument("--profile", default="quick", choices=sorted(rlrates.PROFILES))
+    parser.add_argument("--budget", default="ci", choices=sorted(rlrates.BUDGETS))
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--markdown", type=Path, help="also write the table as Markdown here")
     args = parser.parse_args()
     started = time.perf_counter()
-    table = calibrate(args.seeds, args.slow_seeds, args.profile, args.workers)
+    table = calibrate(args.seeds, args.slow_seeds, args.budget, args.workers)
     correct = table[table["expected"] == "pass"]
     broken = table[table["expected"] == "fail"]
     detection = broken["fails"] / broken["checks"]
     weakest = broken.loc[detection.idxmin(), "member"]
     total = int(table["checks"].sum())
     summary = [
-        f"profile {args.profile}: {total} checks in {time.perf_counter() - started:.0f} s on {args.workers} worker(s)",
+        f"budget {args.budget}: {total} checks in {time.perf_counter() - started:.0f} s on {args.workers} worker(s)",
         f"false alarms on correct estimators: {_interval(int(correct['fails'].sum()), int(correct['checks'].sum()))}",
         f"lowest detection rate on broken estimators: {detection.min():.3f} ({weakest})",
         f"inconclusive share over all checks: {_interval(int(table['inconclusives'].sum()), total)}",

@@ -37,8 +37,8 @@ _EXPORTS: dict[str, str] = {
     "draw": "sampling",
     "Batch": "sampling",
     "Claim": "claims",
-    "Profile": "profiles",
-    "PROFILES": "profiles",
+    "Budget": "budgets",
+    "BUDGETS": "budgets",
     "Problem": "targets",
     "check": "rate_check",
     "RatesWarning": "rate_check",
@@ -77,8 +77,8 @@ if TYPE_CHECKING:  # pragma: no cover  (explicit re-exports for type checkers)
     from .gym_import import from_gymnasium as from_gymnasium
     from .mdp import RewardRangeWarning as RewardRangeWarning
     from .mdp import TabularMDP as TabularMDP
-    from .profiles import PROFILES as PROFILES
-    from .profiles import Profile as Profile
+    from .budgets import BUDGETS as BUDGETS
+    from .budgets import Budget as Budget
     from .sampling import Batch as Batch
     from .sampling import draw as draw
     from .storage import load_mdp as load_mdp

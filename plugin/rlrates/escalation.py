@@ -1,8 +1,8 @@
 """Escalation: what a check runs next when a pass leaves the verdict ambiguous.
 
-Passes: the profile's grid first; then, when the intervals are too wide, more
+Passes: the budget's grid first; then, when the intervals are too wide, more
 replicates for every cell (once), and when the curve is not yet asymptotic, one
-doubling of the largest n per pass, up to the profile's budget. Either step is
+doubling of the largest n per pass, up to the budget's escalation allowance. Either step is
 taken when the other is spent. Only when both are spent is the answer
 "inconclusive". A frozen :class:`Escalation` is the state between passes;
 :meth:`Escalation.next` gives the next state and the cells it adds.
@@ -12,7 +12,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, replace
 
-from .profiles import Profile
+from .budgets import Budget
 from .vocabulary import Need
 
 __all__ = ["Escalation", "Step"]
@@ -29,17 +29,17 @@ class Step:
 
 @dataclass(frozen=True)
 class Escalation:
-    """The sweep so far (its n values and replicates) and the escalation budget left."""
+    """The sweep so far (its n values and replicates) and the escalation allowance left."""
 
     n_values: tuple[int, ...]
     replicates: int
-    more_replicates: int  # factor of the replicate step; 1 once spent (or when the profile skips it)
+    more_replicates: int  # factor of the replicate step; 1 once spent (or when the budget skips it)
     doublings_left: int
 
     @classmethod
-    def start(cls, profile: Profile) -> tuple["Escalation", Step]:
-        """The first pass: the profile's grid at its replicates."""
-        state = cls(tuple(profile.n_grid), profile.replicates, profile.more_replicates, profile.n_doublings)
+    def start(cls, budget: Budget) -> tuple["Escalation", Step]:
+        """The first pass: the budget's grid at its replicates."""
+        state = cls(tuple(budget.n_grid), budget.replicates, budget.more_replicates, budget.n_doublings)
         return state, Step(state.n_values, 0, state.replicates)
 
     def next(self, need: Need | None) -> tuple["Escalation", Step] | None:

@@ -6,9 +6,9 @@ and Berger, Statistical Inference, 2nd ed., section 5.5.4). A slope is the
 ordinary least-squares slope of log(mean error) on log(n) (or log(H)); being a
 fixed linear combination ``sum_j w_j log m_j`` of independent cells, its
 variance is ``sum_j w_j^2 se_j^2``. The interval therefore measures replicate
-noise only; it does not shrink or widen with the curvature of the profile, which
+noise only; it does not shrink or widen with the curvature of the error curve, which
 is what makes it usable for a verdict (residual-based t-intervals treat
-curvature as noise and lose power on curved profiles).
+curvature as noise and lose power on curved error curves).
 """
 
 from __future__ import annotations

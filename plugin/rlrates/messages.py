@@ -27,7 +27,7 @@ def headline(result: CheckResult) -> str:
         why = ", ".join(_REASON_NAMES.get(f, f) for f in result.fired)
         status += f" ({why})"
     elif result.status == "inconclusive":
-        status += " (undecided within the profile's budget)"
+        status += " (undecided within the budget's escalation allowance)"
     elif result.status == "error":
         status += " (the estimator failed)"
     return f"rlrates {status}: target {result.target} on {result.mdp.name}"
@@ -83,7 +83,7 @@ def format_message(result: CheckResult) -> str:
         lines.append("mean error by n:")
         lines.extend("    " + line for line in grid.to_string(float_format=lambda v: f"{v:.4g}").splitlines())
     lines.append(
-        f"profile:   {result.profile.name}, {result.run.passes} pass(es), {len(result.table)} estimator calls, "
+        f"budget:   {result.budget.name}, {result.run.passes} pass(es), {len(result.table)} estimator calls, "
         f"{result.run.elapsed:.2f} s ({result.run.estimator_seconds:.2f} s in the estimator)"
     )
     lines.append("evidence under idealised assumptions (generative model, known rewards), not a proof")

@@ -2,7 +2,7 @@
 
 The check is a list of named steps: validate the call, solve the exact answer
 per discount, plan the cells (:class:`rlrates.sweep.SweepPlan`), run passes
-until the verdict is decided or the escalation budget is spent
+until the verdict is decided or the escalation allowance is spent
 (:mod:`rlrates.escalation`), then assemble the frozen result and render its
 message once. Every cell's stream is rebuilt from (master seed, context, MDP
 fingerprint, gamma, n, replicate block), so escalation reuses what was computed
@@ -29,7 +29,7 @@ from .families import rebuild_call
 from .fitting import summarise_cells
 from .mdp import TabularMDP
 from .messages import format_message
-from .profiles import Profile, resolve_profile
+from .budgets import Budget, resolve_budget
 from .result import Block, CellFailure, CheckInterrupted, CheckResult, Evidence, MDPDescription, RunInfo
 from .sampling import SupportKernel, mdp_kernel
 from .sweep import Estimator, SweepPlan, blocks_of, run_sweep
@@ -97,7 +97,7 @@ class _Call:
     target: str
     norm: str
     seed: int
-    design: Profile
+    design: Budget
     time_limit: float | None
 
 
@@ -119,7 +119,7 @@ def check(
     claim: Claim,
     target: str = "q_pi",
     policy: Any = None,
-    profile: str | Profile = "quick",
+    budget: str | Budget = "ci",
     seed: int = 0,
     executor: Executor | None = None,
     *,
@@ -138,7 +138,7 @@ def check(
     replicates; the n- and H-exponents of its mean error are fitted with
     confidence bounds from the replicates, and the claim is decided. When the
     evidence is ambiguous the check spends more replicates and larger n within
-    the profile's budget before answering "inconclusive".
+    the budget's escalation allowance before answering "inconclusive".
 
     Parameters
     ----------
@@ -157,8 +157,8 @@ def check(
         What the estimator estimates.
     policy : array_like, optional
         (S, A) row-stochastic evaluation policy for "q_pi" (default: uniform).
-    profile : str or Profile, default "quick"
-        The sweep design and decision levels: "quick" (CI) or "full" (appendix).
+    budget : str or Budget, default "ci"
+        The sweep design and decision levels: "ci" (CI) or "appendix" (appendix).
     seed : int, default 0
         Master seed; every (gamma, n, replicate block) stream derives from it.
     executor : concurrent.futures.Executor, optional
@@ -167,7 +167,7 @@ def check(
     norm : {"sup", "mean"}, default "sup"
         Sup-norm or mean absolute error over states and actions.
     n_grid, gammas, replicates : optional
-        Override the profile's sample sizes (at least three), discounts in (0, 1)
+        Override the budget's sample sizes (at least three), discounts in (0, 1)
         and replicates per cell (at least four).
     context : str, default ""
         Mixed into every stream's spawn key (the pytest layer passes the test id).
@@ -201,7 +201,7 @@ def check(
     'pass'
     """
     call = _validate(estimator, claim, target, norm, seed, executor, time_limit,
-                     resolve_profile(profile, n_grid=n_grid, gammas=gammas, replicates=replicates))
+                     resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates))
     name, metadata = _describe_source(mdp)
     _warn_design(call, n_grid is not None)
     started = time.perf_counter()
@@ -224,7 +224,7 @@ def check(
 
 
 def _validate(estimator: object, claim: object, target: object, norm: object, seed: object,
-              executor: Executor | None, time_limit: object, design: Profile) -> _Call:
+              executor: Executor | None, time_limit: object, design: Budget) -> _Call:
     if not callable(estimator):
         raise TypeError(f"`estimator` must be callable as estimator(batch, problem), got {type(estimator).__name__}")
     if executor is not None and not isinstance(executor, ThreadPoolExecutor):
@@ -266,7 +266,7 @@ def _kernels(truths: dict[float, Truth]) -> dict[float, SupportKernel]:
 
 
 def _run_passes(plan: SweepPlan, executor: Executor | None, call: _Call, truths: dict[float, Truth]) -> _Passes:
-    """Run passes until the verdict is decided, a cell fails, or the escalation budget is spent."""
+    """Run passes until the verdict is decided, a cell fails, or the escalation allowance is spent."""
     design = call.design
     resolution = design.policy_resolution if call.target == "policy" else 1e-9
     zero_tolerance = {g: resolution * max(1.0, t.scale) for g, t in truths.items()}
@@ -300,7 +300,7 @@ def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str
     return (
         f"rlrates.check({_estimator_name(call.estimator)}, {mdp_call}, {call.claim.as_call()}, "
         f"target={call.target!r}, " + ("policy=<the policy given>, " if policy_given else "")
-        + f"profile={call.design.name!r}, seed={call.seed}"
+        + f"budget={call.design.name!r}, seed={call.seed}"
         + "".join(f", {key}={value!r}" for key, value in extras.items() if value is not None)
         + ")"
     )
@@ -318,11 +318,11 @@ def _assemble(call: _Call, passes: _Passes, run: RunInfo, mdp: MDPDescription) -
     if status == "inconclusive":
         notes.append(
             f"budget spent after {passes.passes} pass(es): {passes.state.replicates} replicates per cell, n up to "
-            f"{max(passes.state.n_values)}; a larger budget (profile 'full', or more replicates / a longer n_grid) "
+            f"{max(passes.state.n_values)}; a larger budget (budget 'appendix', or more replicates / a longer n_grid) "
             "may settle it"
         )
     result = CheckResult(
-        status=status, claim=call.claim, target=call.target, norm=call.norm, profile=call.design, seed=call.seed,
+        status=status, claim=call.claim, target=call.target, norm=call.norm, budget=call.design, seed=call.seed,
         mdp=mdp, run=run, evidence=Evidence(passes.table, decision.cells, decision.slopes),
         factors=() if passes.failure is not None else decision.fits,
         fired=decision.fired, reasons=decision.reasons, notes=tuple(notes), failure=passes.failure,

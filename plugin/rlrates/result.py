@@ -22,7 +22,7 @@ from typing import Any
 import pandas as pd
 
 from .claims import Claim
-from .profiles import Profile
+from .budgets import Budget
 from .vocabulary import FACTORS, FIT_VERDICTS, Factor, FailureKind, FitVerdict, Status
 
 __all__ = [
@@ -209,7 +209,7 @@ class CheckResult:
     claim: Claim
     target: str
     norm: str
-    profile: Profile
+    budget: Budget
     seed: int
     mdp: MDPDescription
     run: RunInfo

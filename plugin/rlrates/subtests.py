@@ -27,7 +27,7 @@ import numpy as np
 import pandas as pd
 
 from .fitting import DiscountFit, Slope, pooled_slope
-from .profiles import Profile
+from .budgets import Budget
 from .vocabulary import Need, SubTestName, SubTestVerdict
 
 __all__ = ["SubTest", "floor_test", "rate_test", "coverage_test", "horizon_test", "short_discounts"]
@@ -44,11 +44,11 @@ class SubTest:
     need: Need | None = None
 
 
-def floor_test(fits: list[DiscountFit], claim_n: float, profile: Profile, alpha: float) -> SubTest:
+def floor_test(fits: list[DiscountFit], claim_n: float, budget: Budget, alpha: float) -> SubTest:
     """Does the error stop falling over the largest n at some discount?"""
     if not fits:
         return SubTest("floor", "ok")
-    limit = claim_n + profile.floor_tolerance
+    limit = claim_n + budget.floor_tolerance
     level = alpha / len(fits)
     floors = [fit for fit in fits if fit.upper.lower(level) > limit]
     if floors:
@@ -58,19 +58,19 @@ def floor_test(fits: list[DiscountFit], claim_n: float, profile: Profile, alpha:
         )
         return SubTest("floor", "violated", reason=(
             f"error floor: over the largest n the error stops falling at {where}; the claim allows at most "
-            f"n^{claim_n:g} plus tolerance {profile.floor_tolerance:g} (a bias the data cannot remove)"
+            f"n^{claim_n:g} plus tolerance {budget.floor_tolerance:g} (a bias the data cannot remove)"
         ))
-    if any(fit.upper.upper(profile.pass_alpha) > limit for fit in fits):
+    if any(fit.upper.upper(budget.pass_alpha) > limit for fit in fits):
         return SubTest("floor", "unclear", need="replicates")
     return SubTest("floor", "ok")
 
 
-def rate_test(fits: list[DiscountFit], claim_n: float, profile: Profile, alpha: float, floor_fired: bool) -> SubTest:
+def rate_test(fits: list[DiscountFit], claim_n: float, budget: Budget, alpha: float, floor_fired: bool) -> SubTest:
     """Does the error fall more slowly than claimed, averaged over discounts?"""
     if not fits:
         return SubTest("rate", "ok")
     pooled = pooled_slope([fit.whole for fit in fits])
-    limit = claim_n + profile.n_tolerance
+    limit = claim_n + budget.n_tolerance
     if pooled.lower(alpha) > limit:
         # Concave in log-log (the slope is still getting steeper): pre-asymptotic, not slow.
         bending = pooled_slope([fit.steepening for fit in fits]).upper(alpha) < 0.0
@@ -82,9 +82,9 @@ def rate_test(fits: list[DiscountFit], claim_n: float, profile: Profile, alpha: 
             ))
         return SubTest("rate", "violated", reason=(
             f"rate too slow: the n-exponent is {pooled.estimate:.2f} (lower bound {pooled.lower(alpha):.2f}), "
-            f"above the claimed {claim_n:g} plus tolerance {profile.n_tolerance:g}"
+            f"above the claimed {claim_n:g} plus tolerance {budget.n_tolerance:g}"
         ))
-    if pooled.upper(profile.pass_alpha) > limit:
+    if pooled.upper(budget.pass_alpha) > limit:
         return SubTest("rate", "unclear", need="replicates")
     return SubTest("rate", "ok")
 
@@ -110,7 +110,7 @@ def coverage_test(slopes: pd.DataFrame) -> SubTest:
     return SubTest("coverage", "ok")
 
 
-def horizon_test(slope: Slope | None, n_star: int | None, some_zero: bool, claim_h: float, profile: Profile,
+def horizon_test(slope: Slope | None, n_star: int | None, some_zero: bool, claim_h: float, budget: Budget,
                  alpha: float) -> SubTest:
     """Does the error grow faster in H than claimed? ``slope`` is the H-exponent fitted at ``n_star``."""
     if slope is None:
@@ -120,12 +120,12 @@ def horizon_test(slope: Slope | None, n_star: int | None, some_zero: bool, claim
         return SubTest("horizon", "unclear", need="larger_n",
                        note="no n is in the asymptotic range for every discount: need larger n for the H-exponent")
     note = f"H-exponent fitted at n={n_star}"
-    limit = claim_h + profile.horizon_tolerance
+    limit = claim_h + budget.horizon_tolerance
     if slope.lower(alpha) > limit:
         return SubTest("horizon", "violated", note=note, reason=(
             f"horizon growth too steep: the error grows like H^{slope.estimate:.2f} (lower bound "
-            f"{slope.lower(alpha):.2f}), above the claimed H^{claim_h:g} plus tolerance {profile.horizon_tolerance:g}"
+            f"{slope.lower(alpha):.2f}), above the claimed H^{claim_h:g} plus tolerance {budget.horizon_tolerance:g}"
         ))
-    if slope.upper(profile.pass_alpha) > limit:
+    if slope.upper(budget.pass_alpha) > limit:
         return SubTest("horizon", "unclear", note=note, need="replicates")
     return SubTest("horizon", "ok", note=note)

@@ -5,7 +5,7 @@ and the H-exponent (:mod:`rlrates.fitting`), runs the sub-tests
 (:mod:`rlrates.subtests`) and combines them: a claim fails when a sub-test
 fires, is ambiguous when one is unclear (and says whether more replicates or
 larger n would settle it), and passes only when every sub-test is "ok". The
-sub-tests share the profile's ``alpha`` (a Bonferroni split over the claimed
+sub-tests share the budget's ``alpha`` (a Bonferroni split over the claimed
 factors, the n-claim counting twice: rate and floor). In the fits, ``low`` is
 the fire-side bound and ``high`` the pass-side bound.
 
@@ -26,7 +26,7 @@ import pandas as pd
 
 from .claims import Claim
 from .fitting import Slope, fit_discounts, fit_horizon, pooled_slope
-from .profiles import Profile
+from .budgets import Budget
 from .result import Fit
 from .subtests import SubTest, coverage_test, floor_test, horizon_test, rate_test, short_discounts
 from .vocabulary import Factor, FitVerdict, Need, Outcome
@@ -50,11 +50,11 @@ class Decision:
     exact: bool = False
 
 
-def mark_cells(summary: pd.DataFrame, profile: Profile, scale: dict[float, float], window: int) -> pd.DataFrame:
+def mark_cells(summary: pd.DataFrame, budget: Budget, scale: dict[float, float], window: int) -> pd.DataFrame:
     """The summary with ``usable`` (asymptotic and not saturated), ``fitted`` (in an n-fit) and ``left_out`` (why not)."""
     cells = summary.copy()
-    early = (cells["n"] < profile.min_n_per_horizon * cells["H"]).to_numpy()
-    limit = cells["gamma"].map(scale).to_numpy(float) * profile.saturation
+    early = (cells["n"] < budget.min_n_per_horizon * cells["H"]).to_numpy()
+    limit = cells["gamma"].map(scale).to_numpy(float) * budget.saturation
     saturated = (~cells["zero"] & (cells["mean"] > limit)).to_numpy()
     usable = ~(early | saturated)
     rank = cells["n"].where(usable).groupby(cells["gamma"]).rank(ascending=False, method="first")
@@ -62,8 +62,8 @@ def mark_cells(summary: pd.DataFrame, profile: Profile, scale: dict[float, float
     zero = cells["zero"].to_numpy(bool)
     reasons = np.select(
         [early, saturated, ~in_window, zero],
-        [f"pre-asymptotic (n < {profile.min_n_per_horizon:g} H)",
-         f"saturated (mean error above {profile.saturation:g} of the error scale)",
+        [f"pre-asymptotic (n < {budget.min_n_per_horizon:g} H)",
+         f"saturated (mean error above {budget.saturation:g} of the error scale)",
          "below the fit window", "zero error"],
         default="",
     )
@@ -73,9 +73,9 @@ def mark_cells(summary: pd.DataFrame, profile: Profile, scale: dict[float, float
     return cells
 
 
-def _alpha(claim: Claim, profile: Profile) -> float:
+def _alpha(claim: Claim, budget: Budget) -> float:
     active = (claim.n is not None) * 2 + (claim.horizon is not None)
-    return profile.alpha / max(active, 1)
+    return budget.alpha / max(active, 1)
 
 
 def _fit(factor: Factor, slope: Slope | None, claimed: float, tolerance: float, levels: tuple[float, float],
@@ -93,49 +93,49 @@ def _combined(tests: list[SubTest]) -> FitVerdict:
     return "violated" if "violated" in verdicts else "unclear" if "unclear" in verdicts else "ok"
 
 
-def _exact(claim: Claim, profile: Profile, cells: pd.DataFrame, levels: tuple[float, float]) -> Decision:
+def _exact(claim: Claim, budget: Budget, cells: pd.DataFrame, levels: tuple[float, float]) -> Decision:
     claimed: list[tuple[Factor, float | None, float]] = [
-        ("n", claim.n, profile.n_tolerance), ("horizon", claim.horizon, profile.horizon_tolerance)]
+        ("n", claim.n, budget.n_tolerance), ("horizon", claim.horizon, budget.horizon_tolerance)]
     fits = [_fit(factor, None, bound, tolerance, levels, "exact") for factor, bound, tolerance in claimed
             if bound is not None]
     return Decision(status="pass", exact=True, fits=tuple(fits), cells=cells,
                     reasons=("every error is zero to floating-point precision: the estimator is exact here",))
 
 
-def decide(summary: pd.DataFrame, claim: Claim, profile: Profile, scale: dict[float, float], window: int) -> Decision:
+def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[float, float], window: int) -> Decision:
     """Decide one pass. ``window`` is how many of the largest usable n values each n-fit uses."""
-    cells = mark_cells(summary, profile, scale, window)
-    alpha = _alpha(claim, profile)
-    levels = (alpha, profile.pass_alpha)
+    cells = mark_cells(summary, budget, scale, window)
+    alpha = _alpha(claim, budget)
+    levels = (alpha, budget.pass_alpha)
     if bool(summary["zero"].all()):
-        return _exact(claim, profile, cells, levels)
+        return _exact(claim, budget, cells, levels)
     usable = cells[cells["usable"]]
     gammas = sorted(float(g) for g in summary["gamma"].unique())
     slopes, per_discount = fit_discounts(usable, gammas, window)
     tests: list[SubTest] = []
     fits: list[Fit] = []
     if claim.n is not None:
-        floor = floor_test(per_discount, claim.n, profile, alpha)
-        n_tests = [floor, rate_test(per_discount, claim.n, profile, alpha, floor.verdict == "violated"),
+        floor = floor_test(per_discount, claim.n, budget, alpha)
+        n_tests = [floor, rate_test(per_discount, claim.n, budget, alpha, floor.verdict == "violated"),
                    coverage_test(slopes)]
         pooled = pooled_slope([fit.whole for fit in per_discount]) if per_discount else None
-        fits.append(_fit("n", pooled, claim.n, profile.n_tolerance, levels, _combined(n_tests)))
+        fits.append(_fit("n", pooled, claim.n, budget.n_tolerance, levels, _combined(n_tests)))
         tests += n_tests
     if claim.horizon is not None:
         slope, n_star = fit_horizon(usable, len(gammas))
-        horizon = horizon_test(slope, n_star, bool(summary["zero"].any()), claim.horizon, profile, alpha)
-        fits.append(_fit("horizon", slope, claim.horizon, profile.horizon_tolerance, levels, horizon.verdict))
+        horizon = horizon_test(slope, n_star, bool(summary["zero"].any()), claim.horizon, budget, alpha)
+        fits.append(_fit("horizon", slope, claim.horizon, budget.horizon_tolerance, levels, horizon.verdict))
         tests.append(horizon)
-    return _combine(tests, fits, slopes, cells, dropped=int((~cells["usable"]).sum()), profile=profile)
+    return _combine(tests, fits, slopes, cells, dropped=int((~cells["usable"]).sum()), budget=budget)
 
 
 def _combine(tests: list[SubTest], fits: list[Fit], slopes: pd.DataFrame, cells: pd.DataFrame, dropped: int,
-             profile: Profile) -> Decision:
+             budget: Budget) -> Decision:
     """One decision from the sub-tests: fail if any fired, ambiguous if any is unclear, else pass."""
     notes = [test.note for test in tests if test.note]
     if dropped:
-        notes.insert(0, f"{dropped} pre-asymptotic cell(s) left out of the fits (n < {profile.min_n_per_horizon:g} H "
-                        f"or mean error above {profile.saturation:g} of the error scale)")
+        notes.insert(0, f"{dropped} pre-asymptotic cell(s) left out of the fits (n < {budget.min_n_per_horizon:g} H "
+                        f"or mean error above {budget.saturation:g} of the error scale)")
     fired = tuple(test.name for test in tests if test.verdict == "violated")
     reasons = [test.reason for test in tests if test.verdict == "violated"]
     unclear = [fit.factor for fit in fits if fit.verdict == "unclear"]

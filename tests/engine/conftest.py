@@ -1,4 +1,4 @@
-"""Fixtures of the report tests: real quick-profile checks and report folders (helpers in report_checks.py)."""
+"""Fixtures of the report tests: real ci-budget checks and report folders (helpers in report_checks.py)."""
 
 from __future__ import annotations
 
@@ -20,21 +20,21 @@ def garnet() -> rlrates.TabularMDP:
 
 @pytest.fixture(scope="module")
 def passing(garnet: rlrates.TabularMDP) -> CheckResult:
-    result = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, profile="quick", seed=3, context=PASS_ID)
+    result = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, budget="ci", seed=3, context=PASS_ID)
     assert result.status == "pass", result.message
     return result
 
 
 @pytest.fixture(scope="module")
 def failing(garnet: rlrates.TabularMDP) -> CheckResult:
-    result = rlrates.check(stale_buffer, garnet, CLAIM, profile="quick", seed=3, context=FAIL_ID)
+    result = rlrates.check(stale_buffer, garnet, CLAIM, budget="ci", seed=3, context=FAIL_ID)
     assert result.status == "fail", result.message
     return result
 
 
 @pytest.fixture(scope="module")
 def erroring(garnet: rlrates.TabularMDP) -> CheckResult:
-    result = rlrates.check(flaky, garnet, CLAIM, profile="quick", seed=3, context=ERROR_ID)
+    result = rlrates.check(flaky, garnet, CLAIM, budget="ci", seed=3, context=ERROR_ID)
     assert result.status == "error", result.message
     return result
 

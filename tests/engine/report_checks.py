@@ -1,5 +1,5 @@
 """Checks and report folders for the report tests (test_report_files.py, test_report_index.py,
-test_report_figures.py): real quick-profile runs.
+test_report_figures.py): real ci-budget runs.
 
 Each check runs on a 10-state Garnet MDP in well under a second; the fixtures that
 run them (garnet, passing, failing, erroring, session, copy, tables_only) are in

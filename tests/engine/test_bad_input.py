@@ -150,7 +150,7 @@ CATALOGUE = [
     Case("claim-non-numeric", lambda: rlrates.Claim(n="-1/2"), r"`n` exponent must be a number or None, got '-1/2'"),
     Case("claim-positive", lambda: rlrates.Claim(n=0.5), r"`n` exponent must be negative .* got 0.5"),
     Case("target-unknown", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, target="v_pi"), r"unknown `target` 'v_pi'; choose one of q_pi, q_star, policy, model"),
-    Case("profile-unknown", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, profile="ci"), r"unknown `profile` 'ci'; choose one of quick, full"),
+    Case("budget-unknown", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, budget="fast"), r"unknown `budget` 'fast'; choose one of ci, appendix"),
     Case("return-shape", _returns(lambda p: np.zeros((p.actions, p.states))), r"returned shape \(2, 6\); expected an \(S, A\) = \(6, 2\)"),
     Case("return-list", _returns(lambda p: [[0.0] * p.actions] * p.states), r"returned list, not a numpy.ndarray"),
     Case("return-nan", _returns(lambda p: np.where(np.eye(6, 2) > 0, np.nan, 1.0)), r"non-finite value nan at index \(0, 0\) \(2 non-finite"),

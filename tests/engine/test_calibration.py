@@ -1,7 +1,7 @@
 """A small seeded calibration: every fast zoo member gets its expected verdict under a few master seeds.
 
 The full table (hundreds of seeds per member, with confidence intervals) is made by
-``benchmarks/calibrate.py`` and kept in ``docs/calibration-quick.md``: 0 false alarms in
+``benchmarks/calibrate.py`` and kept in ``docs/calibration-ci.md``: 0 false alarms in
 3040 checks of correct members (95% upper bound 0.12% per check) and 0 misses in 2480
 checks of broken ones. At those rates the 30 correct-member checks here would all pass
 for a fresh choice of seeds with probability above 95%; the seeds are fixed, so the test is

@@ -12,7 +12,7 @@ import pytest
 
 import rlrates
 from rlrates import reference
-from rlrates.profiles import PROFILES
+from rlrates.budgets import BUDGETS
 from rlrates.result import FIT_KEYS, Fit
 
 import zoo
@@ -55,7 +55,7 @@ def test_claim_describes_itself() -> None:
     ("kwargs", "match"),
     [
         ({"target": "value"}, "unknown `target` 'value'"),
-        ({"profile": "fast"}, "unknown `profile` 'fast'"),
+        ({"budget": "fast"}, "unknown `budget` 'fast'"),
         ({"norm": "l2"}, "unknown `norm` 'l2'"),
         ({"seed": -1}, "`seed` must be a non-negative integer"),
         ({"n_grid": (64, 128)}, "at least three distinct values"),
@@ -101,9 +101,9 @@ def test_reference_estimators_pass_every_target(garnet: rlrates.TabularMDP, esti
     assert all(isinstance(fit, Fit) for fit in result.factors)
     assert set(result.fits["factor"]) == {"n"} | ({"horizon"} if claim.horizon is not None else set())
     assert list(result.table.columns) == ["gamma", "H", "n", "replicate", "error", "seconds"]
-    quick = PROFILES["quick"]
-    assert set(result.table["gamma"]) == set(quick.gammas)
-    assert set(quick.n_grid) <= set(result.table["n"])
+    ci = BUDGETS["ci"]
+    assert set(result.table["gamma"]) == set(ci.gammas)
+    assert set(ci.n_grid) <= set(result.table["n"])
 
 
 def test_model_error_is_max_l1_distance(garnet: rlrates.TabularMDP) -> None:
@@ -234,11 +234,11 @@ def test_an_ambiguous_first_pass_escalates_before_answering(garnet: rlrates.Tabu
     # Claim exactly on the fitted exponent plus the tolerance: no budget can settle it.
     estimator = zoo.SyntheticPower(garnet, a=-0.35, b=1.0)
     result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=0)
-    quick = PROFILES["quick"]
+    ci = BUDGETS["ci"]
     assert result.status == "inconclusive", result.message
-    assert result.run.passes == 2 + quick.n_doublings
-    assert result.table["replicate"].max() + 1 == quick.replicates * quick.more_replicates
-    assert result.table["n"].max() == quick.n_grid[-1] * 2**quick.n_doublings
+    assert result.run.passes == 2 + ci.n_doublings
+    assert result.table["replicate"].max() + 1 == ci.replicates * ci.more_replicates
+    assert result.table["n"].max() == ci.n_grid[-1] * 2**ci.n_doublings
     assert "budget spent" in result.message
 
 

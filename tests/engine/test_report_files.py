@@ -1,6 +1,6 @@
 """Tests of check folders: the raw table, check.json and its provenance, atomic writes, corrupt folders.
 
-Check results and report directories come from real quick-profile checks
+Check results and report directories come from real ci-budget checks
 (tests/engine/report_checks.py and conftest.py), computed once per module; every test that edits files
 works on its own folder. The index, rebuilding and the command line are tested
 in test_report_index.py, the figures in test_report_figures.py.
@@ -76,10 +76,10 @@ def test_check_json_matches_the_result(session: Path, passing: CheckResult) -> N
     assert record["mdp"]["metadata"] == passing.mdp.metadata
     assert record["mdp"]["fingerprints"] == {repr(g): f for g, f in passing.mdp.fingerprints.items()}
     assert record["mdp"]["scales"] == {repr(g): s for g, s in passing.mdp.scales.items()}
-    assert record["profile"]["name"] == "quick"
-    assert record["profile"]["n_grid"] == list(passing.profile.n_grid)
-    assert record["profile"]["alpha"] == passing.profile.alpha
-    assert set(record["profile"]) == set(passing.profile.__dataclass_fields__)
+    assert record["budget"]["name"] == "ci"
+    assert record["budget"]["n_grid"] == list(passing.budget.n_grid)
+    assert record["budget"]["alpha"] == passing.budget.alpha
+    assert set(record["budget"]) == set(passing.budget.__dataclass_fields__)
     assert [list(fit) for fit in record["fits"]] == [list(FIT_KEYS)] * len(passing.factors) == [list(FIT_KEYS)] * 2
     assert tuple(Fit.from_dict(fit) for fit in record["fits"]) == passing.factors  # floats survive JSON exactly
     assert record["run"]["estimator_calls"] == len(passing.table) == record["data"]["rows"]

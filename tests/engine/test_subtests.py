@@ -15,12 +15,12 @@ from scipy import stats
 
 import rlrates
 from rlrates.fitting import DiscountFit, Slope
-from rlrates.profiles import PROFILES
+from rlrates.budgets import BUDGETS
 from rlrates.subtests import coverage_test, floor_test, horizon_test, rate_test, short_discounts
 from rlrates.verdict import decide
 
-QUICK = PROFILES["quick"]
-ALPHA = QUICK.alpha / 3  # an n and H claim: the n-claim counts twice (rate and floor)
+CI_BUDGET = BUDGETS["ci"]
+ALPHA = CI_BUDGET.alpha / 3  # an n and H claim: the n-claim counts twice (rate and floor)
 
 
 def slope(estimate: float, se: float = 0.02) -> Slope:
@@ -52,27 +52,27 @@ def test_detectable_is_the_exponent_caught_with_95_percent_power() -> None:
 
 
 def test_rate_test_passes_a_slope_well_inside_the_tolerance() -> None:
-    result = rate_test([discount(0.5, -0.5), discount(0.9, -0.52)], -0.5, QUICK, ALPHA, floor_fired=False)
+    result = rate_test([discount(0.5, -0.5), discount(0.9, -0.52)], -0.5, CI_BUDGET, ALPHA, floor_fired=False)
     assert (result.name, result.verdict, result.need) == ("rate", "ok", None)
 
 
 def test_rate_test_fires_on_a_slope_confidently_above_claim_plus_tolerance() -> None:
-    result = rate_test([discount(0.5, -0.1), discount(0.9, -0.12)], -0.5, QUICK, ALPHA, floor_fired=False)
+    result = rate_test([discount(0.5, -0.1), discount(0.9, -0.12)], -0.5, CI_BUDGET, ALPHA, floor_fired=False)
     assert result.verdict == "violated"
     assert "rate too slow: the n-exponent is -0.11" in result.reason
 
 
 def test_rate_test_asks_for_larger_n_while_the_curve_still_steepens() -> None:
     bending = [discount(0.5, -0.1, upper=-0.4, steepening=-0.4), discount(0.9, -0.1, upper=-0.4, steepening=-0.4)]
-    result = rate_test(bending, -0.5, QUICK, ALPHA, floor_fired=False)
+    result = rate_test(bending, -0.5, CI_BUDGET, ALPHA, floor_fired=False)
     assert (result.verdict, result.need) == ("unclear", "larger_n")
     assert result.note.startswith("not yet asymptotic")
     # ... but a floor that fired takes the excuse away
-    assert rate_test(bending, -0.5, QUICK, ALPHA, floor_fired=True).verdict == "violated"
+    assert rate_test(bending, -0.5, CI_BUDGET, ALPHA, floor_fired=True).verdict == "violated"
 
 
 def test_rate_test_is_unclear_when_the_interval_straddles_the_limit() -> None:
-    result = rate_test([discount(0.5, -0.35, se=0.1)], -0.5, QUICK, ALPHA, floor_fired=False)
+    result = rate_test([discount(0.5, -0.35, se=0.1)], -0.5, CI_BUDGET, ALPHA, floor_fired=False)
     assert (result.verdict, result.need) == ("unclear", "replicates")
 
 
@@ -80,15 +80,15 @@ def test_rate_test_is_unclear_when_the_interval_straddles_the_limit() -> None:
 
 
 def test_floor_test_fires_at_the_discount_whose_upper_slope_flattens() -> None:
-    result = floor_test([discount(0.5, -0.5), discount(0.9, -0.4, upper=0.0)], -0.5, QUICK, ALPHA)
+    result = floor_test([discount(0.5, -0.5), discount(0.9, -0.4, upper=0.0)], -0.5, CI_BUDGET, ALPHA)
     assert result.verdict == "violated"
     assert "gamma=0.9" in result.reason and "gamma=0.5" not in result.reason
 
 
 def test_floor_test_is_ok_on_steady_slopes_and_unclear_on_wide_ones() -> None:
-    assert floor_test([discount(0.5, -0.5), discount(0.9, -0.5)], -0.5, QUICK, ALPHA).verdict == "ok"
-    assert floor_test([discount(0.5, -0.5, upper=-0.3, se=0.1)], -0.5, QUICK, ALPHA).verdict == "unclear"
-    assert floor_test([], -0.5, QUICK, ALPHA).verdict == "ok"
+    assert floor_test([discount(0.5, -0.5), discount(0.9, -0.5)], -0.5, CI_BUDGET, ALPHA).verdict == "ok"
+    assert floor_test([discount(0.5, -0.5, upper=-0.3, se=0.1)], -0.5, CI_BUDGET, ALPHA).verdict == "unclear"
+    assert floor_test([], -0.5, CI_BUDGET, ALPHA).verdict == "ok"
 
 
 # ------------------------------------------------------------------------------------ coverage
@@ -115,11 +115,11 @@ def test_coverage_test_notes_errors_that_vanish_everywhere() -> None:
 
 
 def test_horizon_test_fires_passes_and_waits() -> None:
-    assert horizon_test(slope(3.0), 2048, False, 2.0, QUICK, ALPHA).verdict == "violated"
-    ok = horizon_test(slope(1.5), 2048, False, 2.0, QUICK, ALPHA)
+    assert horizon_test(slope(3.0), 2048, False, 2.0, CI_BUDGET, ALPHA).verdict == "violated"
+    ok = horizon_test(slope(1.5), 2048, False, 2.0, CI_BUDGET, ALPHA)
     assert ok.verdict == "ok" and ok.note == "H-exponent fitted at n=2048"
-    assert horizon_test(slope(2.2, se=0.2), 2048, False, 2.0, QUICK, ALPHA).need == "replicates"
-    missing = horizon_test(None, None, False, 2.0, QUICK, ALPHA)
+    assert horizon_test(slope(2.2, se=0.2), 2048, False, 2.0, CI_BUDGET, ALPHA).need == "replicates"
+    missing = horizon_test(None, None, False, 2.0, CI_BUDGET, ALPHA)
     assert (missing.verdict, missing.need) == ("unclear", "larger_n")
 
 
@@ -143,27 +143,27 @@ SCALE = {0.5: 2.0, 0.75: 4.0, 0.9: 10.0}
 
 def test_decide_combines_sub_tests_into_one_decision() -> None:
     claim = rlrates.Claim(n=-0.5, horizon=2.0)
-    passing = decide(_summary(-0.5, 1.5), claim, QUICK, SCALE, window=5)
+    passing = decide(_summary(-0.5, 1.5), claim, CI_BUDGET, SCALE, window=5)
     assert passing.status == "pass" and [s.name for s in passing.subtests] == ["floor", "rate", "coverage", "horizon"]
     assert [fit.verdict for fit in passing.fits] == ["ok", "ok"]
     assert passing.fits[0].exponent == pytest.approx(-0.5, abs=1e-9)  # an exact power law, fitted exactly
-    failing = decide(_summary(-0.1, 3.0, size=1e-4), claim, QUICK, SCALE, window=5)  # 1e-4 H^3 stays unsaturated
+    failing = decide(_summary(-0.1, 3.0, size=1e-4), claim, CI_BUDGET, SCALE, window=5)  # 1e-4 H^3 stays unsaturated
     assert failing.status == "fail" and failing.fired == ("floor", "rate", "horizon")
     assert [fit.verdict for fit in failing.fits] == ["violated", "violated"]
 
 
 def test_decide_marks_the_cells_that_entered_the_fits() -> None:
-    decision = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), QUICK, SCALE, window=5)
+    decision = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), CI_BUDGET, SCALE, window=5)
     cells = decision.cells.set_index(["gamma", "n"])
     # n < 8 H is pre-asymptotic: at gamma=0.9 (H=10) n=128 < 80 is not, so every cell is fitted here
     assert cells["fitted"].all() and (cells["left_out"] == "").all()
-    small_window = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), QUICK, SCALE, window=4).cells
+    small_window = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), CI_BUDGET, SCALE, window=4).cells
     assert set(small_window.loc[~small_window["fitted"], "n"]) == {128}
     assert set(small_window.loc[~small_window["fitted"], "left_out"]) == {"below the fit window"}
 
 
 def test_decide_on_exact_errors_passes_without_fitting() -> None:
-    decision = decide(_summary(-0.5, 1.0, zero=True), rlrates.Claim(n=-0.5, horizon=1.0), QUICK, SCALE, window=5)
+    decision = decide(_summary(-0.5, 1.0, zero=True), rlrates.Claim(n=-0.5, horizon=1.0), CI_BUDGET, SCALE, window=5)
     assert decision.status == "pass" and decision.exact
     assert [fit.verdict for fit in decision.fits] == ["exact", "exact"]
     assert all(math.isnan(fit.exponent) for fit in decision.fits)

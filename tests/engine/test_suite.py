@@ -12,10 +12,10 @@ import pandas as pd
 import pytest
 
 import rlrates
-from rlrates.profiles import PROFILES
+from rlrates.budgets import BUDGETS
 from rlrates.plugin.records import CheckRecord, format_summary
 from rlrates.plugin.runner import reproduce_command
-from rlrates.plugin.settings import PROFILE_NAMES
+from rlrates.plugin.settings import BUDGET_NAMES
 from rlrates.result import Fit
 from rlrates.suite import STANDARD_SUITE, SuiteError, custom_members, member_names, select_members, suite_tags
 
@@ -116,8 +116,8 @@ def test_bad_custom_mdps_are_named(mdps: object, pattern: str) -> None:
 # --------------------------------------------------------------------------- records
 
 
-def test_profile_names_shown_by_help_are_the_profiles() -> None:
-    assert PROFILE_NAMES == tuple(PROFILES)
+def test_budget_names_shown_by_help_are_the_budgets() -> None:
+    assert BUDGET_NAMES == tuple(BUDGETS)
 
 
 def _fit(factor: str, exponent: float, low: float, high: float, claimed: float, verdict: str) -> Fit:
@@ -127,7 +127,7 @@ def _fit(factor: str, exponent: float, low: float, high: float, claimed: float, 
 
 def _record(test: str, status: str, fits: tuple[Fit, ...], fired: tuple[str, ...] = ()) -> CheckRecord:
     return CheckRecord(test=test, status=status, target="q_pi", mdp="chain-S10-slip0.1", claim="error <~ n^-0.5",
-                       fits=fits, fired=fired, seconds=0.25, seed=5, profile="quick", passes=1, calls=240)
+                       fits=fits, fired=fired, seconds=0.25, seed=5, budget="ci", passes=1, calls=240)
 
 
 def test_record_from_a_result_survives_json_with_nan_as_null() -> None:
@@ -137,7 +137,7 @@ def test_record_from_a_result_survives_json_with_nan_as_null() -> None:
     result = SimpleNamespace(  # the attributes CheckRecord.from_result reads
         status="pass", target="q_pi", mdp=SimpleNamespace(name="grid"), fired=("floor",), seed=3,
         run=SimpleNamespace(elapsed=1.5, passes=2), claim=rlrates.Claim(n=-0.5, horizon=2.0),
-        profile=PROFILES["quick"], table=pd.DataFrame({"error": [0.1] * 7}), factors=fits,
+        budget=BUDGETS["ci"], table=pd.DataFrame({"error": [0.1] * 7}), factors=fits,
     )
     record = CheckRecord.from_result(result, "t.py::t")  # type: ignore[arg-type]
     text = record.to_json()
@@ -177,9 +177,9 @@ def test_summary_lists_each_check_sorted_with_fits_and_a_tally() -> None:
 @pytest.mark.parametrize(
     ("cwd", "nodeid", "expected"),
     [
-        ("", "tests/test_x.py::test_y", "pytest tests/test_x.py::test_y --rlrates-seed=3 --rlrates-profile=full"),
-        ("tests", "tests/test_x.py::test_y[chain]", "pytest 'test_x.py::test_y[chain]' --rlrates-seed=3 --rlrates-profile=full"),
-        ("other", "tests/test_x.py::C::test_y[a b]", "pytest '../tests/test_x.py::C::test_y[a b]' --rlrates-seed=3 --rlrates-profile=full"),
+        ("", "tests/test_x.py::test_y", "pytest tests/test_x.py::test_y --rlrates-seed=3 --rlrates-budget=appendix"),
+        ("tests", "tests/test_x.py::test_y[chain]", "pytest 'test_x.py::test_y[chain]' --rlrates-seed=3 --rlrates-budget=appendix"),
+        ("other", "tests/test_x.py::C::test_y[a b]", "pytest '../tests/test_x.py::C::test_y[a b]' --rlrates-seed=3 --rlrates-budget=appendix"),
     ],
 )
 def test_reproducer_is_relative_to_where_pytest_was_invoked(
@@ -190,4 +190,4 @@ def test_reproducer_is_relative_to_where_pytest_was_invoked(
 
     root = Path(str(tmp_path))
     config = SimpleNamespace(rootpath=root, invocation_params=SimpleNamespace(dir=root / cwd))
-    assert reproduce_command(config, nodeid, 3, "full") == expected  # type: ignore[arg-type]
+    assert reproduce_command(config, nodeid, 3, "appendix") == expected  # type: ignore[arg-type]

@@ -16,7 +16,7 @@ import rlrates
 from rlrates import reference
 from rlrates.rate_check import RatesWarning
 from rlrates.fitting import fit_slope, summarise_cells
-from rlrates.profiles import PROFILES
+from rlrates.budgets import BUDGETS
 
 import zoo
 
@@ -29,7 +29,7 @@ def garnet() -> rlrates.TabularMDP:
 
 
 class ShapedError:
-    """Exact Q^pi plus an error of a chosen deterministic size profile times log-normal noise."""
+    """Exact Q^pi plus an error of a chosen deterministic size budget times log-normal noise."""
 
     def __init__(self, mdp: rlrates.TabularMDP, size: Any, sigma: float = 0.2) -> None:
         self.mdp, self.size, self.sigma = mdp, size, sigma
@@ -91,9 +91,9 @@ def test_a_grid_that_starts_pre_asymptotic_warns_and_those_cells_are_left_out() 
     assert "pre-asymptotic cell(s) left out" in result.message
 
 
-def test_the_profile_grids_start_in_the_asymptotic_range() -> None:
-    for profile in PROFILES.values():
-        assert profile.n_grid[0] >= profile.min_n_per_horizon / (1 - max(profile.gammas))
+def test_the_budget_grids_start_in_the_asymptotic_range() -> None:
+    for budget in BUDGETS.values():
+        assert budget.n_grid[0] >= budget.min_n_per_horizon / (1 - max(budget.gammas))
 
 
 def test_saturated_small_n_errors_do_not_fail_a_correct_rate(garnet: rlrates.TabularMDP) -> None:
@@ -108,12 +108,12 @@ def test_saturated_small_n_errors_do_not_fail_a_correct_rate(garnet: rlrates.Tab
 def test_a_still_bending_curve_is_not_yet_asymptotic_rather_than_failed(garnet: rlrates.TabularMDP) -> None:
     # error ~ 1/sqrt(n + n0): flat for n << n0, slope -1/2 for n >> n0 (common practice: a burn-in)
     estimator = ShapedError(garnet, lambda n, H: 0.5 * H / np.sqrt(n + 600.0), sigma=0.05)
-    result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=0, profile=PROFILES["quick"].with_overrides(n_doublings=0))
+    result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=0, budget=BUDGETS["ci"].with_overrides(n_doublings=0))
     assert result.status == "inconclusive", result.message
     assert "not yet asymptotic" in result.message
     # with the budget to go to larger n, it settles without ever failing
     settled = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=0,
-                            profile=PROFILES["quick"].with_overrides(n_doublings=4))
+                            budget=BUDGETS["ci"].with_overrides(n_doublings=4))
     assert settled.status == "pass", settled.message
 
 
@@ -145,11 +145,11 @@ def test_a_greedy_policy_that_becomes_exactly_optimal_passes() -> None:
 
 
 # ---------------------------------------------------------------------------------------------
-# trap: residual t-intervals on curved profiles; nonlinear floor fits on biased estimators
+# trap: residual t-intervals on curved budgets; nonlinear floor fits on biased estimators
 
 
 def test_curvature_is_not_mistaken_for_noise(garnet: rlrates.TabularMDP) -> None:
-    # A wavy but correct profile with little replicate noise. A residual-based t-interval of
+    # A wavy but correct budget with little replicate noise. A residual-based t-interval of
     # the slope (scipy.stats.linregress) is wide here; the replicate-based one is narrow, so
     # the check decides in one pass.
     estimator = ShapedError(garnet, lambda n, H: 0.05 * H * n**-0.5 * (1 + 0.35 * np.sin(2.2 * np.log(n))), sigma=0.05)
@@ -183,9 +183,9 @@ def test_pooling_alone_would_hide_a_floor_at_one_discount(garnet: rlrates.Tabula
 def test_a_discount_without_enough_asymptotic_points_is_not_passed_unseen(garnet: rlrates.TabularMDP) -> None:
     # n from 32 to 128: at gamma = 0.9 (8 H = 80) only n = 128 is asymptotic, so that discount
     # cannot be fitted; the other two can. Without the budget to go to larger n, no pass.
-    profile = PROFILES["quick"].with_overrides(n_doublings=0)
+    budget = BUDGETS["ci"].with_overrides(n_doublings=0)
     with pytest.warns(RatesWarning, match="below 8 H for gamma in 0.9"):
-        result = rlrates.check(reference.plugin_q_pi, garnet, rlrates.Claim(n=-0.5), seed=0, profile=profile,
+        result = rlrates.check(reference.plugin_q_pi, garnet, rlrates.Claim(n=-0.5), seed=0, budget=budget,
                                n_grid=(32, 64, 128))
     assert result.status == "inconclusive", result.message
     assert "fewer than 3 asymptotic points at gamma=0.9" in result.message

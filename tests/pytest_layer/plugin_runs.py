@@ -2,7 +2,7 @@
 
 Every inner check is seeded (master seed + test id), so each verdict asserted in
 the ``test_plugin_*`` modules is deterministic. The inner MDPs are small (10
-states, 2 actions) and the profile is ``quick`` or smaller, so a run costs about
+states, 2 actions) and the budget is ``ci`` or smaller, so a run costs about
 a second. Runs that need plugin isolation (pytest-xdist, ``-p no:rlrates``,
 import-time checks) use a subprocess; the rest run in-process.
 """
@@ -69,7 +69,7 @@ def leaves_a_trace(batch, problem):
     return plug_in(batch, problem)
 '''
 
-HEADER_LINE = "rlrates: profile quick, master seed 0 (rerun with --rlrates-seed=0)"
+HEADER_LINE = "rlrates: budget ci, master seed 0 (rerun with --rlrates-seed=0)"
 
 
 
@@ -85,7 +85,7 @@ def seeded_lines(message: str) -> list[str]:
     """The lines of a check message that carry numbers fixed by the seed (not timings)."""
     keep = []
     for line in message.splitlines():
-        if line.startswith(("profile:", "reproduce:", "[gw")) or not line.strip():
+        if line.startswith(("budget:", "reproduce:", "[gw")) or not line.strip():
             continue  # timings, the command, xdist's worker banner
         keep.append(line.rstrip())
     return keep

@@ -49,7 +49,7 @@ def test_correct_estimator_passes_and_two_bugs_fail_with_reasons(project: pytest
     first_32 = failure_section(output, "test_first_32")
     assert first_32.lstrip().startswith("rlrates FAIL (")
     assert "error floor: over the largest n the error stops falling at gamma=" in first_32
-    assert "reproduce: pytest test_inner_verdicts.py::test_first_32 --rlrates-seed=0 --rlrates-profile=quick" in first_32
+    assert "reproduce: pytest test_inner_verdicts.py::test_first_32 --rlrates-seed=0 --rlrates-budget=ci" in first_32
     squared = failure_section(output, "test_squared_discount")
     assert squared.lstrip().startswith("rlrates FAIL (")
     assert "claimed:   error <~ n^-0.5 * H^2" in squared
@@ -93,8 +93,8 @@ def test_printed_reproducer_reruns_the_same_check(project: pytest.Pytester, monk
     output = first.stdout.str()
     commands = re.findall(r"^reproduce: (pytest .+)$", output, re.M)
     assert commands == [
-        "pytest 'test_inner_repro.py::test_repro[garnet-S10-A2-b3]' --rlrates-seed=7 --rlrates-profile=quick",
-        "pytest 'test_inner_repro.py::test_repro[chain]' --rlrates-seed=7 --rlrates-profile=quick",
+        "pytest 'test_inner_repro.py::test_repro[garnet-S10-A2-b3]' --rlrates-seed=7 --rlrates-budget=ci",
+        "pytest 'test_inner_repro.py::test_repro[chain]' --rlrates-seed=7 --rlrates-budget=ci",
     ]
     message = failure_section(output, "test_repro[garnet-S10-A2-b3]")
     again = project.runpytest(*shlex.split(commands[0])[1:])
@@ -134,10 +134,10 @@ import pytest
 import rlrates as rl
 from estimators import very_noisy
 
-TINY = rl.Profile(name="tiny", n_grid=(256, 512, 1024), gammas=(0.5, 0.75), replicates=4,
+TINY = rl.Budget(name="tiny", n_grid=(256, 512, 1024), gammas=(0.5, 0.75), replicates=4,
                        more_replicates=1, n_doublings=0)
 
-@pytest.mark.rlrates(n=-0.5, profile=TINY)
+@pytest.mark.rlrates(n=-0.5, budget=TINY)
 def test_noisy(rlrates):
     rlrates(very_noisy, rl.garnet(10, 2, 3, seed=1))
 """
@@ -208,7 +208,7 @@ def test_xdist_gives_the_same_verdicts_numbers_and_summary(project: pytest.Pytes
     # assertions below hold for any seed: both runs must agree, and a subsampler that stops at
     # 32 samples fails at every seed (its error does not fall at all).
     spread = run_subprocess(project, "-n", "2", "--rlrates-seed=random", "--junitxml=junit.xml")
-    header = re.search(r"rlrates: profile quick, master seed (\d+) \(rerun with --rlrates-seed=\1\)", spread.stdout.str())
+    header = re.search(r"rlrates: budget ci, master seed (\d+) \(rerun with --rlrates-seed=\1\)", spread.stdout.str())
     assert header, spread.stdout.str()
     seed = int(header.group(1))
     # the controller's seed reached both workers

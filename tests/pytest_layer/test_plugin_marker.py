@@ -26,7 +26,7 @@ def test_marker_names_an_unknown_keyword_and_suggests_the_close_one() -> None:
         ((), {"n": 0.5}, r"bad exponent: `n` exponent must be negative .* got 0\.5"),
         ((), {"n": "fast"}, r"bad exponent: `n` exponent must be a number or None, got 'fast'"),
         ((), {"target": "qpi"}, r"unknown `target` 'qpi'"),
-        ((), {"profile": "fast"}, r"unknown `profile` 'fast'; choose one of quick, full"),
+        ((), {"budget": "fast"}, r"unknown `budget` 'fast'; choose one of ci, appendix"),
         ((), {"suite": ["garnets"]}, r"`suite`: unknown suite selector 'garnets'"),
         ((), {"suite": "chain", "mdps": []}, r"give `suite=` .* or `mdps=` .*, not both"),
         ((), {"mdps": []}, r"`mdps`: the list of MDPs is empty"),
@@ -44,10 +44,10 @@ def test_marker_rejects_bad_arguments_by_name(args: tuple[object, ...], kwargs: 
 
 def test_marker_accepts_exponents_and_closest_marker_wins() -> None:
     function = parse_marker((), {"n": -0.5, "horizon": 2.0, "suite": "random"}, "t")
-    module = parse_marker((Claim(n=-0.25),), {"target": "q_star", "profile": "full"}, "t")
+    module = parse_marker((Claim(n=-0.25),), {"target": "q_star", "budget": "appendix"}, "t")
     merged = merge_specs([function, module])
     assert merged.claim == Claim(n=-0.5, horizon=2.0)
-    assert merged.target == "q_star" and merged.profile == "full"
+    assert merged.target == "q_star" and merged.budget == "appendix"
     assert merged.members is not None and [m.name for m in merged.members][:1] == ["garnet-S10-A2-b3"]
 
 
@@ -148,7 +148,7 @@ BAD_MARKERS = {
     "test_bad_exponent": ("@pytest.mark.rlrates(n=0.5)", "bad exponent: `n` exponent must be negative"),
     "test_bad_target": ("@pytest.mark.rlrates(n=-0.5, target='value')", "unknown `target` 'value'"),
     "test_bad_suite": ("@pytest.mark.rlrates(n=-0.5, suite=['garnet'])", "`suite`: unknown suite selector 'garnet'"),
-    "test_bad_profile": ("@pytest.mark.rlrates(n=-0.5, profile='slow')", "unknown `profile` 'slow'"),
+    "test_bad_budget": ("@pytest.mark.rlrates(n=-0.5, budget='slow')", "unknown `budget` 'slow'"),
 }
 
 

@@ -28,12 +28,12 @@ def test_importing_the_plugin_loads_no_numerics() -> None:
 @pytest.mark.parametrize(
     ("args", "expected"),
     [
-        (["--rlrates-profile=fast"], "argument --rlrates-profile: unknown profile 'fast'; choose one of quick, full"),
+        (["--rlrates-budget=fast"], "argument --rlrates-budget: unknown budget 'fast'; choose one of ci, appendix"),
         (["--rlrates-seed=-1"], "argument --rlrates-seed: the master seed must be an integer >= 0, got '-1'"),
         (["--rlrates-seed=x1"], "argument --rlrates-seed: the master seed must be an integer >= 0 or 'random', got 'x1'"),
         (["--rlrates-workers=0"], "argument --rlrates-workers: the number of worker processes must be an integer >= 1, got '0'"),
         (["--rlrates-inconclusive=pass"], "argument --rlrates-inconclusive: an inconclusive check can fail or skip its test, got 'pass'"),
-        (["-o", "rlrates_profile=fast"], "ini key rlrates_profile = 'fast': unknown profile 'fast'"),
+        (["-o", "rlrates_budget=fast"], "ini key rlrates_budget = 'fast': unknown budget 'fast'"),
         (["-o", "rlrates_seed=-3"], "ini key rlrates_seed = '-3': the master seed must be an integer >= 0, got '-3'"),
         (["-o", "rlrates_suite=random garnets"], "ini key rlrates_suite: unknown suite selector 'garnets'"),
     ],
@@ -48,7 +48,7 @@ def test_bad_option_values_are_usage_errors_naming_the_value(
 
 
 def test_settings_come_from_options_over_ini_keys(project: pytest.Pytester) -> None:
-    project.makeini("[pytest]\nrlrates_profile = full\nrlrates_seed = 11\nrlrates_report = reports/rates\n")
+    project.makeini("[pytest]\nrlrates_budget = appendix\nrlrates_seed = 11\nrlrates_report = reports/rates\n")
     project.makeconftest("""
         from rlrates.plugin import session_settings
 
@@ -57,11 +57,11 @@ def test_settings_come_from_options_over_ini_keys(project: pytest.Pytester) -> N
     """)
     project.makepyfile(test_inner_plain="def test_plain():\n    pass\n")
     from_ini = project.runpytest().stdout.str()
-    assert (f"rlrates: profile full, master seed 11 (rerun with --rlrates-seed=11); "
+    assert (f"rlrates: budget appendix, master seed 11 (rerun with --rlrates-seed=11); "
             f"reports to {project.path / 'reports' / 'rates'}") in from_ini
-    assert "settings seen by a conftest: RatesSettings(profile='full', seed=11, workers=1" in from_ini
-    from_options = project.runpytest("--rlrates-profile=quick", "--rlrates-seed=4", "--rlrates-report=elsewhere")
-    assert (f"rlrates: profile quick, master seed 4 (rerun with --rlrates-seed=4); "
+    assert "settings seen by a conftest: RatesSettings(budget='appendix', seed=11, workers=1" in from_ini
+    from_options = project.runpytest("--rlrates-budget=ci", "--rlrates-seed=4", "--rlrates-report=elsewhere")
+    assert (f"rlrates: budget ci, master seed 4 (rerun with --rlrates-seed=4); "
             f"reports to {project.path / 'elsewhere'}") in from_options.stdout.str()
     assert "rlrates checks" not in from_options.stdout.str()  # no check ran: no summary section
 
@@ -74,7 +74,7 @@ def test_fixtures_and_marker_are_documented(project: pytest.Pytester) -> None:
     assert re.search(r"^rlrates -- .*plugin[/\\]__init__\.py:\d+\n    Check an estimator's error rate: ", fixtures, re.M)
     assert re.search(r"^rlrates_mdp -- .*\n    One MDP of the rlrates suite; a test that asks for it runs once", fixtures, re.M)
     markers = project.runpytest("--markers").stdout.str()
-    assert "@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, profile=None, suite=None, " in markers
+    assert "@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None, suite=None, " in markers
 
 
 def test_disabling_the_plugin_leaves_other_tests_alone(project: pytest.Pytester) -> None:

@@ -72,7 +72,7 @@ def pytest_configure_node(node: Any) -> None:
 def pytest_report_header(config: pytest.Config) -> list[str]:
     settings = session_of(config).settings
     line = (
-        f"rlrates: profile {settings.profile}, master seed {settings.seed} "
+        f"rlrates: budget {settings.budget}, master seed {settings.seed} "
         f"(rerun with {SEED_OPTION}={settings.seed})"
     )
     extras = []
@@ -108,7 +108,7 @@ def pytest_terminal_summary(terminalreporter: Any, exitstatus: int, config: pyte
     if lines is None:
         return
     settings = session.settings
-    terminalreporter.write_sep("=", f"rlrates checks: profile {settings.profile}, master seed {settings.seed}")
+    terminalreporter.write_sep("=", f"rlrates checks: budget {settings.budget}, master seed {settings.seed}")
     for line in lines:
         terminalreporter.write_line(line)
 
@@ -159,11 +159,11 @@ def pytest_itemcollected(item: pytest.Item) -> None:
 def rlrates(request: pytest.FixtureRequest) -> RatesRunner:
     """Check an estimator's error rate: ``rlrates(estimator, mdp, claim=None, target=..., **options)``.
 
-    Runs ``rlrates.check`` with the session's profile (``--rlrates-profile``),
+    Runs ``rlrates.check`` with the session's budget (``--rlrates-budget``),
     master seed (``--rlrates-seed``) and worker processes (``--rlrates-workers``);
     every sample stream derives from the master seed and this test's id, so the
     numbers do not depend on test order or on pytest-xdist. The claim, target,
-    profile and policy default to those of ``@pytest.mark.rlrates(...)``.
+    budget and policy default to those of ``@pytest.mark.rlrates(...)``.
     Returns the ``CheckResult`` when the claim holds; otherwise fails the test
     with the explanation and a one-line pytest command that reproduces it.
     An inconclusive check fails too, or skips with ``--rlrates-inconclusive=skip``;
@@ -182,7 +182,7 @@ def rlrates(request: pytest.FixtureRequest) -> RatesRunner:
         def test_plug_in_on_my_mdp(rlrates):
             rlrates(plug_in, rl.garnet(20, 4, 5, seed=0), rl.Claim(n=-0.5))
 
-    The returned object also has ``seed``, ``profile``, ``reproducer`` and
+    The returned object also has ``seed``, ``budget``, ``reproducer`` and
     ``results`` (every CheckResult of this test).
     """
     return RatesRunner(request.node, session_of(request.config))

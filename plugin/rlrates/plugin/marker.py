@@ -1,8 +1,8 @@
 """The ``rlrates`` marker: validating and merging its arguments, and reading the markers of a test item.
 
-``@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, profile=None,
+``@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None,
 suite=None, mdps=None, policy=None)``: the claim under test (an ``rlrates.Claim``, or its
-exponents ``n=`` / ``horizon=``), defaults for the ``rlrates`` fixture (target, profile,
+exponents ``n=`` / ``horizon=``), defaults for the ``rlrates`` fixture (target, budget,
 policy), and the MDPs of ``rlrates_mdp`` (``suite=`` narrows the standard suite to member
 names or tags; ``mdps=`` replaces it with a list or a dict ``{id: mdp}``).
 
@@ -23,7 +23,7 @@ import pytest
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..claims import Claim
-    from ..profiles import Profile
+    from ..budgets import Budget
     from ..suite import SuiteMember
 
 __all__ = [
@@ -34,9 +34,9 @@ __all__ = [
 MARKER = "rlrates"
 #: The marker's line in ``pytest --markers``.
 MARKER_HELP = (
-    "rlrates(claim=None, *, n=None, horizon=None, target=None, profile=None, suite=None, mdps=None, "
+    "rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None, suite=None, mdps=None, "
     "policy=None): the rate claim under test (an rlrates.Claim, or its exponents as n= and horizon=) "
-    "plus defaults for the `rlrates` fixture (target, profile, policy); suite= narrows the standard "
+    "plus defaults for the `rlrates` fixture (target, budget, policy); suite= narrows the standard "
     "MDP suite of `rlrates_mdp` to member names or tags, mdps= replaces it with your own MDPs "
     "(a list, or a dict {id: mdp})."
 )
@@ -46,7 +46,7 @@ class MarkerError(ValueError):
     """A ``@pytest.mark.rlrates`` argument is unusable; the message names it and the test."""
 
 
-MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "profile", "suite", "mdps", "policy")
+MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "budget", "suite", "mdps", "policy")
 
 
 @dataclass(frozen=True)
@@ -55,7 +55,7 @@ class MarkerSpec:
 
     claim: Claim | None = None
     target: str | None = None
-    profile: str | Profile | None = None
+    budget: str | Budget | None = None
     members: tuple[SuiteMember, ...] | None = None
     policy: Any = None
 
@@ -78,7 +78,7 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
     if args and "claim" in kwargs:
         raise _bad(where, "the claim is given twice, positionally and as `claim=`")
     from ..claims import Claim
-    from ..profiles import PROFILES, Profile
+    from ..budgets import BUDGETS, Budget
     from ..suite import SuiteError, custom_members, select_members
 
     claim = args[0] if args else kwargs.get("claim")
@@ -100,9 +100,9 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
             target = validate_target(target)
         except ValueError as exc:
             raise _bad(where, str(exc)) from None
-    profile = kwargs.get("profile")
-    if profile is not None and not isinstance(profile, Profile) and profile not in PROFILES:
-        raise _bad(where, f"unknown `profile` {profile!r}; choose one of {', '.join(PROFILES)} or pass an rlrates.Profile")
+    budget = kwargs.get("budget")
+    if budget is not None and not isinstance(budget, Budget) and budget not in BUDGETS:
+        raise _bad(where, f"unknown `budget` {budget!r}; choose one of {', '.join(BUDGETS)} or pass an rlrates.Budget")
     if kwargs.get("suite") is not None and kwargs.get("mdps") is not None:
         raise _bad(where, "give `suite=` (narrow the standard suite) or `mdps=` (replace it), not both")
     members: tuple[SuiteMember, ...] | None = None
@@ -115,14 +115,14 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
             members = tuple(custom_members(kwargs["mdps"], where="`mdps`"))
     except SuiteError as exc:
         raise _bad(where, str(exc)) from None
-    return MarkerSpec(claim=claim, target=target, profile=profile, members=members, policy=kwargs.get("policy"))
+    return MarkerSpec(claim=claim, target=target, budget=budget, members=members, policy=kwargs.get("policy"))
 
 
 def merge_specs(specs: Iterable[MarkerSpec]) -> MarkerSpec:
     """Combine markers, closest first (function over class over module): the first one that says a thing wins."""
     merged: dict[str, Any] = {}
     for spec in specs:
-        for name in ("claim", "target", "profile", "members", "policy"):
+        for name in ("claim", "target", "budget", "members", "policy"):
             value = getattr(spec, name)
             if value is not None and name not in merged:
                 merged[name] = value

@@ -38,7 +38,7 @@ class CheckRecord:
     fired: tuple[str, ...]
     seconds: float
     seed: int
-    profile: str
+    budget: str
     passes: int
     calls: int
 
@@ -54,7 +54,7 @@ class CheckRecord:
             fired=tuple(result.fired),
             seconds=float(result.run.elapsed),
             seed=int(result.seed),
-            profile=result.profile.name,
+            budget=result.budget.name,
             passes=int(result.run.passes),
             calls=int(len(result.table)),
         )

@@ -1,6 +1,6 @@
 """What the ``rlrates`` fixture returns: a runner that checks a claim with the session's settings.
 
-:class:`RatesRunner` runs ``rlrates.check`` with the session's master seed, profile
+:class:`RatesRunner` runs ``rlrates.check`` with the session's master seed, budget
 and worker pool, writes the report folder when the session has a report directory,
 attaches the check record to the test item, and turns a failing or inconclusive
 check into a clean test failure (or skip) whose message ends with the command
@@ -18,11 +18,11 @@ import pytest
 
 from ..vocabulary import PROPERTY_NAME
 from .marker import MARKER, item_spec
-from .settings import PROFILE_OPTION, SEED_OPTION, WORKERS_OPTION
+from .settings import BUDGET_OPTION, SEED_OPTION, WORKERS_OPTION
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..claims import Claim
-    from ..profiles import Profile
+    from ..budgets import Budget
     from ..result import CheckResult
     from ..sweep import Estimator
     from .records import CheckRecord
@@ -34,8 +34,8 @@ __all__ = ["SESSION_OWNED", "RatesRunner", "reproduce_command", "skip_reason"]
 SESSION_OWNED = ("seed", "context", "reproducer", "executor")
 
 
-def reproduce_command(config: pytest.Config, nodeid: str, seed: int, profile: str) -> str:
-    """The shell command that reruns one test with the session's seed and profile."""
+def reproduce_command(config: pytest.Config, nodeid: str, seed: int, budget: str) -> str:
+    """The shell command that reruns one test with the session's seed and budget."""
     file_part, sep, rest = nodeid.partition("::")
     path = config.rootpath / file_part
     try:
@@ -43,14 +43,14 @@ def reproduce_command(config: pytest.Config, nodeid: str, seed: int, profile: st
     except ValueError:  # another drive on Windows
         shown = str(path)
     target = shown.replace(os.sep, "/") + sep + rest
-    return f"pytest {shlex.quote(target)} {SEED_OPTION}={seed} {PROFILE_OPTION}={profile}"
+    return f"pytest {shlex.quote(target)} {SEED_OPTION}={seed} {BUDGET_OPTION}={budget}"
 
 
 def skip_reason(record: CheckRecord, reproducer: str) -> str:
     """Why an inconclusive check skips its test (with ``--rlrates-inconclusive=skip``)."""
     fits = "; ".join(fit.describe() for fit in record.fits) or "nothing fitted"
     return (
-        f"rlrates inconclusive within the {record.profile!r} budget: target {record.target} on {record.mdp} "
+        f"rlrates inconclusive within the {record.budget!r} budget: target {record.target} on {record.mdp} "
         f"({fits}); reproduce: {reproducer}"
     )
 
@@ -70,14 +70,14 @@ class RatesRunner:
         return self._session.settings.seed
 
     @property
-    def profile(self) -> str:
-        """The session's profile name (a marker or a call may choose another)."""
-        return self._session.settings.profile
+    def budget(self) -> str:
+        """The session's budget name (a marker or a call may choose another)."""
+        return self._session.settings.budget
 
     @property
     def reproducer(self) -> str:
-        """The command that reruns this test alone with the same seed and profile."""
-        return reproduce_command(self._item.config, self._item.nodeid, self.seed, self.profile)
+        """The command that reruns this test alone with the same seed and budget."""
+        return reproduce_command(self._item.config, self._item.nodeid, self.seed, self.budget)
 
     def _report(self, result: CheckResult) -> None:
         """Keep the result; write its report folder when the session has a report directory."""
@@ -108,7 +108,7 @@ class RatesRunner:
         *,
         target: str | None = None,
         policy: Any = None,
-        profile: str | Profile | None = None,
+        budget: str | Budget | None = None,
         **check_options: Any,
     ) -> CheckResult:
         __tracebackhide__ = True
@@ -134,7 +134,7 @@ class RatesRunner:
                 claim,
                 target=target or spec.target or "q_pi",
                 policy=policy if policy is not None else spec.policy,
-                profile=profile or spec.profile or settings.profile,
+                budget=budget or spec.budget or settings.budget,
                 seed=settings.seed,
                 executor=self._session.executor(),
                 context=nodeid,

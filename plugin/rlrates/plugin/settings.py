@@ -19,20 +19,20 @@ from typing import Any
 import pytest
 
 __all__ = [
-    "PROFILE_OPTION", "SEED_OPTION", "REPORT_OPTION", "WORKERS_OPTION", "INCONCLUSIVE_OPTION", "SUITE_OPTION",
-    "INCONCLUSIVE_CHOICES", "PROFILE_NAMES", "DEFAULT_SEED", "RANDOM_SEED", "WORKER_SEED_KEY",
+    "BUDGET_OPTION", "SEED_OPTION", "REPORT_OPTION", "WORKERS_OPTION", "INCONCLUSIVE_OPTION", "SUITE_OPTION",
+    "INCONCLUSIVE_CHOICES", "BUDGET_NAMES", "DEFAULT_SEED", "RANDOM_SEED", "WORKER_SEED_KEY",
     "RatesSettings", "add_options", "resolve_settings",
 ]
 
-PROFILE_OPTION = "--rlrates-profile"
+BUDGET_OPTION = "--rlrates-budget"
 SEED_OPTION = "--rlrates-seed"
 REPORT_OPTION = "--rlrates-report"
 WORKERS_OPTION = "--rlrates-workers"
 INCONCLUSIVE_OPTION = "--rlrates-inconclusive"
 SUITE_OPTION = "--rlrates-suite"
 INCONCLUSIVE_CHOICES = ("fail", "skip")
-#: The names of ``rlrates.PROFILES``, spelled out so that ``--help`` needs no import.
-PROFILE_NAMES = ("quick", "full")
+#: The names of ``rlrates.BUDGETS``, spelled out so that ``--help`` needs no import.
+BUDGET_NAMES = ("ci", "appendix")
 DEFAULT_SEED = 0
 RANDOM_SEED = "random"
 #: The key under which the controller hands its master seed to pytest-xdist workers.
@@ -42,11 +42,11 @@ WORKER_SEED_KEY = "rlrates_master_seed"
 # --------------------------------------------------------------------------- option values
 
 
-def _parse_profile(text: str) -> str:
-    from ..profiles import PROFILES
+def _parse_budget(text: str) -> str:
+    from ..budgets import BUDGETS
 
-    if text not in PROFILES:
-        raise argparse.ArgumentTypeError(f"unknown profile {text!r}; choose one of {', '.join(PROFILES)}")
+    if text not in BUDGETS:
+        raise argparse.ArgumentTypeError(f"unknown budget {text!r}; choose one of {', '.join(BUDGETS)}")
     return text
 
 
@@ -99,8 +99,8 @@ def add_options(parser: pytest.Parser) -> None:
     """Register the ``--rlrates-...`` options and the ``rlrates_...`` ini keys (for ``pytest_addoption``)."""
     group = parser.getgroup("rlrates", "rate checks of tabular RL estimators (pytest-rlrates)")
     group.addoption(
-        PROFILE_OPTION, dest="rlrates_profile", type=_parse_profile, default=None, metavar="NAME",
-        help=f"sweep design of every check: {' or '.join(PROFILE_NAMES)} (default quick; ini key rlrates_profile).",
+        BUDGET_OPTION, dest="rlrates_budget", type=_parse_budget, default=None, metavar="NAME",
+        help=f"sweep design of every check: {' or '.join(BUDGET_NAMES)} (default ci; ini key rlrates_budget).",
     )
     group.addoption(
         SEED_OPTION, dest="rlrates_seed", type=_parse_seed, default=None, metavar="SEED",
@@ -127,7 +127,7 @@ def add_options(parser: pytest.Parser) -> None:
         help="comma-separated member names or tags of the standard MDP suite that rlrates_mdp runs over, "
         "e.g. random,chain (default: all; ini key rlrates_suite). A marker's suite= or mdps= still wins.",
     )
-    parser.addini("rlrates_profile", "rlrates: default sweep profile (quick or full).", type="string", default="")
+    parser.addini("rlrates_budget", "rlrates: default sweep budget (ci or appendix).", type="string", default="")
     parser.addini("rlrates_seed", f"rlrates: default master seed (integer >= 0 or '{RANDOM_SEED}').", type="string",
                   default="")
     parser.addini("rlrates_report", "rlrates: directory for check reports, relative to the ini file.",
@@ -146,7 +146,7 @@ def add_options(parser: pytest.Parser) -> None:
 class RatesSettings:
     """The resolved session-wide settings (command line over ini key over default)."""
 
-    profile: str = "quick"
+    budget: str = "ci"
     seed: int = DEFAULT_SEED
     workers: int = 1
     inconclusive: str = "fail"
@@ -210,7 +210,7 @@ def resolve_settings(config: pytest.Config) -> RatesSettings:
     """Read options and ini keys; raise :class:`pytest.UsageError` naming any bad ini value."""
     seed, report_dir, suite = _master_seed(config), _report_dir(config), _suite_keys(config)
     return RatesSettings(
-        profile=_setting(config, "rlrates_profile", _parse_profile, "quick"),
+        budget=_setting(config, "rlrates_budget", _parse_budget, "ci"),
         seed=seed,
         workers=_setting(config, "rlrates_workers", _parse_workers, 1),
         inconclusive=_setting(config, "rlrates_inconclusive", _parse_inconclusive, "fail"),

@@ -1,8 +1,8 @@
 """``check.json``: the content of a check's record, built from a result and validated when read back.
 
-Top-level keys (schema ``rlrates-check/2``)::
+Top-level keys (schema ``rlrates-check/3``)::
 
-    schema        "rlrates-check/2"
+    schema        "rlrates-check/3"
     test_id       the pytest node id (or any id the caller gives)
     status        "pass" | "fail" | "inconclusive" | "error"
     fired         sub-tests that fired: "rate", "floor", "horizon"
@@ -18,7 +18,7 @@ Top-level keys (schema ``rlrates-check/2``)::
     cells         one entry per (gamma, n) cell of the last decision: gamma, n,
                   replicates, mean, usable (asymptotic and not saturated), zero (error
                   vanished), fitted (entered an n-fit), left_out (why not; "" when fitted)
-    profile       every field of the Profile (dataclasses.asdict)
+    budget       every field of the Budget (dataclasses.asdict)
     seed          the master seed
     streams       how every replicate's random stream is built: context, key layout,
                   per-discount spawn-key prefixes, replicate blocks
@@ -61,7 +61,7 @@ if TYPE_CHECKING:  # pragma: no cover
 __all__ = ["SCHEMA", "CELL_KEYS", "check_record", "record_text", "read_record", "record_fit"]
 
 #: Version tag of ``check.json``; readers refuse other versions.
-SCHEMA = "rlrates-check/2"
+SCHEMA = "rlrates-check/3"
 
 _NUMBER = (int, float)
 _OPTIONAL_NUMBER = (int, float, type(None))
@@ -76,7 +76,7 @@ _REQUIRED: tuple[tuple[str, type | tuple[type, ...]], ...] = (
     ("schema", str), ("test_id", str), ("status", str), ("target", str), ("norm", str),
     ("claim", dict), ("claim.n", _OPTIONAL_NUMBER), ("claim.horizon", _OPTIONAL_NUMBER),
     ("fits", list), ("slopes", list), ("cells", list), ("fired", list), ("mdp", dict), ("mdp.name", str),
-    ("profile", dict), ("profile.name", str), ("seed", int), ("data", dict), ("data.sha256", str),
+    ("budget", dict), ("budget.name", str), ("seed", int), ("data", dict), ("data.sha256", str),
 )
 
 
@@ -134,11 +134,11 @@ def check_record(result: "CheckResult", test_id: str, errors_sha256: str, rows: 
         "fits": [fit.to_dict() for fit in result.factors],
         "bounds": {
             "low": "fire-side one-sided bound at level low_level = 1 - alpha / (number of sub-tests)",
-            "high": "pass-side one-sided bound at level high_level = 1 - profile.pass_alpha",
+            "high": "pass-side one-sided bound at level high_level = 1 - budget.pass_alpha",
         },
         "slopes": frame_records(result.evidence.slopes),
         "cells": _cells(result.evidence.summary),
-        "profile": json_safe(dataclasses.asdict(result.profile)),
+        "budget": json_safe(dataclasses.asdict(result.budget)),
         "seed": int(result.seed),
         "streams": streams(result),
         "mdp": {

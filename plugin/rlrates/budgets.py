@@ -1,7 +1,7 @@
-"""Profiles: the sweep grid, replicate counts, escalation budget and test levels of a check.
+"""Budgets: the sweep grid, replicate counts, escalation allowance and test levels of a check.
 
-``quick`` is sized for CI (seconds for a vectorised estimator on a 20-state MDP);
-``full`` for a paper appendix (minutes). Both can be overridden per call, e.g.
+``ci`` is sized for CI (seconds for a vectorised estimator on a 20-state MDP);
+``appendix`` for a paper appendix (minutes). Both can be overridden per call, e.g.
 ``check(..., n_grid=(256, 512, 1024), gammas=(0.6, 0.9))``.
 
 Decision rules (see :mod:`rlrates.verdict`): each sub-test fires when its
@@ -17,11 +17,11 @@ from __future__ import annotations
 from dataclasses import dataclass, replace
 from typing import Any
 
-__all__ = ["Profile", "PROFILES", "resolve_profile"]
+__all__ = ["Budget", "BUDGETS", "resolve_budget"]
 
 
 @dataclass(frozen=True)
-class Profile:
+class Budget:
     """A sweep design and its decision parameters.
 
     Attributes
@@ -46,7 +46,7 @@ class Profile:
         suboptimality a small plateau over a range of n (until n exceeds the
         inverse square of the gap): a power law does not describe it. Rate
         claims on policies are therefore only meaningful on MDPs whose action
-        gaps are clear at the profile's n; check the planner's Q (target
+        gaps are clear at the budget's n; check the planner's Q (target
         "q_star") for the rate itself.
     """
 
@@ -94,26 +94,26 @@ class Profile:
         object.__setattr__(self, "gammas", tuple(sorted(set(gammas))))
         object.__setattr__(self, "replicates", int(self.replicates))
 
-    def with_overrides(self, **overrides: Any) -> "Profile":
+    def with_overrides(self, **overrides: Any) -> "Budget":
         """A copy with some fields replaced (unknown names raise ``TypeError``)."""
         known = set(self.__dataclass_fields__)
         unknown = sorted(set(overrides) - known)
         if unknown:
-            raise TypeError(f"unknown profile setting(s) {', '.join(unknown)}; known: {', '.join(sorted(known))}")
+            raise TypeError(f"unknown budget setting(s) {', '.join(unknown)}; known: {', '.join(sorted(known))}")
         return replace(self, **{k: v for k, v in overrides.items() if v is not None})
 
 
-PROFILES: dict[str, Profile] = {
+BUDGETS: dict[str, Budget] = {
     # CI: 3 discounts x 5 sample sizes x 24 replicates = 360 estimator calls per pass.
-    "quick": Profile(
-        name="quick",
+    "ci": Budget(
+        name="ci",
         n_grid=(128, 256, 512, 1024, 2048),
         gammas=(0.5, 0.75, 0.9),
         replicates=24,
     ),
     # Paper appendix: 5 discounts x 7 sample sizes x 48 replicates = 1680 calls per pass.
-    "full": Profile(
-        name="full",
+    "appendix": Budget(
+        name="appendix",
         n_grid=(256, 512, 1024, 2048, 4096, 8192, 16384),
         gammas=(0.5, 0.7, 0.8, 0.9, 0.95),
         replicates=48,
@@ -123,12 +123,12 @@ PROFILES: dict[str, Profile] = {
 }
 
 
-def resolve_profile(profile: object, **overrides: Any) -> Profile:
-    """A :class:`Profile` from a name or an instance, with per-call overrides applied."""
-    if isinstance(profile, Profile):
-        base = profile
-    elif isinstance(profile, str) and profile in PROFILES:
-        base = PROFILES[profile]
+def resolve_budget(budget: object, **overrides: Any) -> Budget:
+    """A :class:`Budget` from a name or an instance, with per-call overrides applied."""
+    if isinstance(budget, Budget):
+        base = budget
+    elif isinstance(budget, str) and budget in BUDGETS:
+        base = BUDGETS[budget]
     else:
-        raise ValueError(f"unknown `profile` {profile!r}; choose one of {', '.join(PROFILES)} or pass a Profile")
+        raise ValueError(f"unknown `budget` {budget!r}; choose one of {', '.join(BUDGETS)} or pass a Budget")
     return base.with_overrides(**overrides) if overrides else base
