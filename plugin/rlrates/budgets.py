@@ -5,11 +5,12 @@
 ``check(..., n_grid=(256, 512, 1024), gammas=(0.6, 0.9))``.
 
 Decision rules (see :mod:`rlrates.verdict`): each sub-test fires when its
-one-sided confidence bound at level ``1 - alpha`` clears the claim plus a
-tolerance, and passes only when the opposite bound is inside it. The three
-sub-tests share ``alpha`` (a Bonferroni split), so a correct estimator is failed
-with probability at most about ``alpha`` overall, and far less when its true
-exponents sit well inside the tolerances.
+one-sided confidence bound clears the claim plus a tolerance (the *tested
+limit*), and passes only when the opposite bound is inside it. The sub-tests
+share ``alpha`` (a Bonferroni split), and both ``alpha`` and ``pass_alpha`` are
+spent over the planned looks of the escalation (:attr:`Budget.looks`), so a
+correct estimator is failed with probability at most about ``alpha`` over the
+whole check, and a violator gets no extra chances to pass from repeated looks.
 """
 
 from __future__ import annotations
@@ -35,9 +36,12 @@ class Budget:
         (and, for the floor test, over the discounts).
     pass_alpha: one-sided level of the far bound that must lie inside the
         tolerance before a sub-test counts as passed (the miss-rate side; not split).
-    n_tolerance: slack on the pooled n-exponent before "rate too slow" fires.
+    n_tolerance: slack on the n-exponent (pooled and per discount) before "rate too slow" fires.
     floor_tolerance: slack on each discount's upper-grid slope before "error floor" fires.
     horizon_tolerance: slack on the H-exponent before "horizon growth too steep" fires.
+    zero_level: absolute error at or below which an error counts as zero (default 0: only
+        floating-point zero, relative to the value scale, counts). Set it to the stopping
+        tolerance of an iterative solver when that floor is acceptable.
     min_n_per_horizon: cells with n below this multiple of H are pre-asymptotic and not fitted.
     saturation: cells whose mean error exceeds this fraction of the error scale
         (the value range, or 2 for L1 model errors) are saturated and not fitted.
@@ -58,9 +62,10 @@ class Budget:
     n_doublings: int = 2
     alpha: float = 0.01
     pass_alpha: float = 0.05
-    n_tolerance: float = 0.15
+    n_tolerance: float = 0.08
     floor_tolerance: float = 0.25
     horizon_tolerance: float = 0.3
+    zero_level: float = 0.0
     min_n_per_horizon: float = 8.0
     saturation: float = 0.5
     policy_resolution: float = 1e-3
@@ -90,9 +95,23 @@ class Budget:
         for level in ("alpha", "pass_alpha"):
             if not 0.0 < float(getattr(self, level)) < 0.5:
                 raise ValueError(f"`{level}` must lie in (0, 0.5), got {getattr(self, level)!r}")
+        for name in ("n_tolerance", "floor_tolerance", "horizon_tolerance", "zero_level", "saturation",
+                     "min_n_per_horizon", "policy_resolution"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0.0 <= float(value) < float("inf"):
+                raise ValueError(f"`{name}` must be a finite number >= 0, got {value!r}")
+        for name in ("more_replicates", "n_doublings"):
+            value = getattr(self, name)
+            if isinstance(value, bool) or not isinstance(value, int) or value < (1 if name == "more_replicates" else 0):
+                raise ValueError(f"`{name}` must be an integer >= {1 if name == 'more_replicates' else 0}, got {value!r}")
         object.__setattr__(self, "n_grid", grid)
         object.__setattr__(self, "gammas", tuple(sorted(set(gammas))))
         object.__setattr__(self, "replicates", int(self.replicates))
+
+    @property
+    def looks(self) -> int:
+        """How many times the verdict may be decided: the first pass plus each planned escalation step."""
+        return 1 + (self.more_replicates > 1) + self.n_doublings
 
     def with_overrides(self, **overrides: Any) -> "Budget":
         """A copy with some fields replaced (unknown names raise ``TypeError``)."""
@@ -119,6 +138,8 @@ BUDGETS: dict[str, Budget] = {
         replicates=48,
         n_doublings=2,
         alpha=0.005,
+        n_tolerance=0.05,
+        horizon_tolerance=0.2,
     ),
 }
 

@@ -3,8 +3,8 @@
 Passes: the budget's grid first; then, when the intervals are too wide, more
 replicates for every cell (once), and when the curve is not yet asymptotic, one
 doubling of the largest n per pass, up to the budget's escalation allowance. Either step is
-taken when the other is spent. Only when both are spent is the answer
-"inconclusive". A frozen :class:`Escalation` is the state between passes;
+taken when the other is spent. Only when both are spent, or when the verdict
+says no evidence would settle it, is the answer "inconclusive". A frozen :class:`Escalation` is the state between passes;
 :meth:`Escalation.next` gives the next state and the cells it adds.
 """
 
@@ -43,7 +43,10 @@ class Escalation:
         return state, Step(state.n_values, 0, state.replicates)
 
     def next(self, need: Need | None) -> tuple["Escalation", Step] | None:
-        """The state after one more escalation step and what that step runs; ``None`` when the budget is spent."""
+        """The state after one more escalation step and what that step runs; ``None`` when the budget is spent
+        or when no step would settle the question (``need == "nothing"``)."""
+        if need == "nothing":
+            return None
         replicates_spent = self.more_replicates <= 1
         if self.doublings_left > 0 and (need == "larger_n" or replicates_spent):
             n = max(self.n_values) * 2

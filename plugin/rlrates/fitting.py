@@ -19,9 +19,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
-from scipy import stats
+from scipy import special
 
-__all__ = ["Slope", "fit_slope", "pooled_slope", "summarise_cells", "DiscountFit", "fit_discounts", "fit_horizon"]
+__all__ = ["Slope", "fit_slope", "fit_cells", "pooled_slope", "summarise_cells", "DiscountFit", "fit_discounts", "HorizonFit", "fit_horizon"]
 
 
 @dataclass(frozen=True)
@@ -50,9 +50,14 @@ class Slope:
         return limit + (self._quantile(alpha) + self._quantile(1.0 - power)) * self.se
 
     def _quantile(self, alpha: float) -> float:
+        # scipy.special's inverse CDFs: the same numbers as scipy.stats' ppf, without its import cost
         if math.isinf(self.df):
-            return float(stats.norm.ppf(1.0 - alpha))
-        return float(stats.t.ppf(1.0 - alpha, self.df))
+            return float(special.ndtri(1.0 - alpha))
+        return float(special.stdtrit(self.df, 1.0 - alpha))
+
+    @property
+    def finite(self) -> bool:
+        return math.isfinite(self.estimate) and math.isfinite(self.se)
 
 
 def fit_slope(x: ArrayLike, y: ArrayLike, variance: ArrayLike, df: float = math.inf) -> Slope:
@@ -81,7 +86,7 @@ def _df(cells: pd.DataFrame) -> float:
     return float(max(cells["replicates"].min() - 1, 1))
 
 
-def _fit_cells(cells: pd.DataFrame, x_column: str = "n") -> Slope:
+def fit_cells(cells: pd.DataFrame, x_column: str = "n") -> Slope:
     x = np.log(cells[x_column].to_numpy(float))
     return fit_slope(x, cells["log_mean"], cells["log_var"], _df(cells))
 
@@ -117,7 +122,7 @@ def fit_discounts(cells: pd.DataFrame, gammas: list[float], window: int) -> tupl
             row["state"] = "too few asymptotic points"
         else:
             k = max(3, math.ceil(len(positive) / 2))
-            whole, upper, lower = _fit_cells(positive), _fit_cells(positive.tail(k)), _fit_cells(positive.head(k))
+            whole, upper, lower = fit_cells(positive), fit_cells(positive.tail(k)), fit_cells(positive.head(k))
             fitted.append(DiscountFit(float(gamma), whole, upper, Slope(
                 upper.estimate - lower.estimate, math.hypot(upper.se, lower.se), upper.df, k)))
             row.update(state="fitted", n_min=int(positive["n"].min()), n_max=int(positive["n"].max()),
@@ -126,32 +131,68 @@ def fit_discounts(cells: pd.DataFrame, gammas: list[float], window: int) -> tupl
     return pd.DataFrame(rows), fitted
 
 
-def fit_horizon(cells: pd.DataFrame, discounts: int) -> tuple[Slope | None, int | None]:
-    """The H-exponent at the largest n where all ``discounts`` have a usable, non-zero cell.
+@dataclass(frozen=True)
+class HorizonFit:
+    """The H-exponent pooled over every n at which all measurable discounts have a usable, non-zero cell.
 
-    Returns the slope and that n, or ``(None, None)`` when no n qualifies.
+    ``left_out`` maps each discount that is not in the fit to the reason.
+    """
+
+    slope: Slope | None
+    n_values: tuple[int, ...]
+    discounts: tuple[float, ...]
+    left_out: dict[float, str]
+
+
+def fit_horizon(cells: pd.DataFrame, gammas: list[float]) -> HorizonFit:
+    """The H-exponent over the discounts where it is measurable, pooled over their common n.
+
+    ``cells`` are the usable cells. A discount is measurable when it has at least
+    one usable cell with non-zero error; the others are left out, with the
+    reason. The H-slope at each common n is a least-squares slope of log mean
+    error on log H; the slopes at different n use disjoint cells, so the pooled
+    mean has the variance of a mean of independent slopes.
     """
     positive = cells[~cells["zero"]]
-    counts = positive.groupby("n")["gamma"].nunique()
-    common = counts[counts == discounts].index
-    if len(common) == 0:
-        return None, None
-    n_star = int(max(common))
-    return _fit_cells(positive[positive["n"] == n_star].sort_values("gamma"), "H"), n_star
+    left_out: dict[float, str] = {}
+    for gamma in gammas:
+        if not len(cells[cells["gamma"] == gamma]):
+            left_out[gamma] = "no usable cell (pre-asymptotic or saturated at every n)"
+        elif not len(positive[positive["gamma"] == gamma]):
+            left_out[gamma] = "zero error at every usable n"
+    measured = [g for g in gammas if g not in left_out]
+    if len(measured) < 2:
+        return HorizonFit(None, (), tuple(measured), left_out)
+    kept = positive[positive["gamma"].isin(measured)]
+    counts = kept.groupby("n")["gamma"].nunique()
+    common = sorted(int(n) for n in counts[counts == len(measured)].index)
+    if not common:
+        return HorizonFit(None, (), tuple(measured), left_out)
+    slopes = [fit_cells(kept[kept["n"] == n].sort_values("gamma"), "H") for n in common]
+    return HorizonFit(pooled_slope(slopes), tuple(common), tuple(measured), left_out)
 
 
-def summarise_cells(table: pd.DataFrame, zero_tolerance: dict[float, float] | None = None) -> pd.DataFrame:
-    """Per (gamma, n): replicates, mean and sd of the error, log mean and its delta-method variance.
+def summarise_cells(table: pd.DataFrame, zero_tolerance: dict[float, float] | None = None,
+                    exact_tolerance: dict[float, float] | None = None) -> pd.DataFrame:
+    """Per (gamma, n): replicates, mean, median and sd of the error, log mean and its delta-method variance.
 
-    ``zero_tolerance`` maps gamma to the error below which a cell counts as
-    exactly zero (floating-point noise of an exact estimator).
+    ``zero_tolerance`` maps gamma to the mean error at or below which a cell counts
+    as zero (floating-point noise of an exact estimator, or the user's zero
+    level). With ``exact_tolerance`` a cell also needs most of its replicates
+    (its median) at or below that level: a small mean from estimates that are
+    all slightly wrong is not zero. ``constant`` marks non-zero cells whose
+    replicates all gave the same error.
     """
     grouped = table.groupby(["gamma", "n"], sort=True)["error"]
-    summary = grouped.agg(replicates="count", mean="mean", sd="std").reset_index()
+    summary = grouped.agg(replicates="count", mean="mean", median="median", sd="std", high="max",
+                          low="min").reset_index()
     summary["sd"] = summary["sd"].fillna(0.0)
     summary["H"] = 1.0 / (1.0 - summary["gamma"])
     tolerance = summary["gamma"].map(zero_tolerance or {}).fillna(0.0)
     summary["zero"] = summary["mean"] <= tolerance
+    if exact_tolerance is not None:
+        summary["zero"] &= summary["median"] <= summary["gamma"].map(exact_tolerance).fillna(0.0)
+    summary["constant"] = ~summary["zero"] & (summary["replicates"] > 1) & (summary["high"] == summary["low"])
     positive = ~summary["zero"]
     summary["log_mean"] = np.where(positive, np.log(summary["mean"].where(positive, 1.0)), -np.inf)
     rel = summary["sd"] / summary["mean"].where(positive, 1.0)

@@ -14,6 +14,7 @@ from .result import CheckResult
 __all__ = ["format_message", "headline", "mean_error_grid", "format_interval"]
 
 _REASON_NAMES = {
+    "stall": "error does not fall",
     "rate": "rate too slow",
     "floor": "error floor",
     "horizon": "horizon growth too steep",
@@ -57,16 +58,25 @@ def format_message(result: CheckResult) -> str:
             lines.append("estimator traceback:")
             lines.extend("    " + line for line in result.failure.traceback.rstrip().splitlines())
     else:
-        lines.append("fitted:    factor    exponent [one-sided bounds]   claimed  tolerance  verdict")
+        lines.append("fitted:    factor    exponent [one-sided bounds]   tested limit (claim + tolerance)  verdict")
         for fit in result.factors:
             interval = format_interval(fit.exponent, fit.low, fit.high)
-            lines.append(
-                f"           {fit.symbol:<8}  {interval:<28} {fit.claimed:>+7.3g}  {fit.tolerance:>+9.3g}  {fit.verdict}"
-            )
+            limit = f"<= {fit.limit:+.3f} ({fit.claimed:g} + {fit.tolerance:g})"
+            lines.append(f"           {fit.symbol:<8}  {interval:<28} {limit:<33} {fit.verdict}")
+        levels = {(fit.low_level, fit.high_level) for fit in result.factors if fit.measured}
+        if levels:
+            lines.append("bounds:    " + "; ".join(
+                f"lower {low:.2%}, upper {high:.2%} one-sided" for low, high in sorted(levels)))
+        for fit in result.factors:
+            if fit.measured and math.isfinite(fit.detectable):
+                lines.append(f"power:     would have caught {fit.symbol}^{fit.detectable:+.2f} or steeper growth "
+                             f"with 95% probability" if fit.factor == "horizon" else
+                             f"power:     would have caught {fit.symbol}^{fit.detectable:+.2f} or slower decay "
+                             f"with 95% probability")
         for reason in result.reasons:
             lines.append(f"why:       {reason}")
         if result.status == "pass" and not result.reasons:
-            lines.append("why:       no sub-test fired and every interval is inside the claim plus tolerance")
+            lines.append("why:       no sub-test fired and every interval is inside its tested limit")
     for note in result.notes:
         lines.append(f"note:      {note}")
     slopes = result.evidence.slopes

@@ -29,11 +29,12 @@ from .families import rebuild_call
 from .fitting import summarise_cells
 from .mdp import TabularMDP
 from .messages import format_message
+from .probes import constant_replicates, determinism_probe, deterministic_mdp
 from .budgets import Budget, resolve_budget
 from .result import Block, CellFailure, CheckInterrupted, CheckResult, Evidence, MDPDescription, RunInfo
 from .sampling import SupportKernel, mdp_kernel
 from .sweep import Estimator, SweepPlan, blocks_of, run_sweep
-from .targets import Truth, solve_truth, validate_norm, validate_target
+from .targets import Truth, solve_truth, validate_norm, validate_target, zero_levels
 from .verdict import Decision, decide
 from .vocabulary import Status
 
@@ -130,6 +131,7 @@ def check(
     context: str = "",
     reproducer: str | None = None,
     time_limit: float | None = None,
+    zero_level: float | None = None,
 ) -> CheckResult:
     """Check that ``estimator``'s error on ``mdp`` falls and grows as ``claim`` says.
 
@@ -156,7 +158,9 @@ def check(
     target : {"q_pi", "q_star", "policy", "model"}, default "q_pi"
         What the estimator estimates.
     policy : array_like, optional
-        (S, A) row-stochastic evaluation policy for "q_pi" (default: uniform).
+        (S, A) row-stochastic evaluation policy for "q_pi" (default: a random
+        stochastic policy seeded by the MDP's fingerprint,
+        :func:`rlrates.targets.default_policy`; a uniform one would hide policy bugs).
     budget : str or Budget, default "ci"
         The sweep design and decision levels: "ci" (CI) or "appendix" (appendix).
     seed : int, default 0
@@ -175,6 +179,10 @@ def check(
         Replaces the Python call shown at the end of the message.
     time_limit : float, optional
         Seconds; a slower estimator call turns the result into "error".
+    zero_level : float, optional
+        Absolute error at or below which an error counts as zero (for example the
+        stopping tolerance of an iterative solver). By default only floating-point
+        zero, relative to the value scale, counts.
 
     Returns
     -------
@@ -201,23 +209,27 @@ def check(
     'pass'
     """
     call = _validate(estimator, claim, target, norm, seed, executor, time_limit,
-                     resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates))
+                     resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates,
+                                    zero_level=zero_level))
     name, metadata = _describe_source(mdp)
     _warn_design(call, n_grid is not None)
     started = time.perf_counter()
     truths = {gamma: solve_truth(_mdp_for(mdp, gamma), gamma, call.target, policy) for gamma in call.design.gammas}
-    plan = SweepPlan(call.estimator, truths, _kernels(truths), call.seed, context, call.norm, call.time_limit)
+    kernels = _kernels(truths)
+    plan = SweepPlan(call.estimator, truths, kernels, call.seed, context, call.norm, call.time_limit)
+    probe_notes = _probe(call, truths, kernels)
     passes = _run_passes(plan, executor, call, truths)
     if reproducer is None:
         extras = {"norm": norm if norm != "sup" else None, "n_grid": n_grid, "gammas": gammas,
-                  "replicates": replicates, "context": context or None, "time_limit": time_limit}
+                  "replicates": replicates, "context": context or None, "time_limit": time_limit,
+                  "zero_level": zero_level}
         reproducer = _reproducer(call, rebuild_call(metadata) or name, policy is not None, extras)
     run = RunInfo(passes.passes, time.perf_counter() - started,
                   float(passes.table["seconds"].sum()) if len(passes.table) else 0.0, context, passes.blocks,
                   reproducer)
     description = MDPDescription(name, metadata, {g: t.mdp.fingerprint for g, t in truths.items()},
                                  {g: t.scale for g, t in truths.items()})
-    result = _assemble(call, passes, run, description)
+    result = _assemble(call, passes, run, description, probe_notes)
     if passes.failure is not None and passes.failure.kind == "interrupted":
         raise CheckInterrupted(result)
     return result
@@ -256,6 +268,21 @@ def _warn_design(call: _Call, own_grid: bool) -> None:
         )
 
 
+def _probe(call: _Call, truths: dict[float, Truth], kernels: dict[float, SupportKernel]) -> list[str]:
+    """Warn (and note) when the estimator is not a function of its batch or the MDP cannot test a rate."""
+    notes: list[str] = []
+    if call.target != "model":
+        deterministic = {deterministic_mdp(truth.mdp) for truth in truths.values()} - {None}
+        notes.extend(sorted(text for text in deterministic if text))
+    gamma = min(truths)
+    drift = determinism_probe(call.estimator, truths[gamma], kernels[gamma], call.design.n_grid[0], call.seed)
+    if drift:
+        notes.append(drift)
+    for note in notes:
+        warnings.warn(note, RatesWarning, stacklevel=3)
+    return notes
+
+
 def _kernels(truths: dict[float, Truth]) -> dict[float, SupportKernel]:
     """The sampling kernel per discount, built once per distinct MDP (one MDP serves every gamma unless it is a family)."""
     by_fingerprint: dict[str, SupportKernel] = {}
@@ -268,8 +295,7 @@ def _kernels(truths: dict[float, Truth]) -> dict[float, SupportKernel]:
 def _run_passes(plan: SweepPlan, executor: Executor | None, call: _Call, truths: dict[float, Truth]) -> _Passes:
     """Run passes until the verdict is decided, a cell fails, or the escalation allowance is spent."""
     design = call.design
-    resolution = design.policy_resolution if call.target == "policy" else 1e-9
-    zero_tolerance = {g: resolution * max(1.0, t.scale) for g, t in truths.items()}
+    zero_tolerance, exact_tolerance = zero_levels(truths, call.target, design)
     scale = {g: t.scale for g, t in truths.items()}
     state, step = Escalation.start(design)
     tables: list[pd.DataFrame] = []
@@ -285,8 +311,11 @@ def _run_passes(plan: SweepPlan, executor: Executor | None, call: _Call, truths:
         table = pd.concat(tables, ignore_index=True)
         if failure is not None:
             break
-        decision = decide(summarise_cells(table, zero_tolerance), call.claim, design, scale,
-                          window=len(design.n_grid))
+        summary = summarise_cells(table, zero_tolerance, exact_tolerance)
+        failure = constant_replicates(summary, table, call.target)
+        if failure is not None:
+            break
+        decision = decide(summary, call.claim, design, scale, window=len(design.n_grid))
         escalated = state.next(decision.need) if decision.status == "ambiguous" else None
         if escalated is None:
             break
@@ -306,7 +335,8 @@ def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str
     )
 
 
-def _assemble(call: _Call, passes: _Passes, run: RunInfo, mdp: MDPDescription) -> CheckResult:
+def _assemble(call: _Call, passes: _Passes, run: RunInfo, mdp: MDPDescription,
+              probe_notes: list[str]) -> CheckResult:
     """The frozen result, with its message rendered once."""
     decision = passes.decision
     status: Status
@@ -314,13 +344,15 @@ def _assemble(call: _Call, passes: _Passes, run: RunInfo, mdp: MDPDescription) -
         status = "error"
     else:
         status = "inconclusive" if decision.status == "ambiguous" else decision.status
-    notes = list(decision.notes)
+    notes = [*probe_notes, *decision.notes]
     if status == "inconclusive":
-        notes.append(
-            f"budget spent after {passes.passes} pass(es): {passes.state.replicates} replicates per cell, n up to "
-            f"{max(passes.state.n_values)}; a larger budget (budget 'appendix', or more replicates / a longer n_grid) "
-            "may settle it"
-        )
+        spent = (f"{passes.passes} pass(es): {passes.state.replicates} replicates per cell, n up to "
+                 f"{max(passes.state.n_values)}")
+        if decision.need == "nothing" and passes.passes < call.design.looks:
+            notes.append(f"stopped after {spent}; no larger budget of this design would settle it (see why)")
+        else:
+            notes.append(f"budget spent after {spent}; the replicates or n named under why (more replicates, "
+                         "or a longer n_grid) would settle it")
     result = CheckResult(
         status=status, claim=call.claim, target=call.target, norm=call.norm, budget=call.design, seed=call.seed,
         mdp=mdp, run=run, evidence=Evidence(passes.table, decision.cells, decision.slopes),

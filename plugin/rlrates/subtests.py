@@ -1,12 +1,16 @@
 """The sub-tests of a verdict, each a small pure function returning a :class:`SubTest`.
 
+* :func:`stall_test`: at some discount the error is still large (saturated) at
+  the largest n and does not fall: the strongest evidence of a bug, never
+  excused as pre-asymptotic.
 * :func:`floor_test`: for some discount the slope over the upper part of the n
   grid is confidently above ``claim.n + floor_tolerance`` (the error stops
   falling: a bias). Bonferroni over discounts: pooling alone hides floors (a
   curve flat at one discount and steep at another can average to a good slope).
-* :func:`rate_test`: the n-exponent averaged over discounts is confidently above
+* :func:`rate_test`: the n-exponent, averaged over discounts and at each
+  discount (Bonferroni over discounts), is confidently above
   ``claim.n + n_tolerance`` (the error falls too slowly), unless no floor fired
-  and the curve is still bending toward steeper slopes (a burn-in: ask for
+  and that curve is still bending toward steeper slopes (a burn-in: ask for
   larger n instead).
 * :func:`coverage_test`: every discount had at least three asymptotic points,
   so the n-claim was tested at every discount.
@@ -14,9 +18,9 @@
   ``claim.horizon + horizon_tolerance``.
 
 Each sub-test fires ("violated") when its fire-side bound, at level
-``1 - alpha``, clears its limit; it is "ok" only when its pass-side bound, at
-level ``1 - pass_alpha``, lies inside the limit; anything between is "unclear"
-and names the evidence that would settle it.
+``1 - levels.fire``, clears its limit; it is "ok" only when its pass-side bound,
+at level ``1 - levels.passing``, lies inside the limit; anything between is
+"unclear" and names the evidence that would settle it.
 """
 
 from __future__ import annotations
@@ -26,11 +30,20 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from .fitting import DiscountFit, Slope, pooled_slope
 from .budgets import Budget
+from .fitting import DiscountFit, HorizonFit, Slope, fit_cells, pooled_slope
 from .vocabulary import Need, SubTestName, SubTestVerdict
 
-__all__ = ["SubTest", "floor_test", "rate_test", "coverage_test", "horizon_test", "short_discounts"]
+__all__ = ["Levels", "SubTest", "stall_test", "floor_test", "rate_test", "coverage_test", "horizon_test",
+           "short_discounts"]
+
+
+@dataclass(frozen=True)
+class Levels:
+    """One-sided error rates of a sub-test: ``fire`` (false alarm) and ``passing`` (miss), already split."""
+
+    fire: float
+    passing: float
 
 
 @dataclass(frozen=True)
@@ -44,12 +57,54 @@ class SubTest:
     need: Need | None = None
 
 
-def floor_test(fits: list[DiscountFit], claim_n: float, budget: Budget, alpha: float) -> SubTest:
+def _errors_in_words(cells: pd.DataFrame) -> str:
+    means = cells["mean"].to_numpy(float)
+    if means.max() <= 1.5 * means.min():
+        return f"about {float(np.median(means)):.3g} at every n"
+    first, last = cells.iloc[0], cells.iloc[-1]
+    return f"{float(first['mean']):.3g} at n={int(first['n'])} and {float(last['mean']):.3g} at n={int(last['n'])}"
+
+
+def stall_test(cells: pd.DataFrame, claim_n: float, budget: Budget, levels: Levels,
+               scale: dict[float, float]) -> SubTest:
+    """Is the error, at some discount, still saturated at the largest n and not falling?
+
+    ``cells`` are all marked cells (:func:`rlrates.verdict.mark_cells`). Saturated
+    cells are left out of the fits only while the error is falling toward the
+    asymptotic regime; a discount whose error is saturated at its largest n and
+    whose slope over its cells is confidently above ``claim_n + floor_tolerance``
+    fails here.
+    """
+    limit = claim_n + budget.floor_tolerance
+    gammas = sorted(float(g) for g in cells["gamma"].unique())
+    level = levels.fire / max(len(gammas), 1)
+    stalled: list[str] = []
+    for gamma in gammas:
+        own = cells[(cells["gamma"] == gamma) & ~cells["early"] & ~cells["zero"]].sort_values("n")
+        if len(own) < 3 or not bool(own["saturated"].iloc[-1]):
+            continue
+        slope = fit_cells(own)
+        if slope.finite and slope.lower(level) > limit:
+            stalled.append(
+                f"gamma={gamma:g}: {_errors_in_words(own)} (n^{slope.estimate:+.2f}, lower bound "
+                f"{slope.lower(level):+.2f}), close to the error scale {scale.get(gamma, float('nan')):.3g}"
+            )
+    if stalled:
+        return SubTest("stall", "violated", reason=(
+            "the error does not fall: " + "; ".join(stalled)
+            + f". A large error that stays flat or rises over the whole grid is a bug, not a pre-asymptotic "
+            f"regime (the tested limit is n^{limit:+.2f}: claim {claim_n:g} + floor tolerance "
+            f"{budget.floor_tolerance:g})"
+        ))
+    return SubTest("stall", "ok")
+
+
+def floor_test(fits: list[DiscountFit], claim_n: float, budget: Budget, levels: Levels) -> SubTest:
     """Does the error stop falling over the largest n at some discount?"""
     if not fits:
         return SubTest("floor", "ok")
     limit = claim_n + budget.floor_tolerance
-    level = alpha / len(fits)
+    level = levels.fire / len(fits)
     floors = [fit for fit in fits if fit.upper.lower(level) > limit]
     if floors:
         where = ", ".join(
@@ -57,34 +112,55 @@ def floor_test(fits: list[DiscountFit], claim_n: float, budget: Budget, alpha: f
             for fit in floors
         )
         return SubTest("floor", "violated", reason=(
-            f"error floor: over the largest n the error stops falling at {where}; the claim allows at most "
-            f"n^{claim_n:g} plus tolerance {budget.floor_tolerance:g} (a bias the data cannot remove)"
+            f"error floor: over the largest n the error stops falling at {where}; the tested limit is "
+            f"n^{limit:+.2f} (claim {claim_n:g} + floor tolerance {budget.floor_tolerance:g}): a bias the data "
+            "cannot remove"
         ))
-    if any(fit.upper.upper(budget.pass_alpha) > limit for fit in fits):
+    if any(fit.upper.upper(levels.passing) > limit for fit in fits):
         return SubTest("floor", "unclear", need="replicates")
     return SubTest("floor", "ok")
 
 
-def rate_test(fits: list[DiscountFit], claim_n: float, budget: Budget, alpha: float, floor_fired: bool) -> SubTest:
-    """Does the error fall more slowly than claimed, averaged over discounts?"""
+def _bending(steepening: Slope, level: float) -> bool:
+    """Concave in log-log: the slope over the larger n is confidently steeper than over the smaller n."""
+    return steepening.upper(level) < 0.0
+
+
+def rate_test(fits: list[DiscountFit], claim_n: float, budget: Budget, levels: Levels, floor_fired: bool) -> SubTest:
+    """Does the error fall more slowly than claimed, averaged over discounts or at any one discount?
+
+    The fire-side level is split in two: half for the pooled slope, half shared
+    (Bonferroni) by the per-discount slopes, so a slow rate at one discount
+    cannot hide behind a fast one.
+    """
     if not fits:
         return SubTest("rate", "ok")
     pooled = pooled_slope([fit.whole for fit in fits])
     limit = claim_n + budget.n_tolerance
-    if pooled.lower(alpha) > limit:
-        # Concave in log-log (the slope is still getting steeper): pre-asymptotic, not slow.
-        bending = pooled_slope([fit.steepening for fit in fits]).upper(alpha) < 0.0
-        if bending and not floor_fired:
-            fast_mean = float(np.mean([fit.upper.estimate for fit in fits]))
-            return SubTest("rate", "unclear", need="larger_n", note=(
-                f"not yet asymptotic: over the whole window the n-exponent is {pooled.estimate:.2f}, but over "
-                f"the largest n it is {fast_mean:.2f}; the curve is still bending toward steeper slopes"
-            ))
-        return SubTest("rate", "violated", reason=(
-            f"rate too slow: the n-exponent is {pooled.estimate:.2f} (lower bound {pooled.lower(alpha):.2f}), "
-            f"above the claimed {claim_n:g} plus tolerance {budget.n_tolerance:g}"
+    pooled_level = levels.fire / 2
+    each_level = levels.fire / (2 * len(fits))
+    tested = f"the tested limit is n^{limit:+.2f} (claim {claim_n:g} + tolerance {budget.n_tolerance:g})"
+    slow = [fit for fit in fits if fit.whole.lower(each_level) > limit
+            and (floor_fired or not _bending(fit.steepening, each_level))]
+    pooled_slow = pooled.lower(pooled_level) > limit
+    pooled_bending = _bending(pooled_slope([fit.steepening for fit in fits]), pooled_level)
+    if slow or (pooled_slow and (floor_fired or not pooled_bending)):
+        parts = []
+        if pooled_slow:
+            parts.append(f"averaged over discounts the n-exponent is {pooled.estimate:+.2f} "
+                         f"(lower bound {pooled.lower(pooled_level):+.2f})")
+        if slow:
+            parts.append("at " + ", ".join(
+                f"gamma={fit.gamma:g} it is {fit.whole.estimate:+.2f} (lower bound {fit.whole.lower(each_level):+.2f})"
+                for fit in slow))
+        return SubTest("rate", "violated", reason=f"rate too slow: {'; '.join(parts)}; {tested}")
+    if pooled_slow:
+        fast_mean = float(np.mean([fit.upper.estimate for fit in fits]))
+        return SubTest("rate", "unclear", need="larger_n", note=(
+            f"not yet asymptotic: over the whole window the n-exponent is {pooled.estimate:.2f}, but over "
+            f"the largest n it is {fast_mean:.2f}; the curve is still bending toward steeper slopes"
         ))
-    if pooled.upper(budget.pass_alpha) > limit:
+    if pooled.upper(levels.passing) > limit:
         return SubTest("rate", "unclear", need="replicates")
     return SubTest("rate", "ok")
 
@@ -110,22 +186,41 @@ def coverage_test(slopes: pd.DataFrame) -> SubTest:
     return SubTest("coverage", "ok")
 
 
-def horizon_test(slope: Slope | None, n_star: int | None, some_zero: bool, claim_h: float, budget: Budget,
-                 alpha: float) -> SubTest:
-    """Does the error grow faster in H than claimed? ``slope`` is the H-exponent fitted at ``n_star``."""
+def _horizon_note(fit: HorizonFit) -> str:
+    parts = []
+    if fit.slope is not None:
+        ns = fit.n_values
+        where = f"n={ns[0]}" if len(ns) == 1 else f"{len(ns)} values of n from {ns[0]} to {ns[-1]}"
+        parts.append(f"H-exponent pooled over {where}")
+    for gamma, why in fit.left_out.items():
+        parts.append(f"gamma={gamma:g} left out of the H-fit: {why}")
+    return "; ".join(parts)
+
+
+def horizon_test(fit: HorizonFit, claim_h: float, budget: Budget, levels: Levels) -> SubTest:
+    """Does the error grow faster in H than claimed? The H-exponent comes from :func:`rlrates.fitting.fit_horizon`."""
+    note = _horizon_note(fit)
+    slope = fit.slope
     if slope is None:
-        if some_zero:
-            return SubTest("horizon", "ok",
-                           note="some errors vanish at every usable n: the H-exponent is not measurable there")
-        return SubTest("horizon", "unclear", need="larger_n",
-                       note="no n is in the asymptotic range for every discount: need larger n for the H-exponent")
-    note = f"H-exponent fitted at n={n_star}"
+        if len(fit.discounts) < 2:
+            vanished = all("zero error" in why for why in fit.left_out.values())
+            return SubTest("horizon", "unclear", need="nothing" if vanished else "larger_n", note=(
+                note + "; the H-exponent is not measurable: fewer than two discounts have usable non-zero errors"
+            ).lstrip("; "))
+        return SubTest("horizon", "unclear", need="larger_n", note=(
+            note + "; no n is in the asymptotic range for every measurable discount: need larger n for the H-exponent"
+        ).lstrip("; "))
+    if not slope.finite:
+        return SubTest("horizon", "unclear", need="nothing", note=note, reason=(
+            "the H-exponent has no finite estimate or bound (errors overflow or are not numbers): untested"
+        ))
     limit = claim_h + budget.horizon_tolerance
-    if slope.lower(alpha) > limit:
+    if slope.lower(levels.fire) > limit:
         return SubTest("horizon", "violated", note=note, reason=(
             f"horizon growth too steep: the error grows like H^{slope.estimate:.2f} (lower bound "
-            f"{slope.lower(alpha):.2f}), above the claimed H^{claim_h:g} plus tolerance {budget.horizon_tolerance:g}"
+            f"{slope.lower(levels.fire):.2f}); the tested limit is H^{limit:g} (claim {claim_h:g} + tolerance "
+            f"{budget.horizon_tolerance:g})"
         ))
-    if slope.upper(budget.pass_alpha) > limit:
+    if slope.upper(levels.passing) > limit:
         return SubTest("horizon", "unclear", note=note, need="replicates")
     return SubTest("horizon", "ok", note=note)

@@ -16,17 +16,22 @@ every replicate and n.
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 from numpy.typing import NDArray
 
-from .exact import q_pi, q_star, uniform_policy, validate_policy
+from .exact import q_pi, q_star, validate_policy
 from .mdp import TabularMDP
 from .vocabulary import NORMS, TARGETS
 
-__all__ = ["TARGETS", "NORMS", "Problem", "Truth", "EstimateError", "solve_truth", "validate_estimate", "estimate_error"]
+if TYPE_CHECKING:
+    from .budgets import Budget
+
+__all__ = ["TARGETS", "NORMS", "Problem", "Truth", "EstimateError", "default_policy", "solve_truth",
+           "validate_estimate", "estimate_error", "zero_levels"]
 
 
 Array = NDArray[np.float64]
@@ -84,9 +89,22 @@ class Truth:
         return Problem(self.mdp.states, self.mdp.actions, rewards, self.gamma, policy, self.target)
 
 
+def default_policy(mdp: TabularMDP) -> Array:
+    """The default evaluation policy: random stochastic rows, seeded by the MDP's fingerprint.
+
+    Each row is a draw from the flat Dirichlet distribution over actions. A
+    uniform policy would hide policy bugs (a transposed policy matrix, actions
+    and states swapped) because every row is the same; a random one does not,
+    and being derived from the fingerprint it is the same on every run.
+    """
+    words = [int(mdp.fingerprint[i : i + 8], 16) for i in range(0, 32, 8)]
+    rng = np.random.default_rng(np.random.SeedSequence(words, spawn_key=(0x706F6C,)))
+    return rng.dirichlet(np.ones(mdp.actions), size=mdp.states)
+
+
 def solve_truth(mdp: TabularMDP, gamma: float, target: str, policy: Any = None) -> Truth:
-    """Solve the exact target once for this discount."""
-    pi = uniform_policy(mdp) if policy is None else validate_policy(mdp, policy)
+    """Solve the exact target once for this discount (``policy=None``: :func:`default_policy`)."""
+    pi = default_policy(mdp) if policy is None else validate_policy(mdp, policy)
     H = 1.0 / (1.0 - gamma)
     value_scale = mdp.reward_span * H
     if target == "q_pi":
@@ -104,6 +122,15 @@ def _require_array(estimate: object, what: str) -> np.ndarray:
         raise EstimateError(
             f"the estimator returned {type(estimate).__name__}, not a numpy.ndarray; return {what}"
         )
+    if isinstance(estimate, np.ma.MaskedArray):
+        hidden = np.ma.getmaskarray(estimate)
+        if hidden.any():
+            index = tuple(int(i) for i in np.argwhere(hidden)[0])
+            raise EstimateError(
+                f"the estimator returned a masked array with {int(hidden.sum())} masked entries (the first at index "
+                f"{index}); masked entries hide values from the error, so return a plain ndarray: {what}"
+            )
+        return np.asarray(estimate.data)
     return estimate
 
 
@@ -176,3 +203,19 @@ def estimate_error(estimate: Array, truth: Truth, norm: str = "sup") -> float:
         return cached
     distances = np.abs(estimate - truth.value).sum(axis=2)
     return float(distances.max() if norm == "sup" else distances.mean())
+
+
+def zero_levels(truths: Mapping[float, Truth], target: str,
+                design: "Budget") -> tuple[dict[float, float], dict[float, float] | None]:
+    """Per discount, the mean error at or below which a cell is zero, and (policies) the level its median must meet.
+
+    Floating-point zero is relative to the value scale (rewards of 1e-10 give
+    values of 1e-10, not an exact estimator). For policies, a mean suboptimality
+    under ``policy_resolution`` of the value range is zero only when most
+    replicates returned an optimal policy.
+    """
+    exact = {g: 1e-9 * max(t.scale, float(abs(t.value).max()) if t.value.size else 0.0) for g, t in truths.items()}
+    if target == "policy":
+        resolution = {g: max(design.policy_resolution * t.scale, exact[g], design.zero_level) for g, t in truths.items()}
+        return resolution, {g: max(exact[g], design.zero_level) for g in truths}
+    return {g: max(exact[g], design.zero_level) for g in truths}, None

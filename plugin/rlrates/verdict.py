@@ -6,20 +6,25 @@ and the H-exponent (:mod:`rlrates.fitting`), runs the sub-tests
 fires, is ambiguous when one is unclear (and says whether more replicates or
 larger n would settle it), and passes only when every sub-test is "ok". The
 sub-tests share the budget's ``alpha`` (a Bonferroni split over the claimed
-factors, the n-claim counting twice: rate and floor). In the fits, ``low`` is
-the fire-side bound and ``high`` the pass-side bound.
+factors, the n-claim counting twice: rate and floor), and both ``alpha`` and
+``pass_alpha`` are split over the budget's planned looks, so the error rates
+hold for the whole escalation. In the fits, ``low`` is the fire-side bound and
+``high`` the pass-side bound. No claimed factor passes without finite bounds.
 
 Cells are left out of the fits when pre-asymptotic (n below
 ``min_n_per_horizon`` times H), saturated (mean error above ``saturation``
 times the error scale) or below the fit window (only the ``window`` largest
-usable n enter the n-fits). Cells whose errors are floating-point zero are
-"faster than any power": never clamped and fitted.
+usable n enter the n-fits). Saturated cells are excused only while the error
+still falls: a discount still saturated at its largest n with a flat or rising
+error fails (:func:`rlrates.subtests.stall_test`). Cells whose errors are zero
+(to floating-point precision, or the user's zero level) are "faster than any
+power": never clamped and fitted.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 import pandas as pd
@@ -28,10 +33,11 @@ from .claims import Claim
 from .fitting import Slope, fit_discounts, fit_horizon, pooled_slope
 from .budgets import Budget
 from .result import Fit
-from .subtests import SubTest, coverage_test, floor_test, horizon_test, rate_test, short_discounts
+from .subtests import (Levels, SubTest, coverage_test, floor_test, horizon_test, rate_test, short_discounts,
+                       stall_test)
 from .vocabulary import Factor, FitVerdict, Need, Outcome
 
-__all__ = ["Decision", "decide", "mark_cells"]
+__all__ = ["Decision", "decide", "mark_cells", "levels_for"]
 
 
 @dataclass(frozen=True)
@@ -67,20 +73,24 @@ def mark_cells(summary: pd.DataFrame, budget: Budget, scale: dict[float, float],
          "below the fit window", "zero error"],
         default="",
     )
+    cells["early"] = early
+    cells["saturated"] = saturated
     cells["usable"] = usable
     cells["fitted"] = in_window & ~zero
     cells["left_out"] = reasons
     return cells
 
 
-def _alpha(claim: Claim, budget: Budget) -> float:
+def levels_for(claim: Claim, budget: Budget) -> Levels:
+    """The levels each sub-test uses: ``alpha`` split over the claimed factors (n counting twice), both
+    ``alpha`` and ``pass_alpha`` split over the planned looks."""
     active = (claim.n is not None) * 2 + (claim.horizon is not None)
-    return budget.alpha / max(active, 1)
+    return Levels(budget.alpha / max(active, 1) / budget.looks, budget.pass_alpha / budget.looks)
 
 
-def _fit(factor: Factor, slope: Slope | None, claimed: float, tolerance: float, levels: tuple[float, float],
+def _fit(factor: Factor, slope: Slope | None, claimed: float, tolerance: float, levels: Levels,
          verdict: FitVerdict) -> Fit:
-    fire, passing = levels
+    fire, passing = levels.fire, levels.passing
     if slope is None:
         return Fit(factor, math.nan, math.nan, math.nan, math.nan, 1 - fire, 1 - passing, claimed, tolerance,
                    math.nan, verdict)
@@ -93,7 +103,7 @@ def _combined(tests: list[SubTest]) -> FitVerdict:
     return "violated" if "violated" in verdicts else "unclear" if "unclear" in verdicts else "ok"
 
 
-def _exact(claim: Claim, budget: Budget, cells: pd.DataFrame, levels: tuple[float, float]) -> Decision:
+def _exact(claim: Claim, budget: Budget, cells: pd.DataFrame, levels: Levels) -> Decision:
     claimed: list[tuple[Factor, float | None, float]] = [
         ("n", claim.n, budget.n_tolerance), ("horizon", claim.horizon, budget.horizon_tolerance)]
     fits = [_fit(factor, None, bound, tolerance, levels, "exact") for factor, bound, tolerance in claimed
@@ -105,8 +115,7 @@ def _exact(claim: Claim, budget: Budget, cells: pd.DataFrame, levels: tuple[floa
 def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[float, float], window: int) -> Decision:
     """Decide one pass. ``window`` is how many of the largest usable n values each n-fit uses."""
     cells = mark_cells(summary, budget, scale, window)
-    alpha = _alpha(claim, budget)
-    levels = (alpha, budget.pass_alpha)
+    levels = levels_for(claim, budget)
     if bool(summary["zero"].all()):
         return _exact(claim, budget, cells, levels)
     usable = cells[cells["usable"]]
@@ -115,39 +124,91 @@ def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[floa
     tests: list[SubTest] = []
     fits: list[Fit] = []
     if claim.n is not None:
-        floor = floor_test(per_discount, claim.n, budget, alpha)
-        n_tests = [floor, rate_test(per_discount, claim.n, budget, alpha, floor.verdict == "violated"),
+        floor = floor_test(per_discount, claim.n, budget, levels)
+        n_tests = [stall_test(cells, claim.n, budget, levels, scale), floor,
+                   rate_test(per_discount, claim.n, budget, levels, floor.verdict == "violated"),
                    coverage_test(slopes)]
         pooled = pooled_slope([fit.whole for fit in per_discount]) if per_discount else None
-        fits.append(_fit("n", pooled, claim.n, budget.n_tolerance, levels, _combined(n_tests)))
+        # the pooled slope is tested at half the fire-side level (the other half goes to the per-discount slopes)
+        n_levels = Levels(levels.fire / 2, levels.passing)
+        n_fit = _fit("n", pooled, claim.n, budget.n_tolerance, n_levels, _combined(n_tests))
+        # no fitted discount and every test ok: the errors vanish at the largest n (faster than any power)
+        fits.append(n_fit if pooled is None else _finite_or_unclear(n_fit))
         tests += n_tests
     if claim.horizon is not None:
-        slope, n_star = fit_horizon(usable, len(gammas))
-        horizon = horizon_test(slope, n_star, bool(summary["zero"].any()), claim.horizon, budget, alpha)
-        fits.append(_fit("horizon", slope, claim.horizon, budget.horizon_tolerance, levels, horizon.verdict))
+        horizon_fit = fit_horizon(usable, gammas)
+        horizon = horizon_test(horizon_fit, claim.horizon, budget, levels)
+        fits.append(_finite_or_unclear(_fit("horizon", horizon_fit.slope, claim.horizon, budget.horizon_tolerance,
+                                            levels, horizon.verdict)))
         tests.append(horizon)
-    return _combine(tests, fits, slopes, cells, dropped=int((~cells["usable"]).sum()), budget=budget)
+    return _combine(tests, fits, slopes, cells, budget=budget)
 
 
-def _combine(tests: list[SubTest], fits: list[Fit], slopes: pd.DataFrame, cells: pd.DataFrame, dropped: int,
+def _finite_or_unclear(fit: Fit) -> Fit:
+    """A factor is "ok" only on finite evidence: NaN or infinite bounds never pass."""
+    if fit.verdict == "ok" and not (math.isfinite(fit.low) and math.isfinite(fit.high)):
+        return replace(fit, verdict="unclear")
+    return fit
+
+
+def _advice(fit: Fit, replicates: int) -> tuple[str, bool]:
+    """What would settle an unclear factor, estimated from its standard error, and whether any budget would."""
+    limit = fit.limit
+    interval = f"{fit.symbol}-exponent {fit.exponent:+.3f} [{fit.low:+.3f}, {fit.high:+.3f}]"
+    if not (math.isfinite(fit.exponent) and math.isfinite(fit.se) and fit.se > 0):
+        return f"the {fit.symbol}-exponent could not be measured: no budget of this design settles it", False
+    if fit.high <= limit:
+        return (f"{interval} is inside the tested limit {limit:+.3f}, but a sub-test is undecided (see the notes); "
+                "larger n would settle it"), True
+    distance = abs(limit - fit.exponent)
+    # the bound that must move: the pass-side one when the estimate is inside the limit, else the fire-side one
+    z = ((fit.high - fit.exponent) if fit.exponent < limit else (fit.exponent - fit.low)) / fit.se
+    needed = z * fit.se / max(distance, 1e-12)
+    factor = needed**2
+    head = f"{interval} straddles the tested limit {limit:+.3f} (claim {fit.claimed:g} + tolerance {fit.tolerance:g})"
+    if distance < 0.01 or factor > 64:
+        return (f"{head}; the estimate sits {distance:.3f} from the limit, so no practical budget would settle it "
+                f"(about {factor:.0f}x the replicates)"), False
+    more = max(int(math.ceil(replicates * factor)), replicates + 1)
+    return f"{head}; about {more} replicates per cell (now {replicates}) would settle it", True
+
+
+def _combine(tests: list[SubTest], fits: list[Fit], slopes: pd.DataFrame, cells: pd.DataFrame,
              budget: Budget) -> Decision:
     """One decision from the sub-tests: fail if any fired, ambiguous if any is unclear, else pass."""
     notes = [test.note for test in tests if test.note]
+    dropped = int((~cells["usable"]).sum())
     if dropped:
         notes.insert(0, f"{dropped} pre-asymptotic cell(s) left out of the fits (n < {budget.min_n_per_horizon:g} H "
                         f"or mean error above {budget.saturation:g} of the error scale)")
     fired = tuple(test.name for test in tests if test.verdict == "violated")
     reasons = [test.reason for test in tests if test.verdict == "violated"]
-    unclear = [fit.factor for fit in fits if fit.verdict == "unclear"]
+    unclear = [fit for fit in fits if fit.verdict == "unclear"]
     status: Outcome = "pass"
     need: Need | None = None
     if fired:
         status = "fail"
     elif unclear:
         status = "ambiguous"
-        larger_n = bool(short_discounts(slopes)) or any(test.need == "larger_n" for test in tests)
-        need = "larger_n" if larger_n else "replicates"
-        reasons.append("the evidence is not yet decisive: " + ", ".join(
-            f"the {u}-exponent interval still straddles the claim plus tolerance" for u in unclear))
+        needs = {test.need for test in tests if test.verdict == "unclear"}
+        larger_n = bool(short_discounts(slopes)) or "larger_n" in needs
+        replicates = int(cells["replicates"].min()) if len(cells) else 0
+        undecided = [test.name for test in tests if test.verdict == "unclear"]
+        if undecided:
+            reasons.append(f"undecided sub-test(s): {', '.join(undecided)}")
+        for fit in unclear:
+            if fit.verdict == "unclear" and not (math.isfinite(fit.low) and math.isfinite(fit.high)):
+                reasons.append(f"the {fit.symbol}-exponent has no finite bounds (errors that overflow, or are not "
+                               "numbers): a claim is never passed on such evidence")
+        settles = []
+        for fit in unclear:
+            text, feasible = _advice(fit, replicates)
+            reasons.append(text)
+            settles.append(feasible)
+        reasons.extend(test.reason for test in tests if test.verdict == "unclear" and test.reason)
+        if "nothing" in needs or (not larger_n and settles and not any(settles)):
+            need = "nothing"
+        else:
+            need = "larger_n" if larger_n else "replicates"
     return Decision(status=status, fired=fired, reasons=tuple(reasons), need=need, fits=tuple(fits), slopes=slopes,
                     cells=cells, notes=tuple(notes), subtests=tuple(tests))

@@ -33,12 +33,13 @@ FIT_VERDICTS: tuple[FitVerdict, ...] = get_args(FitVerdict)
 SubTestVerdict = Literal["ok", "violated", "unclear"]
 SUBTEST_VERDICTS: tuple[SubTestVerdict, ...] = get_args(SubTestVerdict)
 
-#: The sub-tests of a verdict ("coverage": every discount had enough asymptotic points).
-SubTestName = Literal["rate", "floor", "coverage", "horizon"]
+#: The sub-tests of a verdict ("coverage": every discount had enough asymptotic points;
+#: "stall": the error stays large and does not fall at some discount).
+SubTestName = Literal["rate", "floor", "coverage", "horizon", "stall"]
 SUBTEST_NAMES: tuple[SubTestName, ...] = get_args(SubTestName)
 
-#: What more evidence an ambiguous pass asks for.
-Need = Literal["replicates", "larger_n"]
+#: What more evidence an ambiguous pass asks for ("nothing": no budget would settle it).
+Need = Literal["replicates", "larger_n", "nothing"]
 NEEDS: tuple[Need, ...] = get_args(Need)
 
 #: Why an estimator call gave no usable error.

@@ -20,7 +20,7 @@ def garnet() -> rlrates.TabularMDP:
 
 @pytest.fixture(scope="module")
 def passing(garnet: rlrates.TabularMDP) -> CheckResult:
-    result = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, budget="ci", seed=3, context=PASS_ID)
+    result = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, budget="ci", seed=1, context=PASS_ID)
     assert result.status == "pass", result.message
     return result
 

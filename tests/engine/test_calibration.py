@@ -22,11 +22,20 @@ FAST = [m for m in zoo.members() if not m.slow]
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_zoo_member_gets_its_expected_verdict(member: zoo.Member, seed: int) -> None:
     result = rlrates.check(member.estimator, member.mdp, member.claim, target=member.target, seed=seed)
-    assert result.status == member.expected, f"{member.name} ({member.source}):\n{result.message}"
+    _assert_expected(member, result)
+
+
+def _assert_expected(member: zoo.Member, result: rlrates.CheckResult) -> None:
+    expected = member.expects("ci")
+    detail = f"{member.name} ({member.source}):\n{result.message}"
+    if expected == "not pass":  # inside the ci budget's indifference zone: fail or inconclusive are both right
+        assert result.status in ("fail", "inconclusive"), detail
+    else:
+        assert result.status == expected, detail
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("member", [m for m in zoo.members() if m.slow], ids=lambda m: m.name)
 def test_slow_zoo_member_gets_its_expected_verdict(member: zoo.Member) -> None:
     result = rlrates.check(member.estimator, member.mdp, member.claim, target=member.target, seed=0)
-    assert result.status == member.expected, f"{member.name} ({member.source}):\n{result.message}"
+    _assert_expected(member, result)

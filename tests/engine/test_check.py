@@ -231,15 +231,27 @@ def test_process_executor_gives_bit_identical_numbers(garnet: rlrates.TabularMDP
 
 
 def test_an_ambiguous_first_pass_escalates_before_answering(garnet: rlrates.TabularMDP) -> None:
-    # Claim exactly on the fitted exponent plus the tolerance: no budget can settle it.
-    estimator = zoo.SyntheticPower(garnet, a=-0.35, b=1.0)
-    result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=0)
+    # A true exponent 0.01 past the tested limit (-0.5 + 0.08): each look is undecided, so the check
+    # escalates through its whole allowance (seeded: this seed stays undecided at every look).
+    estimator = zoo.SyntheticPower(garnet, a=-0.41, b=1.0)
+    result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=2)
     ci = BUDGETS["ci"]
     assert result.status == "inconclusive", result.message
     assert result.run.passes == 2 + ci.n_doublings
     assert result.table["replicate"].max() + 1 == ci.replicates * ci.more_replicates
     assert result.table["n"].max() == ci.n_grid[-1] * 2**ci.n_doublings
     assert "budget spent" in result.message
+    assert "undecided sub-test(s): rate" in result.message
+    assert "straddles the tested limit -0.420" in result.message and "would settle it" in result.message
+
+
+def test_an_estimate_on_the_tested_limit_stops_and_says_no_budget_would_settle_it(garnet: rlrates.TabularMDP) -> None:
+    # The fitted exponent sits within 0.01 of the tested limit -0.42: more replicates would need
+    # many times the budget, so the check stops after one pass and says so.
+    result = rlrates.check(zoo.SyntheticPower(garnet, a=-0.43, b=1.0), garnet, rlrates.Claim(n=-0.5), seed=0)
+    assert result.status == "inconclusive" and result.run.passes == 1, result.message
+    assert "no practical budget would settle it" in result.message
+    assert "no larger budget of this design would settle it" in result.message
 
 
 def test_a_failure_message_answers_the_four_questions(garnet: rlrates.TabularMDP) -> None:

@@ -33,6 +33,30 @@ def laplace_smoothed_q_pi(batch: Any, problem: Any) -> np.ndarray:
     return evaluate_arrays(model, problem.rewards, problem.gamma, problem.policy)
 
 
+def float32_plugin_q_pi(batch: Any, problem: Any) -> np.ndarray:
+    """Plug-in evaluation in single precision: rounding (about 1e-7 relative) sits far below the
+    n^-1/2 sampling error at these n (common practice)."""
+    S, A = problem.states, problem.actions
+    model = (batch.counts / np.float32(batch.n)).astype(np.float32)
+    pi = problem.policy.astype(np.float32)
+    rewards = problem.rewards.astype(np.float32)
+    p_pi = np.einsum("sat,tb->satb", model, pi).reshape(S * A, S * A)
+    q = np.linalg.solve(np.eye(S * A, dtype=np.float32) - np.float32(problem.gamma) * p_pi, rewards.reshape(-1))
+    return q.reshape(S, A).astype(np.float64)
+
+
+def subsampled_plugin_q_pi(batch: Any, problem: Any) -> np.ndarray:
+    """Plug-in evaluation from 90% of each (s, a)'s samples. ``next_states`` is in a random order,
+    so its first 90% is a random subsample: the constant grows by 1/sqrt(0.9), the n^-1/2 rate
+    stays (common practice)."""
+    S, A = problem.states, problem.actions
+    keep = max(1, int(0.9 * batch.n))
+    kept = batch.next_states[:, :, :keep]
+    flat = (np.arange(S * A).reshape(S, A, 1) * S + kept).ravel()
+    model = np.bincount(flat, minlength=S * A * S).reshape(S, A, S) / float(keep)
+    return evaluate_arrays(model, problem.rewards, problem.gamma, problem.policy)
+
+
 def value_iteration_to_tolerance(batch: Any, problem: Any) -> np.ndarray:
     """Q^pi of the empirical model by value iteration run to 1e-10 (a correct, slower route)."""
     model = batch.counts / float(batch.n)
@@ -77,6 +101,51 @@ def squared_discount_q_pi(batch: Any, problem: Any) -> np.ndarray:
     """Discount applied twice (gamma^2): converges to the wrong value function."""
     model = batch.counts / float(batch.n)
     return evaluate_arrays(model, problem.rewards, problem.gamma**2, problem.policy)
+
+
+def fixed_discount_q_pi(batch: Any, problem: Any) -> np.ndarray:
+    """Ignores the discount it is given and always uses 0.9 (a default argument left in place): at the
+    other discounts the error is large and flat (common practice)."""
+    model = batch.counts / float(batch.n)
+    return evaluate_arrays(model, problem.rewards, 0.9, problem.policy)
+
+
+def sign_error_q_pi(batch: Any, problem: Any) -> np.ndarray:
+    """Bellman backup with the sign of the future term flipped, Q = r - gamma P V (common practice)."""
+    model = batch.counts / float(batch.n)
+    return evaluate_arrays(model, problem.rewards, -problem.gamma, problem.policy)
+
+
+def masked_nan_q_pi(batch: Any, problem: Any) -> np.ndarray:
+    """Plug-in evaluation returned as a masked array that masks a NaN it produced (common practice:
+    a masked "invalid" entry hides a bug from any check that skips masked values)."""
+    q = reference.plugin_q_pi(batch, problem)
+    q[0, 0] = np.nan
+    return np.ma.masked_invalid(q)
+
+
+def transposed_policy_q_pi(batch: Any, problem: Any) -> np.ndarray:
+    """The policy stored action-major ((A, S)) and read back state-major: entries land on the wrong
+    (s, a). A uniform evaluation policy hides it, a random one does not (common practice)."""
+    scrambled = np.ascontiguousarray(problem.policy.T).reshape(problem.states, problem.actions)
+    scrambled = scrambled / scrambled.sum(axis=1, keepdims=True)
+    model = batch.counts / float(batch.n)
+    return evaluate_arrays(model, problem.rewards, problem.gamma, scrambled)
+
+
+@dataclass
+class PerNCache:
+    """Caches the first estimate it computes for each (gamma, n) and returns it for every later
+    replicate: the estimate depends on n but not on the batch (common practice: a cache keyed on
+    the wrong thing)."""
+
+    _seen: dict[tuple[float, int], np.ndarray] = field(default_factory=dict, repr=False)
+
+    def __call__(self, batch: Any, problem: Any) -> np.ndarray:
+        key = (problem.gamma, batch.n)
+        if key not in self._seen:
+            self._seen[key] = reference.plugin_q_pi(batch, problem)
+        return self._seen[key].copy()
 
 
 def _q_learning(batch: Any, problem: Any, step: Callable[[int], float]) -> np.ndarray:
@@ -130,6 +199,8 @@ class SyntheticPower:
     scale: float = 0.05
     floor: float = 0.0
     floor_at: float | None = None
+    a_at: tuple[tuple[float, float], ...] = ()  # (gamma, n-exponent) pairs that override ``a`` there
+    floor_from: float | None = None  # with ``floor``: the bias at every discount >= this one
     _cache: dict[float, np.ndarray] = field(default_factory=dict, compare=False, repr=False)
 
     def __call__(self, batch: Any, problem: Any) -> np.ndarray:
@@ -139,8 +210,11 @@ class SyntheticPower:
         rng = _batch_stream(batch)
         H = 1.0 / (1.0 - gamma)
         shape = rng.lognormal(0.0, 0.3, size=problem.rewards.shape) * rng.choice((-1.0, 1.0), size=problem.rewards.shape)
-        error = self.scale * batch.n**self.a * H**self.b * shape
+        a = dict(self.a_at).get(round(gamma, 12), self.a)
+        error = self.scale * batch.n**a * H**self.b * shape
         if self.floor_at is not None and np.isclose(gamma, self.floor_at):
+            error = error + self.floor
+        if self.floor_from is not None and gamma >= self.floor_from - 1e-12:
             error = error + self.floor
         return self._cache[gamma] + error
 
@@ -161,6 +235,13 @@ class Member:
     expected: str  # "pass" or "fail"
     source: str
     slow: bool = False
+    # budgets in which the member sits inside the indifference zone between the tested limit and the
+    # smallest shortfall the budget promises to detect: any verdict but "pass" is right there
+    not_pass_in: tuple[str, ...] = ()
+
+    def expects(self, budget: str) -> str:
+        """The verdict this member must get in ``budget``: "pass", "fail" or "not pass"."""
+        return "not pass" if budget in self.not_pass_in else self.expected
 
 
 def members() -> list[Member]:
@@ -212,4 +293,45 @@ def members() -> list[Member]:
                "fail", "constructed: 0.4 past the claim, 0.1 past the 0.3 tolerance"),
         Member("synthetic floor at gamma=0.5 only", SyntheticPower(garnet, -0.5, 1.0, floor=0.05, floor_at=0.5),
                garnet, sim_lemma, "q_pi", "fail", "constructed: a bias at one discount, hidden by pooling"),
+        # correct estimators of other kinds
+        Member("value iteration to 1e-10 / garnet", value_iteration_to_tolerance, garnet, sim_lemma, "q_pi", "pass",
+               "the plug-in value up to 1e-10: simulation lemma, as above"),
+        Member("float32 plug-in q_pi / garnet", float32_plugin_q_pi, garnet, sim_lemma, "q_pi", "pass",
+               "single-precision rounding far below the sampling error (common practice)"),
+        Member("90% subsample plug-in q_pi / garnet", subsampled_plugin_q_pi, garnet, sim_lemma, "q_pi", "pass",
+               "a constant fraction of the data keeps the n^-1/2 rate (common practice)"),
+        Member("synthetic n^-0.5 H^1.5 (claim H^1.5 on the bound)", SyntheticPower(garnet, -0.5, 1.5), garnet,
+               rlrates.Claim(n=-0.5, horizon=1.5), "q_pi", "pass", "constructed: exponents equal to the claim"),
+        # broken: gross bugs
+        Member("fixed discount 0.9", fixed_discount_q_pi, garnet, sim_lemma, "q_pi", "fail",
+               "evaluates at the wrong discount: large flat errors (common practice)"),
+        Member("sign error in the backup", sign_error_q_pi, garnet, sim_lemma, "q_pi", "fail",
+               "converges to the wrong fixed point (common practice)"),
+        Member("NaN hidden in a masked array", masked_nan_q_pi, garnet, sim_lemma, "q_pi", "error",
+               "a masked entry hides a NaN (common practice)"),
+        Member("transposed policy", transposed_policy_q_pi, garnet, sim_lemma, "q_pi", "fail",
+               "evaluates another policy (common practice)"),
+        Member("one cached estimate per n", PerNCache(), garnet, sim_lemma, "q_pi", "error",
+               "the estimate ignores the batch: replicates carry no evidence (common practice)"),
+        # broken: rates a little too slow
+        Member("synthetic n^-0.35 (shortfall 0.15)", SyntheticPower(garnet, -0.35, 1.0), garnet, sim_lemma, "q_pi",
+               "fail", "constructed: the ci budget's promised n-shortfall"),
+        Member("synthetic n^-1/3 (a mistuned step or smoothing)", SyntheticPower(garnet, -1 / 3, 1.0), garnet,
+               sim_lemma, "q_pi", "fail", "constructed: n^-1/3, shortfall 1/6"),
+        Member("synthetic n^-0.4 (shortfall 0.1)", SyntheticPower(garnet, -0.4, 1.0), garnet, sim_lemma, "q_pi",
+               "fail", "constructed: the appendix budget's promised n-shortfall", not_pass_in=("ci",)),
+        Member("synthetic slow rate at two discounts, fast at one", SyntheticPower(
+            garnet, -0.25, 1.0, a_at=((0.9, -1.1), (0.95, -1.1))), garnet, sim_lemma, "q_pi", "fail",
+            "constructed: constant-step TD shape, n^-1/4 with a decaying start-up bias at large gamma"),
+        # broken: horizon growth
+        Member("synthetic H^2.5 against H^2 (shortfall 0.5)", SyntheticPower(garnet, -0.5, 2.5), garnet, sim_lemma,
+               "q_pi", "fail", "constructed: the ci budget's promised H-shortfall"),
+        Member("synthetic H^2.3 against H^2 (shortfall 0.3)", SyntheticPower(garnet, -0.5, 2.3), garnet, sim_lemma,
+               "q_pi", "fail", "constructed: the appendix budget's promised H-shortfall", not_pass_in=("ci",)),
+        Member("synthetic large H^3 bias", SyntheticPower(garnet, -0.5, 3.0, scale=0.02), garnet, sim_lemma, "q_pi",
+               "fail", "constructed: error 0.02 H^3 n^-1/2"),
+        # broken: errors at one end of the discount range only
+        Member("synthetic bias at large discounts only", SyntheticPower(garnet, -0.5, 1.0, floor=0.05,
+                                                                        floor_from=0.9), garnet, sim_lemma, "q_pi",
+               "fail", "constructed: a bias that appears only for gamma >= 0.9"),
     ]

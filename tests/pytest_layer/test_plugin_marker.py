@@ -90,7 +90,6 @@ def test_rlrates_mdp_expands_over_the_suite_with_readable_ids(project: pytest.Py
         "test_default[chain]",
         "test_default[grid]",
         "test_default[horizon-hard]",
-        "test_default[deterministic]",
         "test_narrowed[chain]",
         "test_narrowed[deterministic]",
         "test_family[horizon-hard]",

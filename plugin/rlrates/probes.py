@@ -1,0 +1,102 @@
+"""Probes of the estimator and the MDP: is the estimator a function of its batch, can the MDP test a rate at all?
+
+:func:`determinism_probe` and :func:`deterministic_mdp` run before the sweep;
+:func:`constant_replicates` looks at each pass's cell summary.
+
+The first two return a sentence for a warning and the check's notes, or ``None``.
+Pure functions of their arguments; no pytest, no warnings emitted here (the
+check turns the sentences into :class:`rlrates.RatesWarning`).
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .mdp import TabularMDP
+from .result import CellFailure
+from .sampling import SupportKernel, draw_block
+from .targets import Truth
+
+__all__ = ["determinism_probe", "deterministic_mdp", "constant_replicates"]
+
+#: Spawn-key word of the probe's own stream (kept apart from every sweep stream).
+_PROBE_KEY = 0x70726F62
+
+
+def _as_array(value: Any) -> np.ndarray | None:
+    try:
+        if isinstance(value, np.ma.MaskedArray):  # masked entries compare as NaN (the sweep refuses them)
+            return np.ma.filled(value.astype(float), np.nan)
+        return np.asarray(value, dtype=float)
+    except (TypeError, ValueError):
+        return None
+
+
+def determinism_probe(estimator: Any, truth: Truth, kernel: SupportKernel, n: int, seed: int) -> str | None:
+    """Call ``estimator`` twice on one batch; a sentence when the two estimates differ.
+
+    The batch comes from a stream of its own, so the probe changes no number of
+    the sweep. An estimator that raises here is left to the sweep, which reports
+    the failure with its cell.
+    """
+    batch = draw_block(kernel, n, 1, np.random.SeedSequence(seed, spawn_key=(_PROBE_KEY,)))[0]
+    problem = truth.problem()
+    try:
+        first = _as_array(estimator(batch, problem))
+        second = _as_array(estimator(batch, problem))
+    except Exception:  # the sweep reports the estimator's own failure, naming its cell
+        return None
+    if first is None or second is None or first.shape != second.shape:
+        return None
+    if np.array_equal(first, second, equal_nan=True):
+        return None
+    gap = float(np.nanmax(np.abs(first - second))) if first.size else 0.0
+    return (
+        f"the estimator is not a function of its batch: two calls on one batch (gamma={truth.gamma:g}, n={n}) "
+        f"returned estimates that differ by up to {gap:.3g}. It reads global random state or a hidden cache, so "
+        "reruns with the same seed will not reproduce its table; draw randomness from a generator seeded by the "
+        "batch"
+    )
+
+
+def deterministic_mdp(mdp: TabularMDP) -> str | None:
+    """A sentence when every transition is deterministic: any count-reading estimator is then exact."""
+    P = mdp.P
+    largest = P.max(axis=-1)
+    largest = np.asarray(largest.todense() if hasattr(largest, "todense") else largest, dtype=float)
+    if not bool(np.all(largest >= 1.0 - 1e-12)):
+        return None
+    return (
+        f"{mdp.name} is deterministic (every state-action pair has one successor): an estimator that reads the "
+        "counts sees the exact model at every n, so the rate is untested here; use a stochastic MDP "
+        "(for example one with slip) to test it"
+    )
+
+
+def constant_replicates(summary: pd.DataFrame, table: pd.DataFrame, target: str) -> CellFailure | None:
+    """An "error" when every replicate of a cell gave the same error while the mean changes with n.
+
+    Such an estimator does not depend on its batch (a cache keyed on n, a result
+    that ignores the data); its intervals would collapse to zero width. Policies
+    are discrete, so identical suboptimalities are expected there and not checked.
+    """
+    if target == "policy":
+        return None
+    for _, cells in summary.groupby("gamma", sort=True):
+        gamma = float(cells["gamma"].iloc[0])
+        constant = cells[cells["constant"]]
+        means = cells["mean"].to_numpy(float)
+        if len(constant) and len(cells) > 1 and means.max() > means.min() * (1 + 1e-9):
+            first = constant.iloc[0]
+            n = int(first["n"])
+            replicate = int(table.loc[(table["gamma"] == gamma) & (table["n"] == n), "replicate"].min())
+            return CellFailure(gamma, n, replicate, "invalid", (
+                f"every one of the {int(first['replicates'])} replicates at gamma={gamma:g}, n={n} gave the "
+                f"same error {float(first['mean']):.6g}, while the mean error changes with n: the estimator does not "
+                "depend on its batch (a cache keyed on n, or a result that ignores the data), so the replicates carry "
+                "no evidence"
+            ), "")
+    return None
