@@ -124,12 +124,12 @@ def main() -> int:
     print("\n".join(summary))
     if args.markdown:
         args.markdown.parent.mkdir(parents=True, exist_ok=True)
-        text = "\n".join(["```", *summary, "```", "", _markdown(table), ""])
+        text = "\n".join(["```", *summary, "```", "", markdown_table(table), ""])
         args.markdown.write_text(text)
     return 0
 
 
-def _markdown(table: pd.DataFrame) -> str:
+def markdown_table(table: pd.DataFrame) -> str:
     header = "| " + " | ".join(table.columns) + " |"
     rule = "|" + "|".join("---" for _ in table.columns) + "|"
     body = ["| " + " | ".join(str(v) for v in row) + " |" for row in table.itertuples(index=False)]

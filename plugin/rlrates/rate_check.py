@@ -80,6 +80,17 @@ def _mdp_for(mdp: MDPSource, gamma: float) -> TabularMDP:
     return built
 
 
+def _policy_for(policy: Any, mdp: TabularMDP) -> Any:
+    """The evaluation policy for one MDP: ``policy(mdp)`` when a callable was given."""
+    if policy is None or not callable(policy):
+        return policy
+    chosen = policy(mdp)
+    if chosen is None:
+        raise ValueError(f"the `policy` callable returned None for {mdp.name}; return an (S, A) array of action "
+                         "probabilities or (S,) actions")
+    return chosen
+
+
 def _describe_source(mdp: MDPSource) -> tuple[str, dict[str, Any]]:
     if isinstance(mdp, TabularMDP):
         return mdp.name, mdp.metadata
@@ -157,8 +168,9 @@ def check(
         Upper bounds on the exponents of ``error ~ n^a H^b``.
     target : {"q_pi", "q_star", "policy", "model"}, default "q_pi"
         What the estimator estimates.
-    policy : array_like, optional
-        (S, A) row-stochastic evaluation policy for "q_pi" (default: a random
+    policy : array_like or callable, optional
+        (S, A) row-stochastic evaluation policy for "q_pi", or a callable
+        ``mdp -> policy`` called for each MDP built (default: a random
         stochastic policy seeded by the MDP's fingerprint,
         :func:`rlrates.targets.default_policy`; a uniform one would hide policy bugs).
     budget : str or Budget, default "ci"
@@ -214,7 +226,10 @@ def check(
     name, metadata = _describe_source(mdp)
     _warn_design(call, n_grid is not None)
     started = time.perf_counter()
-    truths = {gamma: solve_truth(_mdp_for(mdp, gamma), gamma, call.target, policy) for gamma in call.design.gammas}
+    truths = {}
+    for gamma in call.design.gammas:
+        built = _mdp_for(mdp, gamma)
+        truths[gamma] = solve_truth(built, gamma, call.target, _policy_for(policy, built))
     kernels = _kernels(truths)
     plan = SweepPlan(call.estimator, truths, kernels, call.seed, context, call.norm, call.time_limit)
     probe_notes = _probe(call, truths, kernels)

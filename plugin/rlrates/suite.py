@@ -16,9 +16,9 @@ horizon-hard        ``horizon_hard(actions=2)``            structured, stochasti
 deterministic       ``deterministic(8, 3, seed=0)``        exact
 =================== ====================================== ===================================
 
-``deterministic`` is in no default selection: every count-reading estimator is
-exact on it, so it tests no rate (a check on it warns); select it by name or by
-``exact`` to test exactness itself.
+``deterministic`` is left out of the default selection (every stochastic member)
+and of ``structured``: every count-reading estimator is exact on it, so it tests no
+rate (a check on it warns); select it by name, by ``exact`` or with ``all``.
 
 A *selector* is a member name, a tag, or ``all``; a selection is the union of
 what its selectors match, in the order of the table above.
@@ -140,14 +140,17 @@ def _selectors(value: object, where: str) -> list[str]:
 
 
 def select_members(selection: object = None, *, where: str = "suite") -> list[SuiteMember]:
-    """The standard members matched by ``selection`` (``None`` = all of them).
+    """The standard members matched by ``selection`` (``None``: every stochastic member, the default).
+
+    The default leaves out ``deterministic``: every count-reading estimator is exact
+    there, so it tests no rate. ``"all"`` or ``"exact"`` select it.
 
     ``selection`` is a string of whitespace- or comma-separated selectors, or a
     list of selectors. An unknown selector raises :class:`SuiteError` naming it
     and listing the known names and tags; ``where`` says where it came from.
     """
     if selection is None:
-        return list(STANDARD_SUITE)
+        return [m for m in STANDARD_SUITE if "stochastic" in m.tags]
     wanted = _selectors(selection, where)
     names = set(member_names())
     tags = set(suite_tags())

@@ -97,7 +97,7 @@ def test_rlrates_mdp_expands_over_the_suite_with_readable_ids(project: pytest.Py
         "test_own_list[garnet-S6-A2-b2-seed5]",
         "test_own_dict[tiny]",
     ]
-    project.runpytest().assert_outcomes(passed=13)
+    project.runpytest().assert_outcomes(passed=12)
 
 
 def test_ini_key_narrows_the_default_suite_but_not_a_marked_test(project: pytest.Pytester) -> None:

@@ -1,9 +1,10 @@
 """The ``rlrates`` marker: validating and merging its arguments, and reading the markers of a test item.
 
 ``@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None,
-suite=None, mdps=None, policy=None)``: the claim under test (an ``rlrates.Claim``, or its
-exponents ``n=`` / ``horizon=``), defaults for the ``rlrates`` fixture (target, budget,
-policy), and the MDPs of ``rlrates_mdp`` (``suite=`` narrows the standard suite to member
+suite=None, mdps=None, policy=None, zero_level=None)``: the claim under test (an
+``rlrates.Claim``, or its exponents ``n=`` / ``horizon=``), defaults for the ``rlrates``
+fixture (target, budget, policy: an (S, A) array or a callable ``mdp -> policy`` applied to
+each MDP; zero_level: the error that counts as zero), and the MDPs of ``rlrates_mdp`` (``suite=`` narrows the standard suite to member
 names or tags; ``mdps=`` replaces it with a list or a dict ``{id: mdp}``).
 
 :func:`parse_marker` and :func:`merge_specs` are plain functions of the marker's
@@ -35,8 +36,9 @@ MARKER = "rlrates"
 #: The marker's line in ``pytest --markers``.
 MARKER_HELP = (
     "rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None, suite=None, mdps=None, "
-    "policy=None): the rate claim under test (an rlrates.Claim, or its exponents as n= and horizon=) "
-    "plus defaults for the `rlrates` fixture (target, budget, policy); suite= narrows the standard "
+    "policy=None, zero_level=None): the rate claim under test (an rlrates.Claim, or its exponents as n= "
+    "and horizon=) plus defaults for the `rlrates` fixture (target, budget, policy: an (S, A) array or a "
+    "callable mdp -> policy, zero_level: the error that counts as zero); suite= narrows the standard "
     "MDP suite of `rlrates_mdp` to member names or tags, mdps= replaces it with your own MDPs "
     "(a list, or a dict {id: mdp})."
 )
@@ -46,7 +48,7 @@ class MarkerError(ValueError):
     """A ``@pytest.mark.rlrates`` argument is unusable; the message names it and the test."""
 
 
-MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "budget", "suite", "mdps", "policy")
+MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "budget", "suite", "mdps", "policy", "zero_level")
 
 
 @dataclass(frozen=True)
@@ -58,6 +60,7 @@ class MarkerSpec:
     budget: str | Budget | None = None
     members: tuple[SuiteMember, ...] | None = None
     policy: Any = None
+    zero_level: float | None = None
 
 
 def _bad(where: str, text: str) -> MarkerError:
@@ -115,14 +118,43 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
             members = tuple(custom_members(kwargs["mdps"], where="`mdps`"))
     except SuiteError as exc:
         raise _bad(where, str(exc)) from None
-    return MarkerSpec(claim=claim, target=target, budget=budget, members=members, policy=kwargs.get("policy"))
+    return MarkerSpec(claim=claim, target=target, budget=budget, members=members,
+                      policy=_policy(kwargs.get("policy"), where), zero_level=_zero_level(kwargs.get("zero_level"), where))
+
+
+def _policy(policy: Any, where: str) -> Any:
+    """A policy is None, a callable ``mdp -> policy`` (called per MDP by the check), or an array of probabilities."""
+    if policy is None or callable(policy):
+        return policy
+    import numpy as np
+
+    if isinstance(policy, (str, bytes, Mapping)):
+        raise _bad(where, f"`policy` must be an (S, A) array of action probabilities, (S,) actions, or a callable "
+                          f"mdp -> policy; got {policy!r}")
+    try:
+        array = np.asarray(policy, dtype=float)
+    except (TypeError, ValueError):
+        raise _bad(where, f"`policy` must be an (S, A) array of action probabilities, (S,) actions, or a callable "
+                          f"mdp -> policy; got {type(policy).__name__}") from None
+    if array.ndim not in (1, 2) or not np.isfinite(array).all():
+        raise _bad(where, f"`policy` must be a finite (S,) or (S, A) array, got shape {array.shape}")
+    return policy
+
+
+def _zero_level(level: Any, where: str) -> float | None:
+    if level is None:
+        return None
+    if isinstance(level, bool) or not isinstance(level, (int, float)) or not 0.0 <= float(level) < float("inf"):
+        raise _bad(where, f"`zero_level` must be a finite number >= 0 (an error at or below it counts as zero), "
+                          f"got {level!r}")
+    return float(level)
 
 
 def merge_specs(specs: Iterable[MarkerSpec]) -> MarkerSpec:
     """Combine markers, closest first (function over class over module): the first one that says a thing wins."""
     merged: dict[str, Any] = {}
     for spec in specs:
-        for name in ("claim", "target", "budget", "members", "policy"):
+        for name in ("claim", "target", "budget", "members", "policy", "zero_level"):
             value = getattr(spec, name)
             if value is not None and name not in merged:
                 merged[name] = value

@@ -122,6 +122,8 @@ class RatesRunner:
                 pytrace=False,
             )
         self._refuse_session_owned(check_options)
+        if spec.zero_level is not None:
+            check_options.setdefault("zero_level", spec.zero_level)
         from ..rate_check import check
         from ..result import CheckInterrupted
 

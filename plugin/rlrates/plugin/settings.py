@@ -125,7 +125,7 @@ def add_options(parser: pytest.Parser) -> None:
     group.addoption(
         SUITE_OPTION, dest="rlrates_suite", type=_parse_suite, default=None, metavar="SELECTORS",
         help="comma-separated member names or tags of the standard MDP suite that rlrates_mdp runs over, "
-        "e.g. random,chain (default: all; ini key rlrates_suite). A marker's suite= or mdps= still wins.",
+        "e.g. random,chain (default: every stochastic member; ini key rlrates_suite). A marker's suite= or mdps= still wins.",
     )
     parser.addini("rlrates_budget", "rlrates: default sweep budget (ci or appendix).", type="string", default="")
     parser.addini("rlrates_seed", f"rlrates: default master seed (integer >= 0 or '{RANDOM_SEED}').", type="string",
