@@ -156,6 +156,11 @@ class TabularMDP:
         return self._P
 
     @property
+    def is_sparse(self) -> bool:
+        """True when ``P`` is held as a scipy.sparse (S*A, S) array."""
+        return False
+
+    @property
     def R(self) -> NDArray[np.float64]:
         """Read-only mean rewards, shape (S, A)."""
         return self._R
