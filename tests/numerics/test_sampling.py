@@ -445,3 +445,46 @@ def test_a_block_keeps_counts_on_the_support_and_one_dense_view_at_a_time(garnet
     assert batches[1].counts is second  # one view kept while the same replicate is read
     np.testing.assert_array_equal(batches[0].counts, first)  # rebuilt on demand, same draw
     assert not np.array_equal(first, second)
+
+
+# --------------------------------------------------------------------------- sparse MDPs
+
+
+def test_a_sparse_batch_gives_read_only_sparse_counts() -> None:
+    from scipy import sparse
+
+    held = rlrates.gridworld(4, 3, sparse=True)
+    batch = draw(held, 33, seed=2)
+    counts = batch.counts
+    assert batch.sparse and sparse.issparse(counts) and counts.format == "csr"
+    assert counts.shape == (held.states * 4, held.states) and counts.dtype == np.int64
+    assert counts.has_canonical_format and (counts.data > 0).all()
+    np.testing.assert_array_equal(counts.sum(axis=1), 33)
+    with pytest.raises(ValueError, match="read-only"):
+        counts.data[0] = 0
+    # counts fall only where P is positive
+    assert counts.multiply(held.P.toarray() == 0).sum() == 0
+    assert batch.next_states.shape == (held.states, 4, 33)
+    with pytest.raises(ValueError, match="is sparse: use mdp_kernel"):
+        sampling_kernel(held)
+
+
+def test_sparse_block_counts_follow_the_multinomial() -> None:
+    # As test_block_counts_follow_the_multinomial, on a sparse grid whose rows have unequal supports
+    # (so rows are padded); chi-square of the pooled table (scipy.stats); seeded, deterministic;
+    # false-alarm rate 0.1%.
+    from rlrates.sampling import block_seed, draw_block, mdp_kernel
+
+    # a corner has 3 successors (itself and two neighbours), an edge or inner cell 4
+    held = rlrates.gridworld(4, 3, walls=(), sparse=True)
+    kernel = mdp_kernel(held)
+    assert kernel.sparse and kernel.support.shape[1] == 4
+    assert sorted(set(np.diff(held.P.indptr))) == [3, 4]
+    batches = draw_block(kernel, 50, 400, block_seed(1, "chi2-sparse", 0.5, 50, 0, 400))
+    observed = sum(b.counts.toarray() for b in batches)
+    expected = held.P.toarray() * 50 * 400
+    support = expected > 0
+    assert (observed[~support] == 0).all()
+    stat = float((((observed - expected) ** 2)[support] / expected[support]).sum())
+    dof = int(support.sum() - observed.shape[0])
+    assert stats.chi2.sf(stat, dof) > 1e-3
