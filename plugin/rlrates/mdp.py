@@ -40,6 +40,8 @@ def dense_fits(states: int, actions: int) -> bool:
 
 def is_sparse(value: object) -> bool:
     """Whether ``value`` is a scipy.sparse array or matrix (False without importing scipy)."""
+    if type(value) is np.ndarray:  # the common case, answered without a look-up
+        return False
     module = sys.modules.get("scipy.sparse")
     return module is not None and bool(module.issparse(value))
 

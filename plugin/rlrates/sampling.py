@@ -101,9 +101,13 @@ class SupportKernel:
     probs: NDArray[np.float64]
     sparse: bool = False
     conditional: NDArray[np.float64] = field(init=False, repr=False, compare=False)
+    scatter: NDArray[np.int64] = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "conditional", _conditional(self.probs))
+        # where each support column lands in a flat dense (S*A*S) array of counts
+        rows = self.support.shape[0]
+        object.__setattr__(self, "scatter", (self.support + self.states * np.arange(rows)[:, None]).ravel())
 
     def sample_support(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
         """Counts on the support of ``replicates`` independent draws, shape (replicates, S*A, k).
@@ -129,9 +133,15 @@ class SupportKernel:
 
     def dense_counts(self, drawn: IntArray) -> IntArray:
         """Scatter support counts (..., S*A, k) into a dense (..., S*A, S) array."""
-        counts = np.zeros((*drawn.shape[:-1], self.states), dtype=np.int64)
-        np.put_along_axis(counts, np.broadcast_to(self.support, drawn.shape), drawn, axis=-1)
-        return counts
+        rows, width = self.support.shape
+        blocks = drawn.size // (rows * width)
+        counts = np.zeros(blocks * rows * self.states, dtype=np.int64)
+        offsets = self.scatter if blocks == 1 else (self.scatter + rows * self.states * np.arange(blocks)[:, None]).ravel()
+        if self.sparse:  # padding may repeat a successor's index: add (padding counts are 0)
+            np.add.at(counts, offsets, drawn.ravel())
+        else:  # a dense kernel's support columns are distinct states
+            counts[offsets] = drawn.ravel()
+        return counts.reshape(*drawn.shape[:-1], self.states)
 
     def sparse_counts(self, drawn: IntArray) -> Any:
         """Support counts (S*A, k) of one draw as a scipy.sparse CSR array of shape (S*A, S)."""
