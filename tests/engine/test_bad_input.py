@@ -156,6 +156,8 @@ CATALOGUE = [
          r"negative probability P\[3, 1, 2\] \(row 7 of the \(S\*A, S\) array\) = -0.1"),
     Case("P-sparse-row-sum", lambda: rlrates.TabularMDP(_sparse_P(r9_0=MDP.P[4, 1, 0] + 0.01), MDP.R), r"row \(s=4, a=1\) sums to 1.01"),
     Case("family-sparse-flag", lambda: rlrates.gridworld(sparse="yes"), r"`sparse` must be True, False or None .* got 'yes'"),
+    Case("save-sparse", lambda: rlrates.save_mdp(rlrates.ring(5, sparse=True), "unwritten.npz"),
+         r"unwritten.npz: MDP 'ring-S5-slip0.1' is sparse, and save_mdp writes dense MDPs only"),
     Case("R-shape", lambda: rlrates.TabularMDP(MDP.P, np.zeros((6, 3))), r"`R` must have shape \(S, A\) = \(6, 2\)"),
     Case("R-nan", lambda: rlrates.TabularMDP(MDP.P, np.where(np.eye(6, 2, 1) > 0, np.nan, 0.5)), r"`R` has a non-finite entry R\[0, 1\]"),
     Case("gamma-range", lambda: rlrates.q_pi(MDP, 1.5), r"`gamma` must lie in \(0, 1\]"),

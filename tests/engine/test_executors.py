@@ -100,3 +100,13 @@ def test_a_pool_gets_the_largest_cells_first_and_the_same_table(garnet: rlrates.
     assert pool.sizes == sorted(pool.sizes, reverse=True)
     pd.testing.assert_frame_equal(_numbers(serial), _numbers(pooled), check_exact=True)
     assert pooled.status == serial.status
+
+
+def test_a_sparse_mdp_in_a_process_pool_matches_serial() -> None:
+    # the sparse model and its support kernel travel to the workers by pickle (common practice)
+    held = rlrates.ring(9, slip=0.2, sparse=True)
+    alone = rlrates.check(reference.plugin_q_pi, held, CLAIM, seed=5)
+    with ProcessPoolExecutor(max_workers=2) as pool:
+        pooled = rlrates.check(reference.plugin_q_pi, held, CLAIM, seed=5, executor=pool)
+    pd.testing.assert_frame_equal(_numbers(alone), _numbers(pooled), check_exact=True)
+    assert pooled.status == alone.status == "pass"
