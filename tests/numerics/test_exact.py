@@ -514,3 +514,20 @@ def test_reference_estimators_work_on_sparse_batches() -> None:
     model = reference.empirical_model(sparse_batch, sparse_problem)
     np.testing.assert_allclose(model.toarray(), reference.empirical_model(dense_batch, dense_problem).reshape(21, 7),
                                rtol=0, atol=1e-15)
+
+
+def test_the_model_target_of_a_sparse_mdp_measures_the_max_row_l1_distance() -> None:
+    # definition of the model error, max_{s,a} ||P_hat[s, a] - P[s, a]||_1, computed on dense copies
+    from scipy import sparse
+
+    from rlrates.targets import EstimateError, estimate_error, solve_truth, validate_estimate
+
+    held = rlrates.garnet(8, 2, 3, seed=3, sparse=True)
+    truth = solve_truth(held, 0.9, "model")
+    guess = sparse.csr_array(rlrates.garnet(8, 2, 3, seed=4).P.reshape(16, 8))
+    valid = validate_estimate(guess, truth)
+    dense_gap = np.abs(guess.toarray() - held.P.toarray()).sum(axis=1)
+    assert estimate_error(valid, truth, "sup") == pytest.approx(dense_gap.max(), abs=1e-15)
+    assert estimate_error(valid, truth, "mean") == pytest.approx(dense_gap.mean(), abs=1e-15)
+    with pytest.raises(EstimateError, match=r"row \(s=0, a=0\) sums to 2"):
+        validate_estimate(guess * 2.0, truth)
