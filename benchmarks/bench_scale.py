@@ -1,8 +1,9 @@
-"""Scaling out: a appendix-budget check serial vs a process pool, memory at S=500, and the plugin's own overhead.
+"""Scaling out: a appendix-budget check serial vs a process pool, memory at S=500, sparse 10^4 states, own overhead.
 
     python benchmarks/bench_scale.py                 # overhead + serial vs process pool
     python benchmarks/bench_scale.py --large         # also the S=500 appendix-budget check with peak memory
     python benchmarks/bench_scale.py --states 300 --workers 2
+    python benchmarks/bench_scale.py --grid 100       # only: a ci-budget check on a sparse 10^4-state gridworld
 
 Three measurements, printed as one table at the end:
 
@@ -26,6 +27,10 @@ Three measurements, printed as one table at the end:
    ``batch.counts``; a wrapper counts the batches whose (S, A, n) ``next_states``
    array was built (expected: none; at n = 16384 one such array would take
    S * A * n * 8 bytes = 262 MB).
+4. **Sparse grid** (``--grid SIDE``, alone): a ci-budget check of the plug-in evaluator on a
+   SIDE x SIDE gridworld built with ``sparse=True`` (SIDE = 100: 10^4 states, where a dense
+   P alone would take 3.2 GB), with wall time, time per estimator call (a sparse LU
+   solve of the plug-in model), and the peak resident size.
 
 BLAS threads are pinned to 1 (``OPENBLAS_NUM_THREADS`` and friends, unless already
 set) so that the serial run does not quietly use every core for its linear solves,
@@ -117,12 +122,12 @@ def _numbers(result: rlrates.CheckResult) -> pd.DataFrame:
 def overhead() -> list[tuple[str, str]]:
     mdp = rlrates.garnet(states=20, actions=4, branching=5, seed=0)
     rlrates.check(reference.plugin_q_pi, mdp, CLAIM, seed=99)  # warm-up: imports, caches
-    best = min((rlrates.check(reference.plugin_q_pi, mdp, CLAIM, seed=s) for s in range(3)), key=lambda r: r.elapsed)
-    own = best.elapsed - best.estimator_seconds
+    best = min((rlrates.check(reference.plugin_q_pi, mdp, CLAIM, seed=s) for s in range(3)), key=lambda r: r.run.elapsed)
+    own = best.run.elapsed - best.run.estimator_seconds
     return [
-        ("ci-budget check, garnet(20, 4, 5): wall s", f"{best.elapsed:.3f}"),
-        ("  estimator s / calls", f"{best.estimator_seconds:.3f} / {len(best.table)}"),
-        ("  plugin's own work s (fraction of wall)", f"{own:.3f} ({own / best.elapsed:.0%})"),
+        ("ci-budget check, garnet(20, 4, 5): wall s", f"{best.run.elapsed:.3f}"),
+        ("  estimator s / calls", f"{best.run.estimator_seconds:.3f} / {len(best.table)}"),
+        ("  plugin's own work s (fraction of wall)", f"{own:.3f} ({own / best.run.elapsed:.0%})"),
     ]
 
 
@@ -169,7 +174,7 @@ def process_pool(states: int, workers: int) -> list[tuple[str, str]]:
     free_cores = serial_cpu / max(main_cpu, workers_cpu / workers)
     return [
         (f"appendix-budget check, garnet({states}, 4, 10): calls / cells", f"{len(serial.table)} / {cells} (status {serial.status})"),
-        ("  serial: wall s, CPU s (estimator s)", f"{serial_wall:.2f}, {serial_cpu:.2f} ({serial.estimator_seconds:.2f})"),
+        ("  serial: wall s, CPU s (estimator s)", f"{serial_wall:.2f}, {serial_cpu:.2f} ({serial.run.estimator_seconds:.2f})"),
         (f"  ProcessPoolExecutor({workers}), cold pool: wall s", f"{cold_wall:.2f} (speed-up {serial_wall / cold_wall:.2f}x)"),
         (f"  ProcessPoolExecutor({workers}), warm pool: wall s", f"{parallel_wall:.2f} (+ {spawn:.2f} start-up and imports)"),
         ("  speed-up, warm pool (target >= 1.7 on 2 cores)", f"{serial_wall / parallel_wall:.2f}x"),
@@ -180,26 +185,57 @@ def process_pool(states: int, workers: int) -> list[tuple[str, str]]:
     ]
 
 
+def _timed_check(estimator: Any, mdp: rlrates.TabularMDP, budget: str) -> tuple[rlrates.CheckResult, float, float]:
+    """One check: the result, its wall seconds and the process's peak resident size in MB so far."""
+    started = time.perf_counter()
+    result = rlrates.check(estimator, mdp, CLAIM, budget=budget, seed=0)
+    wall = time.perf_counter() - started
+    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # KiB on Linux
+    return result, wall, rss / 1024 if sys.platform != "darwin" else rss / 2**20
+
+
 def large(states: int) -> list[tuple[str, str]]:
     mdp = rlrates.garnet(states=states, actions=4, branching=10, seed=0)
     estimator = CountingEstimator()
     tracemalloc.start()
-    started = time.perf_counter()
-    result = rlrates.check(estimator, mdp, CLAIM, budget="appendix", seed=0)
-    wall = time.perf_counter() - started
+    result, wall, rss_mb = _timed_check(estimator, mdp, "appendix")
     _, peak = tracemalloc.get_traced_memory()
     tracemalloc.stop()
-    rss = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss  # KiB on Linux
-    rss_mb = rss / 1024 if sys.platform != "darwin" else rss / 2**20
     assert estimator.built == 0, f"{estimator.built} batches built next_states"
     one_view = states * 4 * max(result.table["n"]) * 8 / 1e6
     return [
-        (f"appendix-budget check, garnet({states}, 4, 10): wall s (estimator s)", f"{wall:.1f} ({result.estimator_seconds:.1f}), status {result.status}"),
+        (f"appendix-budget check, garnet({states}, 4, 10): wall s (estimator s)", f"{wall:.1f} ({result.run.estimator_seconds:.1f}), status {result.status}"),
         ("  peak traced allocations MB (tracemalloc)", f"{peak / 1e6:.0f}"),
         ("  peak resident size MB (ru_maxrss, whole process)", f"{rss_mb:.0f}"),
         ("  calls / batches that built next_states", f"{estimator.calls} / {estimator.built}"),
         ("  one (S, A, n_max) next_states view would be MB", f"{one_view:.0f}"),
     ]
+
+
+def sparse_grid(side: int) -> list[tuple[str, str]]:
+    """A ci-budget check of the plug-in on a side x side gridworld, stored sparse (10^4 states at 100).
+
+    Memory is the process's peak resident size (tracemalloc is left off here: it slowed this
+    check about 2.5x, allocations being most of the plug-in's sparse work).
+    """
+    started = time.perf_counter()
+    mdp = rlrates.gridworld(side, side, walls=(), sparse=True)
+    built = time.perf_counter() - started
+    estimator = CountingEstimator()
+    result, wall, rss_mb = _timed_check(estimator, mdp, "ci")
+    dense_gb = 8 * mdp.states * mdp.actions * mdp.states / 1e9
+    run = result.run
+    measured = {
+        f"ci-budget check, gridworld({side}, {side}) sparse: states, nonzeros of P": f"{mdp.states}, {mdp.P.nnz}",
+        "  building the MDP s": f"{built:.2f}",
+        "  check wall s (estimator s), passes, status": f"{wall:.1f} ({run.estimator_seconds:.1f}), {run.passes}, {result.status}",
+        "  per estimator call ms (sparse LU of the plug-in model)": f"{1e3 * run.estimator_seconds / len(result.table):.1f}",
+        "  plugin's own work s": f"{run.elapsed - run.estimator_seconds:.1f}",
+        "  peak resident MB (ru_maxrss, whole process)": f"{rss_mb:.0f}",
+        "  a dense (S, A, S) P alone would be GB": f"{dense_gb:.1f}",
+        "  batches that built next_states": f"{estimator.built} of {estimator.calls}",
+    }
+    return list(measured.items())
 
 
 def main(argv: list[str] | None = None) -> None:
@@ -208,9 +244,14 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--workers", type=int, default=2, help="process-pool workers (default 2)")
     parser.add_argument("--large", action="store_true", help="also run the S=500 appendix-budget check with peak memory")
     parser.add_argument("--large-states", type=int, default=500, help="garnet size for --large (default 500)")
+    parser.add_argument("--grid", type=int, default=0, metavar="SIDE",
+                        help="only the sparse gridworld: a ci-budget check on SIDE x SIDE states (100 for 10^4)")
     args = parser.parse_args(argv)
-    rows = overhead()
-    rows += process_pool(args.states, args.workers)
+    if args.grid:
+        rows = sparse_grid(args.grid)
+    else:
+        rows = overhead()
+        rows += process_pool(args.states, args.workers)
     if args.large:
         rows += large(args.large_states)
     width = max(len(label) for label, _ in rows) + 2

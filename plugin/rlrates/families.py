@@ -2,6 +2,13 @@
 
 Every constructor returns a :class:`~rlrates.mdp.TabularMDP` whose ``metadata``
 records the family and its parameters (for reports and reproducers).
+
+``garnet``, ``chain``, ``gridworld`` and ``ring`` take ``sparse=``: ``True`` builds
+``P`` as a scipy.sparse (S*A, S) array from the successor lists, ``False`` as the
+dense (S, A, S) array, and the default ``None`` builds dense unless the dense
+array would exceed :data:`rlrates.mdp.DENSE_LIMIT_BYTES` (1 GiB). Both storages
+hold the same probabilities (a Garnet's bit for bit; the others' sums of
+coinciding moves to rounding).
 ``horizon_hard`` depends on the discount, so it returns a *gamma-indexed family*:
 a callable ``gamma -> TabularMDP`` that :func:`rlrates.check` accepts in place
 of a single MDP.
@@ -10,11 +17,13 @@ of a single MDP.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
+from numpy.typing import NDArray
 
 from .exact import validate_gamma
-from .mdp import TabularMDP
+from .mdp import TabularMDP, dense_fits
 
 __all__ = ["garnet", "chain", "gridworld", "ring", "deterministic", "horizon_hard", "HorizonHard", "rebuild_call"]
 
@@ -33,7 +42,60 @@ def _probability(value: object, name: str) -> float:
     return float(value)
 
 
-def garnet(states: int, actions: int, branching: int, seed: int = 0) -> TabularMDP:
+def _use_sparse(sparse: object, states: int, actions: int) -> bool:
+    """The storage a family builds: as asked, or sparse only when dense would not fit (``None``)."""
+    if sparse is None:
+        return not dense_fits(states, actions)
+    if not isinstance(sparse, (bool, np.bool_)):
+        raise ValueError(f"`sparse` must be True, False or None (dense unless it would not fit), got {sparse!r}")
+    return bool(sparse)
+
+
+def _sparse_rows(targets: NDArray[np.int64], weights: NDArray[np.float64], states: int) -> Any:
+    """A CSR (S*A, S) kernel from per-row successor lists (rows, k); coinciding successors add up."""
+    from scipy import sparse
+
+    rows = np.repeat(np.arange(targets.shape[0]), targets.shape[1])
+    return sparse.coo_array((weights.ravel(), (rows, targets.ravel())), shape=(targets.shape[0], states)).tocsr()
+
+
+def _with_sparse(metadata: dict[str, Any], sparse: bool) -> dict[str, Any]:
+    return {**metadata, "sparse": True} if sparse else metadata
+
+
+def _slip_moves(moves: NDArray[np.int64], slip: float) -> tuple[NDArray[np.int64], NDArray[np.float64]]:
+    """Successor lists for "the chosen move w.p. 1 - slip, else a uniformly random move".
+
+    ``moves`` (S, M): the state each of the M moves leads to; action a takes move a.
+    Returns targets and weights of shape (S * M, M + 1).
+    """
+    S, M = moves.shape
+    chosen = moves.reshape(S * M, 1)
+    every = np.repeat(moves, M, axis=0)
+    weights = np.concatenate([np.full((S * M, 1), 1.0 - slip), np.full((S * M, M), slip / M)], axis=1)
+    return np.concatenate([chosen, every], axis=1), weights
+
+
+def _garnet_successors(rng: np.random.Generator, rows: int, states: int, branching: int) -> NDArray[np.int64]:
+    """The first ``branching`` columns of ``argsort(rng.random((rows, states)))``, drawn in row chunks.
+
+    The same stream as one ``rng.random((rows, states))`` call (a Generator fills arrays in
+    C order), with an O(S) partition per row instead of a sort and 32 MB at a time.
+    """
+    chunk = max(1, 4_000_000 // states)
+    out = np.empty((rows, branching), dtype=np.int64)
+    for low in range(0, rows, chunk):
+        keys = rng.random((min(chunk, rows - low), states))
+        if branching < states:
+            picked = np.argpartition(keys, branching - 1, axis=1)[:, :branching]
+        else:
+            picked = np.broadcast_to(np.arange(states), keys.shape)
+        order = np.argsort(np.take_along_axis(keys, picked, axis=1), axis=1)
+        out[low : low + keys.shape[0]] = np.take_along_axis(picked, order, axis=1)
+    return out
+
+
+def garnet(states: int, actions: int, branching: int, seed: int = 0, *, sparse: bool | None = None) -> TabularMDP:
     """A Garnet MDP: ``branching`` distinct random successors per (s, a).
 
     Construction after Archibald, McKinnon and Thomas (1995), "On the generation
@@ -46,25 +108,30 @@ def garnet(states: int, actions: int, branching: int, seed: int = 0) -> TabularM
     branching = _positive_int(branching, "branching")
     if branching > states:
         raise ValueError(f"`branching` ({branching}) cannot exceed `states` ({states})")
+    use_sparse = _use_sparse(sparse, states, actions)
     rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
     rows = states * actions
     # distinct successors: the first `branching` columns of a random permutation per row
-    successors = np.argsort(rng.random((rows, states)), axis=1)[:, :branching]
+    if use_sparse:
+        successors = _garnet_successors(rng, rows, states, branching)
+    else:
+        successors = np.argsort(rng.random((rows, states)), axis=1)[:, :branching]
     cuts = np.sort(rng.random((rows, branching - 1)), axis=1)
     edges = np.concatenate([np.zeros((rows, 1)), cuts, np.ones((rows, 1))], axis=1)
     weights = np.diff(edges, axis=1)
-    P = np.zeros((rows, states))
-    np.put_along_axis(P, successors, weights, axis=1)
+    if use_sparse:
+        P: Any = _sparse_rows(successors, weights, states)
+    else:
+        P = np.zeros((rows, states))
+        np.put_along_axis(P, successors, weights, axis=1)
+        P = P.reshape(states, actions, states)
     R = rng.random((states, actions))
-    return TabularMDP(
-        P.reshape(states, actions, states),
-        R,
-        name=f"garnet-S{states}-A{actions}-b{branching}-seed{seed}",
-        metadata={"family": "garnet", "states": states, "actions": actions, "branching": branching, "seed": int(seed)},
-    )
+    metadata = {"family": "garnet", "states": states, "actions": actions, "branching": branching, "seed": int(seed)}
+    return TabularMDP(P, R, name=f"garnet-S{states}-A{actions}-b{branching}-seed{seed}",
+                      metadata=_with_sparse(metadata, use_sparse))
 
 
-def chain(states: int = 10, slip: float = 0.1, seed: int = 0) -> TabularMDP:
+def chain(states: int = 10, slip: float = 0.1, seed: int = 0, *, sparse: bool | None = None) -> TabularMDP:
     """A corridor: action 0 moves left, action 1 moves right; with prob. ``slip`` the move reverses.
 
     Reward 1 for acting in the right end state, 0.1 in the left end state, a small
@@ -73,19 +140,27 @@ def chain(states: int = 10, slip: float = 0.1, seed: int = 0) -> TabularMDP:
     """
     states = _positive_int(states, "states", 2)
     slip = _probability(slip, "slip")
+    use_sparse = _use_sparse(sparse, states, 2)
     rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
-    P = np.zeros((states, 2, states))
-    for s in range(states):
-        left, right = max(s - 1, 0), min(s + 1, states - 1)
-        P[s, 0, left] += 1 - slip
-        P[s, 0, right] += slip
-        P[s, 1, right] += 1 - slip
-        P[s, 1, left] += slip
+    if use_sparse:
+        left = np.maximum(np.arange(states) - 1, 0)
+        right = np.minimum(np.arange(states) + 1, states - 1)
+        targets = np.stack([left, right, right, left], axis=1).reshape(2 * states, 2)
+        weights = np.tile([1 - slip, slip], (2 * states, 1))
+        P: Any = _sparse_rows(targets, weights, states)
+    else:
+        P = np.zeros((states, 2, states))
+        for s in range(states):
+            left_s, right_s = max(s - 1, 0), min(s + 1, states - 1)
+            P[s, 0, left_s] += 1 - slip
+            P[s, 0, right_s] += slip
+            P[s, 1, right_s] += 1 - slip
+            P[s, 1, left_s] += slip
     R = rng.random((states, 2)) * 0.05
     R[0, :] = 0.1
     R[-1, :] = 1.0
-    return TabularMDP(P, R, name=f"chain-S{states}-slip{slip:g}",
-                      metadata={"family": "chain", "states": states, "slip": slip, "seed": int(seed)})
+    metadata = {"family": "chain", "states": states, "slip": slip, "seed": int(seed)}
+    return TabularMDP(P, R, name=f"chain-S{states}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse))
 
 
 def gridworld(
@@ -94,6 +169,8 @@ def gridworld(
     slip: float = 0.2,
     walls: tuple[tuple[int, int], ...] = ((1, 1), (2, 3), (3, 1)),
     goal: tuple[int, int] | None = None,
+    *,
+    sparse: bool | None = None,
 ) -> TabularMDP:
     """A grid with walls and slip: actions up/right/down/left; with prob. ``slip`` a uniformly random move.
 
@@ -114,41 +191,63 @@ def gridworld(
         raise ValueError(f"`goal` {goal!r} is a wall or off the grid")
     moves = [(-1, 0), (0, 1), (1, 0), (0, -1)]
     S = len(cells)
-    P = np.zeros((S, 4, S))
-    for (r, c), s in index.items():
-        targets = []
-        for dr, dc in moves:
-            nxt = (r + dr, c + dc)
-            targets.append(index.get(nxt, s))
-        for a in range(4):
-            P[s, a, targets[a]] += 1 - slip
-            for t in targets:
-                P[s, a, t] += slip / 4
+    use_sparse = _use_sparse(sparse, S, 4)
+    if use_sparse:
+        P: Any = _sparse_rows(*_slip_moves(_grid_moves(cells, width, height), slip), S)
+    else:
+        P = np.zeros((S, 4, S))
+        for (r, c), s in index.items():
+            targets = []
+            for dr, dc in moves:
+                nxt = (r + dr, c + dc)
+                targets.append(index.get(nxt, s))
+            for a in range(4):
+                P[s, a, targets[a]] += 1 - slip
+                for t in targets:
+                    P[s, a, t] += slip / 4
     R = np.zeros((S, 4))
     R[index[goal_cell], :] = 1.0
-    return TabularMDP(P, R, name=f"grid-{width}x{height}-slip{slip:g}",
-                      metadata={"family": "gridworld", "width": width, "height": height, "slip": slip,
-                                "walls": [list(w) for w in sorted(wall_set)], "goal": list(goal_cell)})
+    metadata = {"family": "gridworld", "width": width, "height": height, "slip": slip,
+                "walls": [list(w) for w in sorted(wall_set)], "goal": list(goal_cell)}
+    return TabularMDP(P, R, name=f"grid-{width}x{height}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse))
 
 
-def ring(states: int = 12, slip: float = 0.1, seed: int = 0) -> TabularMDP:
+def _grid_moves(cells: list[tuple[int, int]], width: int, height: int) -> NDArray[np.int64]:
+    """(S, 4): the state that up/right/down/left leads to from each free cell (itself at a wall or edge)."""
+    number = np.full((height + 2, width + 2), -1, dtype=np.int64)  # a frame of walls around the grid
+    rc = np.array(cells, dtype=np.int64).reshape(-1, 2) + 1
+    number[rc[:, 0], rc[:, 1]] = np.arange(len(cells))
+    own = np.arange(len(cells))
+    out = np.empty((len(cells), 4), dtype=np.int64)
+    for a, (dr, dc) in enumerate([(-1, 0), (0, 1), (1, 0), (0, -1)]):
+        nxt = number[rc[:, 0] + dr, rc[:, 1] + dc]
+        out[:, a] = np.where(nxt >= 0, nxt, own)
+    return out
+
+
+def ring(states: int = 12, slip: float = 0.1, seed: int = 0, *, sparse: bool | None = None) -> TabularMDP:
     """States on a cycle: stay, step clockwise, step counter-clockwise; with prob. ``slip`` a uniform step.
 
     Rewards are seeded uniform on [0, 1] per (s, a) (common practice).
     """
     states = _positive_int(states, "states", 3)
     slip = _probability(slip, "slip")
+    use_sparse = _use_sparse(sparse, states, 3)
     rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
-    P = np.zeros((states, 3, states))
-    for s in range(states):
-        targets = [s, (s + 1) % states, (s - 1) % states]
-        for a in range(3):
-            P[s, a, targets[a]] += 1 - slip
-            for t in targets:
-                P[s, a, t] += slip / 3
+    if use_sparse:
+        here = np.arange(states)
+        P: Any = _sparse_rows(*_slip_moves(np.stack([here, (here + 1) % states, (here - 1) % states], axis=1), slip), states)
+    else:
+        P = np.zeros((states, 3, states))
+        for s in range(states):
+            targets = [s, (s + 1) % states, (s - 1) % states]
+            for a in range(3):
+                P[s, a, targets[a]] += 1 - slip
+                for t in targets:
+                    P[s, a, t] += slip / 3
     R = rng.random((states, 3))
-    return TabularMDP(P, R, name=f"ring-S{states}-slip{slip:g}",
-                      metadata={"family": "ring", "states": states, "slip": slip, "seed": int(seed)})
+    metadata = {"family": "ring", "states": states, "slip": slip, "seed": int(seed)}
+    return TabularMDP(P, R, name=f"ring-S{states}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse))
 
 
 def deterministic(states: int = 8, actions: int = 3, seed: int = 0) -> TabularMDP:
@@ -238,4 +337,5 @@ def rebuild_call(metadata: dict[str, object] | None) -> str | None:
     keys = _PARAMETERS.get(str(metadata.get("family")))
     if keys is None or any(key not in metadata for key in keys):
         return None
-    return f"rlrates.{metadata['family']}(" + ", ".join(f"{key}={metadata[key]!r}" for key in keys) + ")"
+    arguments = [f"{key}={metadata[key]!r}" for key in keys] + (["sparse=True"] if metadata.get("sparse") else [])
+    return f"rlrates.{metadata['family']}(" + ", ".join(arguments) + ")"

@@ -2,7 +2,10 @@
 
 A :class:`TabularMDP` holds ``P`` of shape ``(S, A, S)`` (``P[s, a, s']`` is the
 probability of moving to ``s'`` after taking ``a`` in ``s``) and ``R`` of shape
-``(S, A)`` (the expected immediate reward). Construction validates both and
+``(S, A)`` (the expected immediate reward). Large models may instead give ``P``
+as a scipy.sparse array of shape ``(S*A, S)`` (row ``s * A + a``); it is kept
+sparse (CSR) and everything downstream (exact solves, sampling, the batches'
+counts) stays sparse. Construction validates both and
 names the offending entry when something is wrong; afterwards the arrays are
 read-only, so an estimator or a test cannot change the ground truth by accident.
 """
@@ -10,6 +13,7 @@ read-only, so an estimator or a test cannot change the ground truth by accident.
 from __future__ import annotations
 
 import hashlib
+import sys
 import warnings
 from collections.abc import Mapping
 from typing import Any
@@ -17,11 +21,29 @@ from typing import Any
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["TabularMDP", "RewardRangeWarning", "ROW_SUM_TOLERANCE"]
+__all__ = ["TabularMDP", "RewardRangeWarning", "ROW_SUM_TOLERANCE", "DENSE_LIMIT_BYTES", "dense_fits", "is_sparse"]
 
 #: Largest accepted ``|sum_s' P[s, a, s'] - 1|`` for a transition row. Rows within
 #: this tolerance are accepted and renormalised exactly when sampling.
 ROW_SUM_TOLERANCE = 1e-8
+
+
+#: Largest dense (S, A, S) float64 kernel the families build by default (1 GiB, e.g. S = 5000
+#: with A = 4 is 800 MB); above it they build a sparse model unless told ``sparse=False``.
+DENSE_LIMIT_BYTES = 2**30
+
+
+def dense_fits(states: int, actions: int) -> bool:
+    """Whether a dense (S, A, S) float64 kernel stays within :data:`DENSE_LIMIT_BYTES`."""
+    return 8 * states * actions * states <= DENSE_LIMIT_BYTES
+
+
+def is_sparse(value: object) -> bool:
+    """Whether ``value`` is a scipy.sparse array or matrix (False without importing scipy)."""
+    if type(value) is np.ndarray:  # the common case, answered without a look-up
+        return False
+    module = sys.modules.get("scipy.sparse")
+    return module is not None and bool(module.issparse(value))
 
 
 class RewardRangeWarning(UserWarning):
@@ -84,6 +106,51 @@ def validate_transitions(P: ArrayLike, *, tolerance: float = ROW_SUM_TOLERANCE) 
     return array
 
 
+def validate_sparse_transitions(P: Any, *, tolerance: float = ROW_SUM_TOLERANCE) -> tuple[Any, int, int]:
+    """Return a canonical, read-only CSR copy of a sparse (S*A, S) kernel, with S and A."""
+    from scipy import sparse
+
+    if P.ndim != 2:
+        raise ValueError(f"a sparse `P` must have shape (S*A, S), got {P.shape}")
+    rows, states = P.shape
+    if states == 0 or rows == 0:
+        raise ValueError(f"a sparse `P` has no states or no actions: shape {P.shape}; it needs shape (S*A, S) with S, A >= 1")
+    if rows % states:
+        raise ValueError(
+            f"a sparse `P` must have shape (S*A, S): {rows} rows is not a multiple of S = {states} columns"
+        )
+    actions = rows // states
+    if P.dtype.kind not in "biuf":
+        raise ValueError(f"a sparse `P` must hold real probabilities, got dtype {P.dtype}")
+    flat = sparse.csr_array(P, dtype=np.float64, copy=True)
+    flat.sum_duplicates()
+    flat.eliminate_zeros()
+    row_of = np.repeat(np.arange(rows), np.diff(flat.indptr))
+
+    def where(k: int) -> str:
+        return f"P[{row_of[k] // actions}, {row_of[k] % actions}, {flat.indices[k]}] (row {row_of[k]} of the (S*A, S) array)"
+
+    bad = ~np.isfinite(flat.data)
+    if bad.any():
+        k = int(np.argmax(bad))
+        raise ValueError(f"`P` has a non-finite entry {where(k)} = {flat.data[k]!r} ({int(bad.sum())} non-finite entries in all)")
+    negative = flat.data < 0
+    if negative.any():
+        k = int(np.argmax(negative))
+        raise ValueError(f"`P` has a negative probability {where(k)} = {flat.data[k]:.6g}")
+    sums = np.asarray(flat.sum(axis=1)).ravel()
+    off = np.abs(sums - 1.0) > tolerance
+    if off.any():
+        i = int(np.argmax(off))
+        raise ValueError(
+            f"`P` row (s={i // actions}, a={i % actions}) sums to {sums[i]:.12g}, not 1 "
+            f"(tolerance {tolerance:g}; {int(off.sum())} rows off in all)"
+        )
+    for part in (flat.data, flat.indices, flat.indptr):
+        part.setflags(write=False)
+    return flat, states, actions
+
+
 def validate_rewards(R: ArrayLike, states: int, actions: int) -> NDArray[np.float64]:
     """Return ``R`` as a float array after checking shape (S, A) and finiteness."""
     array = _as_float_array(R, "R", 2, "(S, A)")
@@ -105,7 +172,9 @@ class TabularMDP:
     ----------
     P:
         Transition probabilities; every row ``P[s, a, :]`` is non-negative and sums
-        to 1 within :data:`ROW_SUM_TOLERANCE`.
+        to 1 within :data:`ROW_SUM_TOLERANCE`. Either an (S, A, S) array or a
+        scipy.sparse array (or matrix) of shape (S*A, S) whose row ``s * A + a`` is
+        ``P[s, a, :]``; a sparse ``P`` is kept as a canonical CSR array.
     R:
         Expected immediate rewards. The bounds this plugin checks assume rewards in
         ``[0, 1]``; other ranges are accepted with a :class:`RewardRangeWarning`.
@@ -128,8 +197,12 @@ class TabularMDP:
         name: str = "mdp",
         metadata: Mapping[str, Any] | None = None,
     ) -> None:
-        P_array = validate_transitions(P)
-        R_array = validate_rewards(R, P_array.shape[0], P_array.shape[1])
+        if is_sparse(P):
+            P_array, states, actions = validate_sparse_transitions(P)
+        else:
+            P_array = validate_transitions(P)
+            states, actions = P_array.shape[0], P_array.shape[1]
+        R_array = validate_rewards(R, states, actions)
         if R_array.min() < 0.0 or R_array.max() > 1.0:
             warnings.warn(
                 f"rewards of MDP {name!r} lie in [{R_array.min():.4g}, {R_array.max():.4g}], "
@@ -137,23 +210,32 @@ class TabularMDP:
                 RewardRangeWarning,
                 stacklevel=2,
             )
-        P_array.setflags(write=False)
+        if not is_sparse(P_array):
+            P_array.setflags(write=False)
         R_array.setflags(write=False)
         self._P = P_array
         self._R = R_array
         self._name = str(name)
         self._metadata = dict(metadata or {})
-        digest = hashlib.blake2b(digest_size=16)
-        digest.update(np.asarray(P_array.shape, dtype=np.int64).tobytes())
-        # `+ 0.0` maps -0.0 to +0.0, so numerically equal models hash alike
-        digest.update(np.ascontiguousarray(P_array + 0.0).tobytes())
-        digest.update(np.ascontiguousarray(R_array + 0.0).tobytes())
-        self._fingerprint = digest.hexdigest()
+        self._fingerprint = _fingerprint(P_array, R_array)
 
     @property
-    def P(self) -> NDArray[np.float64]:
-        """Read-only transition kernel, shape (S, A, S)."""
+    def P(self) -> Any:
+        """Read-only transition kernel: an (S, A, S) ndarray, or for a sparse MDP a
+        scipy.sparse CSR array of shape (S*A, S) (row ``s * A + a``) with read-only parts."""
         return self._P
+
+    @property
+    def transition_rows(self) -> Any:
+        """``P`` as (S*A, S) rows: a view of the dense array, or the sparse array itself."""
+        if self.is_sparse:
+            return self._P
+        return self._P.reshape(self.states * self.actions, self.states)
+
+    @property
+    def is_sparse(self) -> bool:
+        """True when ``P`` is held as a scipy.sparse (S*A, S) array."""
+        return is_sparse(self._P)
 
     @property
     def R(self) -> NDArray[np.float64]:
@@ -162,11 +244,11 @@ class TabularMDP:
 
     @property
     def states(self) -> int:
-        return int(self._P.shape[0])
+        return int(self._R.shape[0])
 
     @property
     def actions(self) -> int:
-        return int(self._P.shape[1])
+        return int(self._R.shape[1])
 
     @property
     def name(self) -> str:
@@ -207,20 +289,43 @@ class TabularMDP:
         return hash(self._fingerprint)
 
     def __repr__(self) -> str:
+        storage = ", sparse" if self.is_sparse else ""
         return (
-            f"TabularMDP(name={self._name!r}, states={self.states}, actions={self.actions}, "
+            f"TabularMDP(name={self._name!r}, states={self.states}, actions={self.actions}{storage}, "
             f"fingerprint={self._fingerprint[:12]})"
         )
 
 
+def _fingerprint(P: Any, R: NDArray[np.float64]) -> str:
+    """Hex digest of a model's shape and contents (a sparse model hashes its CSR parts, tagged)."""
+    digest = hashlib.blake2b(digest_size=16)
+    if is_sparse(P):
+        states, actions = R.shape
+        digest.update(b"csr")
+        digest.update(np.asarray((states, actions, states), dtype=np.int64).tobytes())
+        digest.update(np.ascontiguousarray(P.indptr, dtype=np.int64).tobytes())
+        digest.update(np.ascontiguousarray(P.indices, dtype=np.int64).tobytes())
+        digest.update(np.ascontiguousarray(P.data + 0.0).tobytes())
+    else:
+        digest.update(np.asarray(P.shape, dtype=np.int64).tobytes())
+        # `+ 0.0` maps -0.0 to +0.0, so numerically equal models hash alike
+        digest.update(np.ascontiguousarray(P + 0.0).tobytes())
+    digest.update(np.ascontiguousarray(R + 0.0).tobytes())
+    return digest.hexdigest()
+
+
 def _restore(
-    P: NDArray[np.float64], R: NDArray[np.float64], name: str, metadata: dict[str, Any], fingerprint: str
+    P: Any, R: NDArray[np.float64], name: str, metadata: dict[str, Any], fingerprint: str
 ) -> TabularMDP:
     """Rebuild a pickled TabularMDP from its already validated parts."""
     mdp = object.__new__(TabularMDP)
-    P = np.asarray(P, dtype=np.float64)  # a fresh array from the pickle: no copy needed
+    if is_sparse(P):  # a fresh CSR array from the pickle, canonical already
+        for part in (P.data, P.indices, P.indptr):
+            part.setflags(write=False)
+    else:
+        P = np.asarray(P, dtype=np.float64)  # a fresh array from the pickle: no copy needed
+        P.setflags(write=False)
     R = np.asarray(R, dtype=np.float64)
-    P.setflags(write=False)
     R.setflags(write=False)
     for slot, value in (("_P", P), ("_R", R), ("_name", name), ("_metadata", dict(metadata)), ("_fingerprint", fingerprint)):
         object.__setattr__(mdp, slot, value)

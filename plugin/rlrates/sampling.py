@@ -1,11 +1,13 @@
 """Generative-model sampling: n next-state samples for every state-action pair.
 
-A :class:`Batch` is one draw with two views: ``counts`` (S, A, S) and
-``next_states`` (S, A, n). The counts come from one vectorised
-``Generator.multinomial`` call (cost O(S^2 A), whatever n); the sequence view is
-built from the counts only when an estimator reads it, by laying the states out
-and shuffling each row with an independent child stream. Both views are of the
-same draw and both are read-only.
+A :class:`Batch` is one draw with two views: ``counts`` (S, A, S) (for a sparse
+MDP a scipy.sparse (S*A, S) array) and ``next_states`` (S, A, n). The draw is
+kept as counts on each row's support (S*A, k), from a chain of conditional
+binomials over the support (cost O(S A k) per replicate, whatever n). Each view
+is built from them only when an estimator reads it: ``counts`` by scattering
+into the dense array (or wrapping them as a sparse one), ``next_states`` by
+laying the successors out and shuffling each row with an independent child
+stream. Both views are of the same draw and both are read-only.
 
 Streams: every batch is rebuilt from a :class:`numpy.random.SeedSequence` given
 by an integer entropy and a spawn key of stable identifiers (see
@@ -16,15 +18,16 @@ from __future__ import annotations
 
 import hashlib
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from functools import lru_cache
+from typing import Any
 
 import numpy as np
 from numpy.typing import NDArray
 
 from .mdp import TabularMDP
 
-__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stream_context", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel"]
+__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stream_context", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel", "sparse_support_kernel"]
 
 IntArray = NDArray[np.int64]
 
@@ -67,7 +70,9 @@ def cell_seed(master_seed: int, context: str, gamma: float, n: int, replicate: i
 
 
 def sampling_kernel(mdp: TabularMDP) -> NDArray[np.float64]:
-    """``P`` reshaped to (S*A, S) with rows renormalised exactly for multinomial draws."""
+    """``P`` reshaped to (S*A, S) with rows renormalised exactly for multinomial draws (dense MDPs only)."""
+    if mdp.is_sparse:
+        raise ValueError(f"sampling_kernel needs a dense MDP; {mdp.name!r} is sparse: use mdp_kernel")
     flat = np.array(mdp.P.reshape(mdp.states * mdp.actions, mdp.states))
     flat /= flat.sum(axis=1, keepdims=True)
     # Generator.multinomial rejects sum(pvals[:-1]) > 1 beyond a tiny tolerance; move
@@ -85,39 +90,90 @@ class SupportKernel:
     (a Garnet with branching b) is drawn over its b successors rather than all S.
     ``support`` (S*A, k) holds successor indices (zero-probability padding first, so
     that the last column, which absorbs rounding, is always a real successor).
+    ``sparse`` says which counts view the batches give: a scipy.sparse (S*A, S)
+    array (sparse MDPs) or a dense (S, A, S) ndarray. The conditional
+    probabilities of the binomial chain are computed once, here.
     """
 
     states: int
     actions: int
     support: NDArray[np.int64]
     probs: NDArray[np.float64]
+    sparse: bool = False
+    conditional: NDArray[np.float64] = field(init=False, repr=False, compare=False)
+    scatter: NDArray[np.int64] = field(init=False, repr=False, compare=False)
 
-    def sample_counts(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
-        """Counts of ``replicates`` independent draws, shape (replicates, S, A, S).
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "conditional", _conditional(self.probs))
+        # where each support column lands in a flat dense (S*A*S) array of counts
+        rows = self.support.shape[0]
+        object.__setattr__(self, "scatter", (self.support + self.states * np.arange(rows)[:, None]).ravel())
+
+    def sample_support(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
+        """Counts on the support of ``replicates`` independent draws, shape (replicates, S*A, k).
 
         Multinomial by the chain of conditional binomials (each successor's count
         given the ones before it), vectorised over replicates and rows: one
         ``Generator.binomial`` call per support column, whatever n and replicates.
+        Column j of row i counts successor ``support[i, j]``.
         """
         rows, width = self.probs.shape
         left = np.full((replicates, rows), n, dtype=np.int64)
         drawn = np.empty((replicates, rows, width), dtype=np.int64)
         for j in range(width - 1):
-            drawn[:, :, j] = rng.binomial(left, self._conditional[:, j])
+            drawn[:, :, j] = rng.binomial(left, self.conditional[:, j])
             left -= drawn[:, :, j]
         drawn[:, :, -1] = left
-        counts = np.zeros((replicates, rows, self.states), dtype=np.int64)
-        np.put_along_axis(counts, np.broadcast_to(self.support, drawn.shape), drawn, axis=2)
-        return counts.reshape(replicates, self.states, self.actions, self.states)
+        return drawn
 
-    @property
-    def _conditional(self) -> NDArray[np.float64]:
-        """P(successor j | not one of the successors before j), per row."""
-        before = np.cumsum(self.probs, axis=1) - self.probs
-        remaining = 1.0 - before
-        with np.errstate(divide="ignore", invalid="ignore"):
-            cond = np.where(remaining > 0, self.probs / remaining, 1.0)
-        return np.clip(cond, 0.0, 1.0)
+    def sample_counts(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
+        """Dense counts of ``replicates`` independent draws, shape (replicates, S, A, S)."""
+        drawn = self.sample_support(rng, n, replicates)
+        return self.dense_counts(drawn).reshape(replicates, self.states, self.actions, self.states)
+
+    def dense_counts(self, drawn: IntArray) -> IntArray:
+        """Scatter support counts (..., S*A, k) into a dense (..., S*A, S) array."""
+        rows, width = self.support.shape
+        blocks = drawn.size // (rows * width)
+        counts = np.zeros(blocks * rows * self.states, dtype=np.int64)
+        offsets = self.scatter if blocks == 1 else (self.scatter + rows * self.states * np.arange(blocks)[:, None]).ravel()
+        if self.sparse:  # padding may repeat a successor's index: add (padding counts are 0)
+            np.add.at(counts, offsets, drawn.ravel())
+        else:  # a dense kernel's support columns are distinct states
+            counts[offsets] = drawn.ravel()
+        return counts.reshape(*drawn.shape[:-1], self.states)
+
+    def sparse_counts(self, drawn: IntArray) -> Any:
+        """Support counts (S*A, k) of one draw as a scipy.sparse CSR array of shape (S*A, S)."""
+        from scipy import sparse
+
+        keep = drawn > 0
+        indptr = np.zeros(drawn.shape[0] + 1, dtype=np.int64)
+        np.cumsum(keep.sum(axis=1), out=indptr[1:])
+        # positive columns of a row are in increasing state order, so the CSR array is canonical
+        counts = sparse.csr_array((drawn[keep], self.support[keep], indptr), shape=(drawn.shape[0], self.states))
+        counts.has_canonical_format = True
+        return counts
+
+    def successors(self, drawn: IntArray, n: int) -> IntArray:
+        """Each row's sampled successors in increasing state order, shape (S*A, n), from support counts (S*A, k)."""
+        return np.repeat(self.support.ravel(), drawn.ravel()).reshape(drawn.shape[0], n)
+
+
+def _conditional(probs: NDArray[np.float64]) -> NDArray[np.float64]:
+    """P(successor j | not one of the successors before j), per row."""
+    before = np.cumsum(probs, axis=1) - probs
+    remaining = 1.0 - before
+    with np.errstate(divide="ignore", invalid="ignore"):
+        cond = np.where(remaining > 0, probs / remaining, 1.0)
+    return np.clip(cond, 0.0, 1.0)
+
+
+def _normalised(probs: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Rows renormalised, the last column absorbing rounding so that the leading partial sums stay <= 1."""
+    probs = probs / probs.sum(axis=1, keepdims=True)
+    probs[:, -1] = np.clip(1.0 - probs[:, :-1].sum(axis=1), 0.0, None)
+    return probs
 
 
 def support_kernel(kernel: NDArray[np.float64], states: int, actions: int) -> SupportKernel:
@@ -127,27 +183,77 @@ def support_kernel(kernel: NDArray[np.float64], states: int, actions: int) -> Su
     order = np.argsort(positive, axis=1, kind="stable")  # zero-probability columns first
     support = np.ascontiguousarray(order[:, -width:])
     probs = np.take_along_axis(kernel, support, axis=1)
-    probs = probs / probs.sum(axis=1, keepdims=True)
-    probs[:, -1] = np.clip(1.0 - probs[:, :-1].sum(axis=1), 0.0, None)
-    return SupportKernel(states, actions, support, probs)
+    return SupportKernel(states, actions, support, _normalised(probs))
+
+
+def sparse_support_kernel(flat: Any, states: int, actions: int) -> SupportKernel:
+    """The support kernel of a canonical scipy.sparse CSR (S*A, S) kernel (explicit zeros dropped).
+
+    Rows with fewer successors than the widest are padded in front with
+    zero-probability columns (state 0, never drawn).
+    """
+    rows = states * actions
+    lengths = np.diff(flat.indptr).astype(np.int64)
+    width = max(int(lengths.max()), 1)
+    row_of = np.repeat(np.arange(rows), lengths)
+    column = np.arange(flat.nnz) - flat.indptr[row_of] + (width - lengths)[row_of]
+    support = np.zeros((rows, width), dtype=np.int64)
+    probs = np.zeros((rows, width))
+    support[row_of, column] = flat.indices
+    probs[row_of, column] = flat.data
+    return SupportKernel(states, actions, support, _normalised(probs), sparse=True)
 
 
 def mdp_kernel(mdp: TabularMDP) -> SupportKernel:
     """The support kernel of an MDP, ready for :func:`draw` and :func:`draw_block`."""
+    if mdp.is_sparse:
+        return sparse_support_kernel(mdp.P, mdp.states, mdp.actions)
     return support_kernel(sampling_kernel(mdp), mdp.states, mdp.actions)
+
+
+class _BlockDraw:
+    """The support counts of a block of replicates, with at most one dense view built at a time.
+
+    A dense (S, A, S) view is built only when an estimator reads ``batch.counts``,
+    and only the last one built is kept, so a block's memory stays at its support
+    counts plus one view (the block's batches are read one after the other).
+    """
+
+    def __init__(self, kernel: SupportKernel, drawn: IntArray, n: int) -> None:
+        drawn.setflags(write=False)
+        self.kernel = kernel
+        self.drawn = drawn
+        self.n = int(n)
+        self._view: tuple[int, Any] | None = None
+
+    def counts(self, replicate: int) -> Any:
+        if self._view is None or self._view[0] != replicate:
+            kernel = self.kernel
+            if kernel.sparse:
+                view = kernel.sparse_counts(self.drawn[replicate])
+                view.data.setflags(write=False)
+            else:
+                view = kernel.dense_counts(self.drawn[replicate]).reshape(kernel.states, kernel.actions, kernel.states)
+                view.setflags(write=False)
+            self._view = (replicate, view)
+        return self._view[1]
+
+    def successors(self, replicate: int) -> IntArray:
+        return self.kernel.successors(self.drawn[replicate], self.n)
 
 
 class Batch:
     """One generative-model draw: n sampled next states for each (s, a).
 
-    Attributes are computed lazily: reading ``counts`` never builds the (S, A, n)
-    array; reading ``next_states`` builds it once from the counts.
+    Views are built lazily from the counts on the support: reading ``counts``
+    builds the (S, A, S) array (or, for a sparse MDP, the (S*A, S) sparse array)
+    and never the (S, A, n) one; reading ``next_states`` builds that once.
     """
 
-    def __init__(self, counts: IntArray, n: int, seed: np.random.SeedSequence, path: tuple[int, ...] = ()) -> None:
-        counts.setflags(write=False)
-        self._counts = counts
-        self._n = int(n)
+    def __init__(self, block: _BlockDraw, replicate: int, seed: np.random.SeedSequence, path: tuple[int, ...] = ()) -> None:
+        self._block = block
+        self._replicate = int(replicate)
+        self._n = block.n
         # the order of next_states comes from the child (*path, 1) of `seed`, built on demand
         self._seed = seed
         self._path = path
@@ -160,35 +266,38 @@ class Batch:
 
     @property
     def states(self) -> int:
-        return int(self._counts.shape[0])
+        return self._block.kernel.states
 
     @property
     def actions(self) -> int:
-        return int(self._counts.shape[1])
+        return self._block.kernel.actions
 
     @property
-    def counts(self) -> IntArray:
-        """Read-only (S, A, S) int array: how often each successor was sampled."""
-        return self._counts
+    def sparse(self) -> bool:
+        """True for a sparse MDP: then ``counts`` is a scipy.sparse (S*A, S) array."""
+        return self._block.kernel.sparse
+
+    @property
+    def counts(self) -> Any:
+        """How often each successor was sampled: a read-only (S, A, S) int array, or for a sparse
+        MDP a scipy.sparse CSR array of shape (S*A, S) (row ``s * A + a``) with read-only data."""
+        return self._block.counts(self._replicate)
 
     @property
     def next_states(self) -> IntArray:
         """Read-only (S, A, n) int array: the i-th sampled successor of (s, a)."""
         if self._next_states is None:
-            S, A = self.states, self.actions
-            flat_counts = self._counts.reshape(S * A, S)
-            laid_out = np.repeat(np.tile(np.arange(S, dtype=np.int64), S * A), flat_counts.ravel())
-            ordered = laid_out.reshape(S * A, self._n)
+            ordered = self._block.successors(self._replicate)
             shuffled = np.random.default_rng(_child(self._seed, *self._path, 1)).permuted(ordered, axis=1)
-            shuffled = shuffled.reshape(S, A, self._n)
+            shuffled = shuffled.reshape(self.states, self.actions, self._n)
             shuffled.setflags(write=False)
             self._next_states = shuffled
         return self._next_states
 
     @property
-    def empirical_P(self) -> NDArray[np.float64]:
-        """The plug-in model ``counts / n`` (a fresh, writable array)."""
-        return self._counts / float(self._n)
+    def empirical_P(self) -> Any:
+        """The plug-in model ``counts / n`` (a fresh, writable array; sparse (S*A, S) for a sparse MDP)."""
+        return self.counts / float(self._n)
 
     def __repr__(self) -> str:
         return f"Batch(states={self.states}, actions={self.actions}, n={self._n})"
@@ -225,11 +334,12 @@ def draw(
     """
     n = _validate_n(n)
     seq = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
-    if not isinstance(kernel, SupportKernel):
-        dense = sampling_kernel(mdp) if kernel is None else kernel
-        kernel = support_kernel(dense, mdp.states, mdp.actions)
-    counts = kernel.sample_counts(np.random.default_rng(_child(seq, 0)), n)[0]
-    return Batch(counts, n, seq)
+    if kernel is None:
+        kernel = mdp_kernel(mdp)
+    elif not isinstance(kernel, SupportKernel):
+        kernel = support_kernel(kernel, mdp.states, mdp.actions)
+    drawn = kernel.sample_support(np.random.default_rng(_child(seq, 0)), n)
+    return Batch(_BlockDraw(kernel, drawn, n), 0, seq)
 
 
 def draw_block(
@@ -244,5 +354,5 @@ def draw_block(
     seed's child ``(1, r)``, built only if that batch's ``next_states`` is read.
     """
     n = _validate_n(n)
-    counts = kernel.sample_counts(np.random.default_rng(_child(seed, 0)), n, replicates)
-    return [Batch(counts[r], n, seed, (1 + r,)) for r in range(replicates)]
+    block = _BlockDraw(kernel, kernel.sample_support(np.random.default_rng(_child(seed, 0)), n, replicates), n)
+    return [Batch(block, r, seed, (1 + r,)) for r in range(replicates)]

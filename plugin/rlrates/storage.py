@@ -96,6 +96,11 @@ def save_mdp(mdp: TabularMDP, path: str | os.PathLike[str]) -> Path:
         raise TypeError(f"`mdp` must be a TabularMDP, got {type(mdp).__name__}")
     target = Path(path)
     kind = _format_of(target)
+    if mdp.is_sparse:
+        raise ValueError(
+            f"{target}: MDP {mdp.name!r} is sparse, and save_mdp writes dense MDPs only for now; "
+            "save its parts with scipy.sparse.save_npz(path, mdp.P) and numpy.save(path, mdp.R)"
+        )
     header = _header(mdp, target)
     if kind == ".npz":
         info = np.array(json.dumps(header, default=_to_json_data), dtype=np.str_)

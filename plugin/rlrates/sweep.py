@@ -161,7 +161,11 @@ def _outcomes(tasks: list[CellTask], executor: Executor | None) -> Iterator[Cell
         for task in tasks:
             yield run_cell(task)
         return
-    futures: list[Future[CellOutcome]] = [executor.submit(run_cell, task) for task in tasks]
+    # largest cells first (n samples x replicates), so that no long cell starts last and keeps
+    # one worker busy alone; results are still read in plan order, so tables do not change
+    futures: list[Future[CellOutcome]] = [None] * len(tasks)  # type: ignore[list-item]
+    for index in sorted(range(len(tasks)), key=lambda i: -tasks[i].n * (tasks[i].stop - tasks[i].start)):
+        futures[index] = executor.submit(run_cell, tasks[index])
     try:
         for future in futures:
             yield future.result()

@@ -8,6 +8,8 @@ q_star     (S, A) float Q estimate   ``||Q_hat - Q*||``
 policy     (S,) actions or (S, A)    ``||Q* - Q^{pi_hat}||`` (exact suboptimality)
            probabilities
 model      (S, A, S) kernel          ``max_{s,a} ||P_hat[s,a] - P[s,a]||_1``
+           (sparse MDP: scipy.sparse
+           (S*A, S) rows)
 =========  ========================  ==============================================
 
 The exact answer is solved once per discount (:func:`solve_truth`) and reused for
@@ -24,7 +26,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .exact import q_pi, q_star, validate_policy
-from .mdp import TabularMDP
+from .mdp import TabularMDP, is_sparse
 from .vocabulary import NORMS, TARGETS
 
 if TYPE_CHECKING:
@@ -113,7 +115,7 @@ def solve_truth(mdp: TabularMDP, gamma: float, target: str, policy: Any = None) 
         q, _ = q_star(mdp, gamma)
         return Truth(mdp, gamma, target, pi, q, value_scale)
     if target == "model":
-        return Truth(mdp, gamma, target, pi, np.asarray(mdp.P), 2.0)
+        return Truth(mdp, gamma, target, pi, mdp.P if mdp.is_sparse else np.asarray(mdp.P), 2.0)
     raise ValueError(f"unknown `target` {target!r}")
 
 
@@ -168,6 +170,8 @@ def validate_estimate(estimate: object, truth: Truth) -> Array:
             return validate_policy(truth.mdp, array, name="returned policy")
         except ValueError as exc:
             raise EstimateError(str(exc)) from None
+    if truth.mdp.is_sparse:
+        return _validate_sparse_model(estimate, S, A)
     what = f"an (S, A, S) = ({S}, {A}, {S}) transition estimate"
     array = _require_float_shape(_require_array(estimate, what), (S, A, S), what)
     if (array < 0).any():
@@ -179,6 +183,28 @@ def validate_estimate(estimate: object, truth: Truth) -> Array:
         s, a = (int(i) for i in np.argwhere(off)[0])
         raise EstimateError(f"the returned model's row (s={s}, a={a}) sums to {sums[s, a]:.10g}, not 1")
     return array
+
+
+def _validate_sparse_model(estimate: object, S: int, A: int) -> Any:
+    """A sparse MDP's model estimate: a scipy.sparse (S*A, S) float array with stochastic rows."""
+    what = f"a scipy.sparse (S*A, S) = ({S * A}, {S}) transition estimate (the MDP is sparse)"
+    if not is_sparse(estimate):
+        raise EstimateError(f"the estimator returned {type(estimate).__name__}; expected {what}")
+    rows: Any = estimate
+    if rows.shape != (S * A, S):
+        raise EstimateError(f"the estimator returned shape {rows.shape}; expected {what}")
+    rows = rows.tocsr()
+    _require_float(np.asarray(rows.data), "model probabilities")
+    if (rows.data < 0).any():
+        k = int(np.argmax(rows.data < 0))
+        i = int(np.searchsorted(rows.indptr, k, side="right") - 1)
+        raise EstimateError(f"the returned model has a negative probability at (s={i // A}, a={i % A}, s'={int(rows.indices[k])})")
+    sums = np.asarray(rows.sum(axis=1)).ravel()
+    off = np.abs(sums - 1.0) > 1e-6
+    if off.any():
+        i = int(np.argmax(off))
+        raise EstimateError(f"the returned model's row (s={i // A}, a={i % A}) sums to {sums[i]:.10g}, not 1")
+    return rows
 
 
 def _require_float_shape(array: np.ndarray, shape: tuple[int, ...], what: str) -> Array:
@@ -201,6 +227,9 @@ def estimate_error(estimate: Array, truth: Truth, norm: str = "sup") -> float:
             if len(truth._policy_cache) < 4096:
                 truth._policy_cache[key] = cached
         return cached
+    if is_sparse(truth.value):
+        distances = np.asarray(abs(estimate - truth.value).sum(axis=1)).ravel()
+        return float(distances.max() if norm == "sup" else distances.mean())
     distances = np.abs(estimate - truth.value).sum(axis=2)
     return float(distances.max() if norm == "sup" else distances.mean())
 

@@ -40,6 +40,23 @@ def _run(estimator: Callable[[Any, Any], Any], target: str = "q_pi", **options: 
     return result.message
 
 
+def _sparse_P(**changes: float) -> Any:
+    """MDP's kernel as a scipy.sparse (S*A, S) array, with entries changed (key ``row_col``)."""
+    from scipy import sparse
+
+    rows = np.array(MDP.P.reshape(12, 6))
+    for key, value in changes.items():
+        i, t = (int(x) for x in key[1:].split("_"))
+        rows[i, t] = value
+    return sparse.csr_array(rows)
+
+
+def _sparse_model_returns_dense() -> str:
+    sparse_mdp = rlrates.TabularMDP(_sparse_P(), MDP.R)
+    result = rlrates.check(lambda batch, problem: batch.counts.toarray() / batch.n, sparse_mdp, CLAIM, target="model", **SMALL)
+    return result.message
+
+
 def _returns(make: Callable[[Any], Any], target: str = "q_pi") -> Callable[[], str]:
     return lambda: _run(lambda batch, problem: make(problem), target)
 
@@ -134,6 +151,13 @@ CATALOGUE = [
     Case("P-negative", lambda: rlrates.TabularMDP(_P(p3_0_5=-0.1), MDP.R), r"negative probability P\[3, 0, 5\] = -0.1"),
     Case("P-row-sum", lambda: rlrates.TabularMDP(_P(p4_1_4=MDP.P[4, 1, 4] + 0.01), MDP.R), r"row \(s=4, a=1\) sums to 1.01"),
     Case("P-empty", lambda: rlrates.TabularMDP(np.zeros((0, 2, 0)), np.zeros((0, 2))), r"`P` has no states"),
+    Case("P-sparse-shape", lambda: rlrates.TabularMDP(_sparse_P()[:11], MDP.R), r"11 rows is not a multiple of S = 6 columns"),
+    Case("P-sparse-negative", lambda: rlrates.TabularMDP(_sparse_P(r7_2=-0.1), MDP.R),
+         r"negative probability P\[3, 1, 2\] \(row 7 of the \(S\*A, S\) array\) = -0.1"),
+    Case("P-sparse-row-sum", lambda: rlrates.TabularMDP(_sparse_P(r9_0=MDP.P[4, 1, 0] + 0.01), MDP.R), r"row \(s=4, a=1\) sums to 1.01"),
+    Case("family-sparse-flag", lambda: rlrates.gridworld(sparse="yes"), r"`sparse` must be True, False or None .* got 'yes'"),
+    Case("save-sparse", lambda: rlrates.save_mdp(rlrates.ring(5, sparse=True), "unwritten.npz"),
+         r"unwritten.npz: MDP 'ring-S5-slip0.1' is sparse, and save_mdp writes dense MDPs only"),
     Case("R-shape", lambda: rlrates.TabularMDP(MDP.P, np.zeros((6, 3))), r"`R` must have shape \(S, A\) = \(6, 2\)"),
     Case("R-nan", lambda: rlrates.TabularMDP(MDP.P, np.where(np.eye(6, 2, 1) > 0, np.nan, 0.5)), r"`R` has a non-finite entry R\[0, 1\]"),
     Case("gamma-range", lambda: rlrates.q_pi(MDP, 1.5), r"`gamma` must lie in \(0, 1\]"),
@@ -158,6 +182,7 @@ CATALOGUE = [
     Case("return-integers", _returns(lambda p: np.ones((6, 2), dtype=np.int32)), r"dtype int32; Q-values must be floating point"),
     Case("return-bad-action", _returns(lambda p: np.full(6, 5), "policy"), r"picks action 5 in state 0; valid actions are 0..1"),
     Case("return-model-rows", _returns(lambda p: np.full((6, 2, 6), 0.2), "model"), r"model's row \(s=0, a=0\) sums to 1.2"),
+    Case("return-model-sparse", _sparse_model_returns_dense, r"returned ndarray; expected a scipy.sparse \(S\*A, S\) = \(12, 6\) transition estimate"),
     Case("estimator-raises", lambda: _run(_raises), r"raised at gamma=0.5, n=256, replicate=0: KeyError: 'missing successor table'(.|\n)*_raises"),
     Case("estimator-mutates", lambda: _run(_mutates), r"raised at gamma=0.5, n=128, replicate=0: ValueError: assignment destination is read-only"),
     Case("estimator-too-slow", lambda: _run(_slow, time_limit=0.005), r"at gamma=0.5, n=128, replicate=0: the call took .* over the per-call time limit of 0.005 s"),

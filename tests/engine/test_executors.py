@@ -76,3 +76,37 @@ def test_a_dask_cluster_matches_serial(garnet: rlrates.TabularMDP, serial: rlrat
         clustered = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, seed=3, executor=executor)
     pd.testing.assert_frame_equal(_numbers(serial), _numbers(clustered), check_exact=True)
     assert clustered.status == serial.status
+
+
+class _RecordingPool(ThreadPoolExecutor):
+    """A one-thread pool that notes the size (n x replicates) of each cell in the order it is submitted."""
+
+    def __init__(self) -> None:
+        super().__init__(max_workers=1)
+        self.sizes: list[int] = []
+
+    def submit(self, fn: Any, /, *args: Any, **kwargs: Any) -> Any:
+        task = args[0]
+        self.sizes.append(task.n * (task.stop - task.start))
+        return super().submit(fn, *args, **kwargs)
+
+
+def test_a_pool_gets_the_largest_cells_first_and_the_same_table(garnet: rlrates.TabularMDP, serial: rlrates.CheckResult) -> None:
+    # longest-processing-time-first submission (Graham 1969, "Bounds on multiprocessing timing
+    # anomalies"); the table must not depend on the order the cells ran in
+    with _RecordingPool() as pool:
+        pooled = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, seed=3, executor=pool)
+    assert len(pool.sizes) > 1 and len(set(pool.sizes)) > 1
+    assert pool.sizes == sorted(pool.sizes, reverse=True)
+    pd.testing.assert_frame_equal(_numbers(serial), _numbers(pooled), check_exact=True)
+    assert pooled.status == serial.status
+
+
+def test_a_sparse_mdp_in_a_process_pool_matches_serial() -> None:
+    # the sparse model and its support kernel travel to the workers by pickle (common practice)
+    held = rlrates.ring(9, slip=0.2, sparse=True)
+    alone = rlrates.check(reference.plugin_q_pi, held, CLAIM, seed=5)
+    with ProcessPoolExecutor(max_workers=2) as pool:
+        pooled = rlrates.check(reference.plugin_q_pi, held, CLAIM, seed=5, executor=pool)
+    pd.testing.assert_frame_equal(_numbers(alone), _numbers(pooled), check_exact=True)
+    assert pooled.status == alone.status == "pass"

@@ -415,3 +415,119 @@ def test_model_distance_hand_computed() -> None:
     assert model_distance(Q, P) == pytest.approx(0.5, abs=1e-15)
     assert model_distance(P, Q) == model_distance(Q, P)
 
+
+
+# --------------------------------------------------------------------------- sparse models
+
+
+def _held_sparse(mdp: TabularMDP) -> TabularMDP:
+    from scipy import sparse
+
+    return TabularMDP(sparse.csr_array(mdp.transition_rows), mdp.R)
+
+
+def test_sparse_figure_3_2_values() -> None:
+    # Sutton & Barto (2nd ed.), Figure 3.2 again, solved from a sparse copy of the grid by sparse LU
+    grid = sutton_barto_grid()
+    with pytest.warns(RewardRangeWarning):
+        held = _held_sparse(grid)
+    values = v_pi(held, 0.9).reshape(5, 5)
+    np.testing.assert_allclose(values, FIGURE_3_2, atol=PRINTED_ATOL)
+    np.testing.assert_allclose(v_pi(held, 0.9), v_pi(grid, 0.9), rtol=0, atol=1e-12)
+
+
+@pytest.mark.parametrize(("shape", "gamma", "seed"), GARNET_CASES[:4])
+def test_sparse_solves_match_scipy_and_the_dense_solve(shape: tuple[int, int, int], gamma: float, seed: int) -> None:
+    # Independent methods: scipy.linalg.solve of the dense system (I - gamma P^pi) V = r^pi,
+    # and the LP for Q* (Puterman 1994, Section 6.9), on a sparse copy of a Garnet
+    from scipy.linalg import solve
+
+    mdp = rlrates.garnet(*shape, seed=seed)
+    held = rlrates.garnet(*shape, seed=seed, sparse=True)
+    S, A = mdp.states, mdp.actions
+    pi = np.random.default_rng(seed).dirichlet(np.ones(A), size=S)
+    P_pi = np.einsum("sa,sat->st", pi, mdp.P)
+    expected = solve(np.eye(S) - gamma * P_pi, (pi * mdp.R).sum(axis=1))
+    scale = max(1.0, 1.0 / (1.0 - gamma))
+    np.testing.assert_allclose(v_pi(held, gamma, pi), expected, rtol=0, atol=1e-10 * scale)
+    np.testing.assert_allclose(q_pi(held, gamma, pi), q_pi(mdp, gamma, pi), rtol=0, atol=1e-10 * scale)
+    result = linprog(np.ones(S), A_ub=gamma * mdp.P.reshape(S * A, S) - np.repeat(np.eye(S), A, axis=0),
+                     b_ub=-mdp.R.reshape(-1), bounds=[(None, None)] * S, method="highs")
+    q, policy = q_star(held, gamma)
+    np.testing.assert_allclose(q, mdp.R + gamma * mdp.P @ result.x, rtol=0, atol=1e-8 * scale)
+    np.testing.assert_array_equal(policy, q_star(mdp, gamma)[1])
+    assert suboptimality(held, gamma, policy) <= 1e-9 * scale
+
+
+def test_sparse_gamma_one_episodic_and_not() -> None:
+    # Sutton & Barto (2nd ed.), Example 4.1, from a sparse copy: the random policy's values at gamma = 1
+    grid = sutton_barto_small_grid()
+    with pytest.warns(RewardRangeWarning):
+        held = _held_sparse(grid)
+    np.testing.assert_allclose(v_pi(held, 1.0), v_pi(grid, 1.0), rtol=0, atol=1e-9)
+    assert v_pi(held, 1.0)[1] == pytest.approx(-14.0, abs=1e-9)
+    with pytest.raises(ValueError, match="episodic"):  # always "up" never terminates (Section 3.4)
+        v_pi(held, 1.0, np.zeros(16, dtype=np.int64))
+    with pytest.raises(ValueError, match="episodic"):  # a Garnet has no absorbing state (common practice)
+        v_pi(rlrates.garnet(10, 2, 3, seed=0, sparse=True), 1.0)
+
+
+def test_sparse_model_distance_matches_the_dense_one() -> None:
+    # max_{s,a} L1 distance (definition): same number from any mix of layouts
+    one, two = rlrates.garnet(9, 2, 3, seed=1), rlrates.garnet(9, 2, 3, seed=2)
+    expected = model_distance(one.P, two.P)
+    held_one, held_two = _held_sparse(one), _held_sparse(two)
+    assert model_distance(held_one.P, held_two.P) == pytest.approx(expected, abs=1e-15)
+    assert model_distance(held_one.P, two.P) == pytest.approx(expected, abs=1e-15)
+    assert model_distance(one.P, held_two.P) == pytest.approx(expected, abs=1e-15)
+
+
+class _DenseTwin:
+    """The dense view of a sparse batch's draw: (S, A, S) counts and the same next states."""
+
+    def __init__(self, batch: object, states: int, actions: int) -> None:
+        self.n = batch.n  # type: ignore[attr-defined]
+        self.counts = batch.counts.toarray().reshape(states, actions, states)  # type: ignore[attr-defined]
+        self.next_states = batch.next_states  # type: ignore[attr-defined]
+
+
+def test_reference_estimators_work_on_sparse_batches() -> None:
+    # the plug-in estimators on a sparse MDP's batch give what they give on the same draw held
+    # densely (definition of the plug-in estimate: the empirical model counts / n)
+    from rlrates import reference
+    from rlrates.sampling import draw
+    from rlrates.targets import solve_truth
+
+    held = rlrates.ring(7, slip=0.3, sparse=True)
+    sparse_batch = draw(held, 40, seed=5)
+    assert sparse_batch.sparse and sparse_batch.counts.shape == (21, 7)
+    dense_batch = _DenseTwin(sparse_batch, 7, 3)
+    dense_problem = solve_truth(rlrates.ring(7, slip=0.3), 0.9, "q_pi").problem()
+    sparse_problem = solve_truth(held, 0.9, "q_pi").problem()
+    for estimator in (reference.plugin_q_pi, reference.plugin_q_star):
+        np.testing.assert_allclose(estimator(sparse_batch, sparse_problem), estimator(dense_batch, dense_problem),
+                                   rtol=0, atol=1e-11)
+    np.testing.assert_array_equal(reference.plugin_policy(sparse_batch, sparse_problem),
+                                  reference.plugin_policy(dense_batch, dense_problem))
+    np.testing.assert_array_equal(reference.synchronous_q_learning(sparse_batch, sparse_problem),
+                                  reference.synchronous_q_learning(dense_batch, dense_problem))
+    model = reference.empirical_model(sparse_batch, sparse_problem)
+    np.testing.assert_allclose(model.toarray(), reference.empirical_model(dense_batch, dense_problem).reshape(21, 7),
+                               rtol=0, atol=1e-15)
+
+
+def test_the_model_target_of_a_sparse_mdp_measures_the_max_row_l1_distance() -> None:
+    # definition of the model error, max_{s,a} ||P_hat[s, a] - P[s, a]||_1, computed on dense copies
+    from scipy import sparse
+
+    from rlrates.targets import EstimateError, estimate_error, solve_truth, validate_estimate
+
+    held = rlrates.garnet(8, 2, 3, seed=3, sparse=True)
+    truth = solve_truth(held, 0.9, "model")
+    guess = sparse.csr_array(rlrates.garnet(8, 2, 3, seed=4).P.reshape(16, 8))
+    valid = validate_estimate(guess, truth)
+    dense_gap = np.abs(guess.toarray() - held.P.toarray()).sum(axis=1)
+    assert estimate_error(valid, truth, "sup") == pytest.approx(dense_gap.max(), abs=1e-15)
+    assert estimate_error(valid, truth, "mean") == pytest.approx(dense_gap.mean(), abs=1e-15)
+    with pytest.raises(EstimateError, match=r"row \(s=0, a=0\) sums to 2"):
+        validate_estimate(guess * 2.0, truth)

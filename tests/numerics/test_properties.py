@@ -120,3 +120,39 @@ def test_fitted_exponents_cover_the_truth_at_the_advertised_rate(a: float, b: fl
         covered_h += horizon.lower(0.05) <= b <= horizon.upper(0.05)
     assert covered_n / trials >= 0.82
     assert covered_h / trials >= 0.82
+
+
+# ---------------------------------------------------------------------------------------------
+# Sparse storage: the same model held as a scipy.sparse (S*A, S) array solves to the same values
+# (scipy.sparse.linalg.spsolve against numpy.linalg.solve) and samples the same draw.
+
+
+def _as_sparse(mdp: TabularMDP) -> TabularMDP:
+    from scipy import sparse
+
+    return TabularMDP(sparse.csr_array(mdp.P.reshape(mdp.states * mdp.actions, mdp.states)), mdp.R)
+
+
+@SETTINGS
+@given(mdp=mdps(), gamma=gammas, policy_seed=st.integers(0, 2**32 - 1))
+def test_sparse_storage_solves_to_the_dense_values(mdp: TabularMDP, gamma: float, policy_seed: int) -> None:
+    pi = np.random.default_rng(policy_seed).dirichlet(np.ones(mdp.actions), size=mdp.states)
+    held = _as_sparse(mdp)
+    scale = max(1.0, 1.0 / (1.0 - gamma))
+    np.testing.assert_allclose(q_pi(held, gamma, pi), q_pi(mdp, gamma, pi), rtol=0, atol=1e-10 * scale)
+    q_dense, _ = q_star(mdp, gamma)
+    q_sparse, _ = q_star(held, gamma)
+    np.testing.assert_allclose(q_sparse, q_dense, rtol=0, atol=1e-9 * scale)
+
+
+@SETTINGS
+@given(mdp=mdps(), n=st.integers(1, 60), seed=st.integers(0, 2**32 - 1))
+def test_sparse_counts_agree_with_next_states(mdp: TabularMDP, n: int, seed: int) -> None:
+    batch = draw(_as_sparse(mdp), n, seed=seed)
+    S, A = mdp.states, mdp.actions
+    counts = batch.counts.toarray()
+    assert batch.counts.shape == (S * A, S)
+    recount = (batch.next_states[..., None] == np.arange(S)).sum(axis=2).reshape(S * A, S)
+    np.testing.assert_array_equal(recount, counts)
+    np.testing.assert_array_equal(counts.sum(axis=1), n)
+    assert counts[mdp.P.reshape(S * A, S) == 0].sum() == 0

@@ -366,3 +366,125 @@ def test_block_counts_follow_the_multinomial(garnet: TabularMDP) -> None:
     stat = float((((observed - expected) ** 2)[support] / expected[support]).sum())
     dof = int(support.sum() - observed.shape[0])
     assert stats.chi2.sf(stat, dof) > 1e-3
+
+
+# --------------------------------------------------------------------------- the support draw
+
+
+def _reference_block(mdp: TabularMDP, n: int, replicates: int, seed: np.random.SeedSequence) -> tuple[np.ndarray, list[np.ndarray]]:
+    """The sampler as first written (common practice: a multinomial as a chain of conditional
+    binomials, Devroye 1986, Non-Uniform Random Variate Generation, XI.1.3): the dense kernel, its
+    support, each column's conditional probability worked out inside the loop, counts scattered
+    into a dense (replicates, S, A, S) block, and next states laid out from the dense counts."""
+    S, A = mdp.states, mdp.actions
+    flat = np.array(mdp.P.reshape(S * A, S))
+    flat /= flat.sum(axis=1, keepdims=True)
+    flat[:, -1] = np.clip(1.0 - flat[:, :-1].sum(axis=1), 0.0, None)
+    positive = flat > 0
+    width = int(positive.sum(axis=1).max())
+    support = np.argsort(positive, axis=1, kind="stable")[:, -width:]
+    probs = np.take_along_axis(flat, support, axis=1)
+    probs = probs / probs.sum(axis=1, keepdims=True)
+    probs[:, -1] = np.clip(1.0 - probs[:, :-1].sum(axis=1), 0.0, None)
+    rng = np.random.default_rng(np.random.SeedSequence(seed.entropy, spawn_key=(*seed.spawn_key, 0)))
+    left = np.full((replicates, S * A), n, dtype=np.int64)
+    drawn = np.empty((replicates, S * A, width), dtype=np.int64)
+    for j in range(width - 1):
+        before = np.cumsum(probs, axis=1) - probs
+        with np.errstate(divide="ignore", invalid="ignore"):
+            cond = np.clip(np.where(1.0 - before > 0, probs / (1.0 - before), 1.0), 0.0, 1.0)
+        drawn[:, :, j] = rng.binomial(left, cond[:, j])
+        left -= drawn[:, :, j]
+    drawn[:, :, -1] = left
+    counts = np.zeros((replicates, S * A, S), dtype=np.int64)
+    np.put_along_axis(counts, np.broadcast_to(support, drawn.shape), drawn, axis=2)
+    orders = []
+    for r in range(replicates):
+        laid_out = np.repeat(np.tile(np.arange(S), S * A), counts[r].ravel()).reshape(S * A, n)
+        child = np.random.SeedSequence(seed.entropy, spawn_key=(*seed.spawn_key, 1 + r, 1))
+        orders.append(np.random.default_rng(child).permuted(laid_out, axis=1).reshape(S, A, n))
+    return counts.reshape(replicates, S, A, S), orders
+
+
+@pytest.mark.parametrize("mdp", [rlrates.garnet(12, 3, 4, seed=7), rlrates.gridworld(), rlrates.chain(9)],
+                         ids=["garnet", "gridworld", "chain"])
+def test_block_is_bit_identical_to_the_reference_sampler(mdp: TabularMDP) -> None:
+    from rlrates.sampling import block_seed, draw_block, mdp_kernel
+
+    for master, n in ((3, 17), (11, 256)):
+        seed = block_seed(master, "identity", 0.9, n, 0, 5)
+        expected_counts, expected_orders = _reference_block(mdp, n, 5, seed)
+        batches = draw_block(mdp_kernel(mdp), n, 5, seed)
+        for r, batch in enumerate(batches):
+            np.testing.assert_array_equal(batch.counts, expected_counts[r])
+            np.testing.assert_array_equal(batch.next_states, expected_orders[r])
+
+
+def test_conditional_probabilities_are_worked_out_once_per_kernel(garnet: TabularMDP) -> None:
+    # the chain's P(successor j | not before j) is part of the kernel, built with it (common practice)
+    from rlrates.sampling import mdp_kernel
+
+    kernel = mdp_kernel(garnet)
+    assert kernel.conditional.shape == kernel.probs.shape
+    # the first column's conditional is its own probability, the last column's is 1 (it takes the rest)
+    np.testing.assert_array_equal(kernel.conditional[:, 0], kernel.probs[:, 0])
+    np.testing.assert_allclose(kernel.conditional[:, -1], 1.0, atol=1e-12)
+
+
+def test_a_block_keeps_counts_on_the_support_and_one_dense_view_at_a_time(garnet: TabularMDP) -> None:
+    # the draw is (replicates, S*A, k) with k = branching; dense views are built on reading
+    from rlrates.sampling import block_seed, draw_block, mdp_kernel
+
+    kernel = mdp_kernel(garnet)
+    drawn = kernel.sample_support(np.random.default_rng(0), 40, 3)
+    assert drawn.shape == (3, garnet.states * garnet.actions, 4)
+    np.testing.assert_array_equal(drawn.sum(axis=2), 40)
+    batches = draw_block(kernel, 40, 3, block_seed(0, "views", 0.5, 40, 0, 3))
+    first = np.array(batches[0].counts)
+    second = batches[1].counts
+    assert batches[1].counts is second  # one view kept while the same replicate is read
+    np.testing.assert_array_equal(batches[0].counts, first)  # rebuilt on demand, same draw
+    assert not np.array_equal(first, second)
+
+
+# --------------------------------------------------------------------------- sparse MDPs
+
+
+def test_a_sparse_batch_gives_read_only_sparse_counts() -> None:
+    from scipy import sparse
+
+    held = rlrates.gridworld(4, 3, sparse=True)
+    batch = draw(held, 33, seed=2)
+    counts = batch.counts
+    assert batch.sparse and sparse.issparse(counts) and counts.format == "csr"
+    assert counts.shape == (held.states * 4, held.states) and counts.dtype == np.int64
+    assert counts.has_canonical_format and (counts.data > 0).all()
+    np.testing.assert_array_equal(counts.sum(axis=1), 33)
+    with pytest.raises(ValueError, match="read-only"):
+        counts.data[0] = 0
+    # counts fall only where P is positive
+    assert counts.multiply(held.P.toarray() == 0).sum() == 0
+    assert batch.next_states.shape == (held.states, 4, 33)
+    with pytest.raises(ValueError, match="is sparse: use mdp_kernel"):
+        sampling_kernel(held)
+
+
+def test_sparse_block_counts_follow_the_multinomial() -> None:
+    # As test_block_counts_follow_the_multinomial, on a sparse grid whose rows have unequal supports
+    # (so rows are padded); chi-square of the pooled table (scipy.stats); seeded, deterministic;
+    # false-alarm rate 0.1%.
+    from rlrates.sampling import block_seed, draw_block, mdp_kernel
+
+    # a corner has 3 successors (itself and two neighbours), an edge or inner cell 4
+    held = rlrates.gridworld(4, 3, walls=(), sparse=True)
+    kernel = mdp_kernel(held)
+    assert kernel.sparse and kernel.support.shape[1] == 4
+    assert sorted(set(np.diff(held.P.indptr))) == [3, 4]
+    batches = draw_block(kernel, 50, 400, block_seed(1, "chi2-sparse", 0.5, 50, 0, 400))
+    observed = sum(b.counts.toarray() for b in batches)
+    expected = held.P.toarray() * 50 * 400
+    support = expected > 0
+    assert (observed[~support] == 0).all()
+    stat = float((((observed - expected) ** 2)[support] / expected[support]).sum())
+    dof = int(support.sum() - observed.shape[0])
+    assert stats.chi2.sf(stat, dof) > 1e-3
