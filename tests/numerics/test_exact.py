@@ -502,8 +502,10 @@ def test_reference_estimators_work_on_sparse_batches() -> None:
     sparse_batch = draw(held, 40, seed=5)
     assert sparse_batch.sparse and sparse_batch.counts.shape == (21, 7)
     dense_batch = _DenseTwin(sparse_batch, 7, 3)
-    dense_problem = solve_truth(rlrates.ring(7, slip=0.3), 0.9, "q_pi").problem()
-    sparse_problem = solve_truth(held, 0.9, "q_pi").problem()
+    # one policy for both: the default policy is seeded by the fingerprint, which differs between the twins
+    policy = np.random.default_rng(0).dirichlet(np.ones(3), size=7)
+    dense_problem = solve_truth(rlrates.ring(7, slip=0.3), 0.9, "q_pi", policy).problem()
+    sparse_problem = solve_truth(held, 0.9, "q_pi", policy).problem()
     for estimator in (reference.plugin_q_pi, reference.plugin_q_star):
         np.testing.assert_allclose(estimator(sparse_batch, sparse_problem), estimator(dense_batch, dense_problem),
                                    rtol=0, atol=1e-11)
