@@ -157,7 +157,8 @@ def check(
     ----------
     estimator : callable
         ``estimator(batch, problem)``. ``batch`` is an :class:`rlrates.Batch`
-        (``n``, ``counts`` (S, A, S), ``next_states`` (S, A, n)); ``problem`` an
+        (``n``, ``counts`` (S, A, S), or a scipy.sparse (S*A, S) array for a
+        sparse MDP, ``next_states`` (S, A, n)); ``problem`` an
         :class:`rlrates.Problem` (``states``, ``actions``, ``rewards``,
         ``gamma``, ``policy``, ``target``). It returns an (S, A) float array for
         "q_pi" and "q_star", (S,) actions or (S, A) probabilities for "policy",
