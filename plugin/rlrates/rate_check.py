@@ -25,6 +25,7 @@ import pandas as pd
 
 from .claims import Claim
 from .escalation import Escalation
+from .estimator_origin import estimator_expression, estimator_origin
 from .families import rebuild_call
 from .fitting import summarise_cells
 from .mdp import TabularMDP
@@ -130,6 +131,7 @@ def check(
     context: str = "",
     reproducer: str | None = None,
     time_limit: float | None = None,
+    label: str | None = None,
 ) -> CheckResult:
     """Check that ``estimator``'s error on ``mdp`` falls and grows as ``claim`` says.
 
@@ -175,6 +177,9 @@ def check(
         Replaces the Python call shown at the end of the message.
     time_limit : float, optional
         Seconds; a slower estimator call turns the result into "error".
+    label : str, optional
+        A short name for the check in reports (index rows, figure files); the
+        pytest layer defaults it to the test function's name.
 
     Returns
     -------
@@ -202,6 +207,8 @@ def check(
     """
     call = _validate(estimator, claim, target, norm, seed, executor, time_limit,
                      resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates))
+    if label is not None and (not isinstance(label, str) or not label.strip()):
+        raise TypeError(f"`label` must be a non-empty string, got {label!r}")
     name, metadata = _describe_source(mdp)
     _warn_design(call, n_grid is not None)
     started = time.perf_counter()
@@ -214,7 +221,7 @@ def check(
         reproducer = _reproducer(call, rebuild_call(metadata) or name, policy is not None, extras)
     run = RunInfo(passes.passes, time.perf_counter() - started,
                   float(passes.table["seconds"].sum()) if len(passes.table) else 0.0, context, passes.blocks,
-                  reproducer)
+                  reproducer, estimator_origin(estimator), label or "")
     description = MDPDescription(name, metadata, {g: t.mdp.fingerprint for g, t in truths.items()},
                                  {g: t.scale for g, t in truths.items()})
     result = _assemble(call, passes, run, description)
@@ -296,9 +303,11 @@ def _run_passes(plan: SweepPlan, executor: Executor | None, call: _Call, truths:
 
 
 def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str, Any]) -> str:
-    """The Python call that reproduces the check."""
+    """The Python that reproduces the check: ``import rlrates; import module; rlrates.check(module.name, ...)``."""
+    imported, name = estimator_expression(call.estimator)
     return (
-        f"rlrates.check({_estimator_name(call.estimator)}, {mdp_call}, {call.claim.as_call()}, "
+        "import rlrates; " + (f"{imported}; " if imported else "")
+        + f"rlrates.check({name}, {mdp_call}, {call.claim.as_call()}, "
         f"target={call.target!r}, " + ("policy=<the policy given>, " if policy_given else "")
         + f"budget={call.design.name!r}, seed={call.seed}"
         + "".join(f", {key}={value!r}" for key, value in extras.items() if value is not None)

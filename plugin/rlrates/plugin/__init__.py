@@ -108,7 +108,9 @@ def pytest_terminal_summary(terminalreporter: Any, exitstatus: int, config: pyte
     if lines is None:
         return
     settings = session.settings
-    terminalreporter.write_sep("=", f"rlrates checks: budget {settings.budget}, master seed {settings.seed}")
+    terminalreporter.write_sep(
+        "=", f"rate checks (rlrates), budget {settings.budget}, master seed {settings.seed}"
+    )
     for line in lines:
         terminalreporter.write_line(line)
 

@@ -1,14 +1,24 @@
-"""The session index of a report directory: one row per check, as Markdown and as a LaTeX tabular.
+"""The session index of a report directory: one row per check, as Markdown and as LaTeX.
 
 The text is a pure function of the parsed ``check.json`` records (and the
 folders they sit in, relative to the index). No timestamps, no machine-dependent
 text and fixed float formats, so rebuilding an index from the same records gives
 the same bytes. :func:`write_index` reads every record under a directory and
 writes ``index.md`` and ``index.tex`` next to the check folders.
+
+``index.tex`` is made to drop into a paper: each row is named by the check's
+short label (the full test id is kept in a comment), the table is one column
+wide by default (``table``; ``span="page"`` gives ``table*``), its columns can
+be chosen (:data:`LATEX_COLUMNS`), it has a caption and a ``\\label``, and it is
+split into several floats of at most :data:`ROWS_PER_FLOAT` rows so that no
+float is taller than a page (longtable is not used: it refuses two-column mode).
+Every row states the limit tested (claim plus tolerance) and the levels of the
+bounds, in the cell or, when all rows share them, in the caption.
 """
 
 from __future__ import annotations
 
+import html
 import re
 from collections import Counter
 from collections.abc import Iterable, Mapping, Sequence
@@ -16,11 +26,16 @@ from pathlib import Path
 from typing import Any
 from urllib.parse import quote
 
+from ..fit_words import fit_words, percent, signed
+from ..result import Fit
 from ..vocabulary import STATUSES, Factor
 from .files import FIGURE_FILES, INDEX_FILES, RECORD_FILE, find_checks, write_text
-from .schema import read_record, record_fit
+from .schema import read_record, record_fit, record_label
 
-__all__ = ["index_markdown", "index_latex", "latex_escape", "index_entries", "write_index_files", "write_index"]
+__all__ = [
+    "LATEX_COLUMNS", "DEFAULT_LATEX_COLUMNS", "ROWS_PER_FLOAT", "index_markdown", "index_latex", "latex_escape",
+    "index_entries", "write_index_files", "write_index", "verdict_words",
+]
 
 Entry = tuple[str, Mapping[str, Any]]  # (folder relative to the index, parsed check.json)
 
@@ -31,7 +46,29 @@ _LATEX_SPECIAL = {
 }
 _LATEX_PATTERN = re.compile("|".join(re.escape(c) for c in _LATEX_SPECIAL))
 _LATEX_TARGETS = {"q_pi": r"$Q^{\pi}$", "q_star": r"$Q^{*}$", "policy": "policy", "model": "model"}
-_BOUNDS_NOTE = "exponent [fire-side lower bound, pass-side upper bound]"
+
+#: The columns ``index.tex`` can show: key -> (heading, relative width).
+LATEX_COLUMNS: dict[str, tuple[str, float]] = {
+    "check": ("Check", 1.1),
+    "test": ("Test id", 2.0),
+    "target": ("Target", 0.6),
+    "mdp": ("MDP", 1.0),
+    "claim": ("Claim", 0.8),
+    "n": (r"$n$-exponent", 1.4),
+    "horizon": (r"$H$-exponent", 1.4),
+    "verdict": ("Verdict", 1.0),
+}
+#: The default columns (``horizon`` is left out when no check claims an H-exponent).
+DEFAULT_LATEX_COLUMNS = ("check", "mdp", "n", "horizon", "verdict")
+#: At most this many rows per float (fewer when rows wrap onto several lines).
+ROWS_PER_FLOAT = 30
+# Float height allowance, for a column of a two-column A4 or letter page with 2 cm margins (the
+# narrowest case, so rows wrap most): text lines of \footnotesize (9.5 pt apart) plus 3 pt per row,
+# at most _FLOAT_POINTS, leaving room for the caption and the heading. Characters per line are
+# estimated at _CHAR_POINTS each in a column _COLUMN_POINTS wide.
+_FLOAT_POINTS = 540.0
+_COLUMN_POINTS = {"column": 236.0, "page": 483.0}
+_CHAR_POINTS = 4.4
 
 
 def latex_escape(text: str) -> str:
@@ -39,29 +76,15 @@ def latex_escape(text: str) -> str:
     return _LATEX_PATTERN.sub(lambda match: _LATEX_SPECIAL[match.group()], text)
 
 
-def _numbers(record: Mapping[str, Any], factor: Factor) -> tuple[float, float, float] | None | str:
-    """(exponent, low, high); ``None`` when not claimed; a reason when claimed but not measured."""
-    if record["claim"][factor] is None:
-        return None
-    fit = record_fit(record, factor)
-    if fit is None:
-        return "estimator error" if record["status"] == "error" else "no fit"
-    if not fit.measured:
-        return str(fit.verdict)
-    return fit.exponent, fit.low, fit.high
-
-
-def _verdict(record: Mapping[str, Any]) -> str:
-    word = str(record["status"])
-    if word == "fail" and record["fired"]:
-        word += f" ({', '.join(map(str, record['fired']))})"
-    return word
+def _breakable(text: str) -> str:
+    """Escaped text that may break after ``_``, ``-``, ``/``, ``,`` and ``.``, and before ``[`` (names have no spaces)."""
+    escaped = re.sub(r"(\\_|-|/|,|\.)", lambda m: m.group(1) + r"\allowbreak{}", latex_escape(text))
+    return escaped.replace("[", r"\allowbreak{}[")
 
 
 def _fixed(value: float) -> str:
     """``+0.52`` / ``-0.47``: two decimals and a sign; a value that rounds to zero is ``+0.00``."""
-    text = f"{value:+.2f}"
-    return "+0.00" if text == "-0.00" else text
+    return signed(value)
 
 
 def _tally(entries: Sequence[Entry]) -> str:
@@ -70,32 +93,39 @@ def _tally(entries: Sequence[Entry]) -> str:
     return f"{len(entries)} check(s): {', '.join(parts)}"
 
 
-# Per dialect: not claimed, exact, not fitted (with the reason), measured (exponent, low, high).
-_EXPONENT_WORDS = {
-    "markdown": ("not claimed", "exact (zero error)", "not fitted ({})", "{} [{}, {}]"),
-    "latex": ("---", "exact", "n/a ({})", "${}$ [${}$, ${}$]"),
-}
+def _expected_fail(record: Mapping[str, Any]) -> bool:
+    expected = record.get("expected")
+    return isinstance(expected, Mapping) and expected.get("status") == "fail"
 
 
-def _exponent_cell(record: Mapping[str, Any], factor: Factor, dialect: str) -> str:
-    """The exponent column of one row: the fitted exponent and its bounds, or why there is none."""
-    not_claimed, exact, not_fitted, measured = _EXPONENT_WORDS[dialect]
-    numbers = _numbers(record, factor)
-    if numbers is None:
-        return not_claimed
-    if numbers == "exact":
-        return exact
-    if isinstance(numbers, str):
-        return not_fitted.format(latex_escape(numbers) if dialect == "latex" else numbers)
-    return measured.format(*map(_fixed, numbers))
+def verdict_words(record: Mapping[str, Any]) -> str:
+    """The verdict of a record in words: ``fail (floor)``, or ``expected failure (floor)`` for an xfail test."""
+    status = str(record["status"])
+    fired = f" ({', '.join(map(str, record['fired']))})" if status == "fail" and record["fired"] else ""
+    if _expected_fail(record):
+        if status == "fail":
+            return f"expected failure{fired}"
+        if status == "pass":
+            return "pass, but expected to fail"
+    return status + fired
+
+
+def _fit_or_reason(record: Mapping[str, Any], factor: Factor) -> Fit | str | None:
+    """The fit; ``None`` when not claimed; a reason when claimed but not fitted."""
+    if record["claim"][factor] is None:
+        return None
+    fit = record_fit(record, factor)
+    if fit is None:
+        return "estimator error" if record["status"] == "error" else "no fit"
+    return fit
 
 
 # --------------------------------------------------------------------------- Markdown
 
 
 def _md_cell(text: str) -> str:
-    """Plain text in a table cell: Markdown's backslash and the cell separator escaped, one line."""
-    return text.replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
+    """Plain text in a table cell: HTML, Markdown's backslash and the cell separator escaped, one line."""
+    return html.escape(text, quote=False).replace("\\", "\\\\").replace("|", "\\|").replace("\n", " ")
 
 
 def _md_code(text: str) -> str:
@@ -111,28 +141,40 @@ def _md_claim(claim: Mapping[str, Any]) -> str:
     return " ".join(parts)
 
 
+def _md_exponent(record: Mapping[str, Any], factor: Factor) -> str:
+    found = _fit_or_reason(record, factor)
+    if found is None:
+        return "not claimed"
+    if isinstance(found, str):
+        return f"not fitted ({found})"
+    return _md_cell(fit_words(found))
+
+
 def index_markdown(entries: Sequence[Entry]) -> str:
     """A Markdown page: one table row per check, in the order given, with links into each folder."""
     lines = [
         "# rlrates checks",
         "",
-        f"{_tally(entries)}. Exponents: {_BOUNDS_NOTE}; each folder's check.json has the levels and full provenance.",
+        f"{_tally(entries)}. Each exponent cell gives the fit's verdict, the fitted exponent with its one-sided "
+        "bounds and their levels, and the limit tested (the claim plus its tolerance); each folder's check.json "
+        "has the full provenance.",
         "",
-        "| test | target | MDP | n-exponent | H-exponent | claim | verdict | files |",
-        "|---|---|---|---|---|---|---|---|",
+        "| check | test | target | MDP | n-exponent | H-exponent | claim | verdict | files |",
+        "|---|---|---|---|---|---|---|---|---|",
     ]
     png, pdf = FIGURE_FILES
     for folder, record in entries:
         link = quote(folder)
         files = f"[figure]({link}/{png}) · [pdf]({link}/{pdf}) · [data]({link}/{RECORD_FILE})"
         cells = [
+            _md_cell(record_label(record)),
             _md_code(str(record["test_id"])),
             _md_cell(str(record["target"])),
             _md_cell(str(record["mdp"]["name"])),
-            _exponent_cell(record, "n", "markdown"),
-            _exponent_cell(record, "horizon", "markdown"),
+            _md_exponent(record, "n"),
+            _md_exponent(record, "horizon"),
             _md_cell(_md_claim(record["claim"])),
-            _md_cell(_verdict(record)),
+            _md_cell(verdict_words(record)),
             files,
         ]
         lines.append("| " + " | ".join(cells) + " |")
@@ -147,29 +189,153 @@ def _tex_claim(claim: Mapping[str, Any]) -> str:
     return "$" + " ".join(parts) + "$"
 
 
-def index_latex(entries: Sequence[Entry]) -> str:
-    """A booktabs ``tabular`` (no preamble) to ``\\input`` inside a table environment."""
-    lines = [
-        f"% rlrates checks, {_tally(entries)}. Needs \\usepackage{{booktabs}}; \\input this file inside a table.",
-        f"% Exponents: {_BOUNDS_NOTE}.",
-        r"\begin{tabular}{@{}lllllll@{}}",
-        r"\toprule",
-        r"Test & Target & MDP & $n$-exponent & $H$-exponent & Claim & Verdict \\",
-        r"\midrule",
-    ]
-    for _, record in entries:
+def _tex_number(value: float) -> str:
+    return "$" + _fixed(value).replace("+", "{+}") + "$"
+
+
+def _levels(fit: Fit) -> tuple[float, float]:
+    return (round(fit.low_level, 6), round(fit.high_level, 6))
+
+
+def _shared_levels(entries: Sequence[Entry]) -> tuple[float, float] | None:
+    """The bounds' levels when every measured fit of every row has the same ones, else ``None``."""
+    fits = [record_fit(record, factor) for _, record in entries for factor in ("n", "horizon")]
+    levels = {_levels(fit) for fit in fits if fit is not None and fit.measured}
+    return next(iter(levels)) if len(levels) == 1 else None
+
+
+def _tex_exponent(record: Mapping[str, Any], factor: Factor, shared: tuple[float, float] | None) -> str:
+    """Fitted exponent and bounds, then the tested limit (and the levels when rows differ in them)."""
+    found = _fit_or_reason(record, factor)
+    if found is None:
+        return "---"
+    if isinstance(found, str):
+        return f"n/a ({latex_escape(found)})"
+    limit = r"\mbox{limit " + _tex_number(found.limit) + "}"
+    if found.verdict == "exact":
+        return r"exact (zero error)\newline " + limit
+    if not found.measured:
+        return r"not measurable\newline " + limit
+    bounds = r"\mbox{[" + _tex_number(found.low) + r",\," + _tex_number(found.high) + "]}"
+    levels = "" if shared == _levels(found) else (
+        r" \mbox{at " + latex_escape(f"{percent(found.low_level)}/{percent(found.high_level)}") + "}")
+    return _tex_number(found.exponent) + " " + bounds + levels + r"\newline " + limit
+
+
+def _short_label(record: Mapping[str, Any]) -> str:
+    """The label without a trailing ``[MDP name]`` (the MDP has its own column)."""
+    label, suffix = record_label(record), f"[{record['mdp']['name']}]"
+    return label[: -len(suffix)] if label.endswith(suffix) and len(label) > len(suffix) else label
+
+
+def _tex_cell(key: str, record: Mapping[str, Any], shared: tuple[float, float] | None) -> str:
+    if key == "check":
+        return _breakable(_short_label(record))
+    if key == "test":
+        return r"\texttt{" + _breakable(str(record["test_id"])) + "}"
+    if key == "target":
         target = str(record["target"])
-        cells = [
-            r"\texttt{" + latex_escape(str(record["test_id"])) + "}",
-            _LATEX_TARGETS.get(target, latex_escape(target)),
-            latex_escape(str(record["mdp"]["name"])),
-            _exponent_cell(record, "n", "latex"),
-            _exponent_cell(record, "horizon", "latex"),
-            _tex_claim(record["claim"]),
-            latex_escape(_verdict(record)),
+        return _LATEX_TARGETS.get(target, latex_escape(target))
+    if key == "mdp":
+        return _breakable(str(record["mdp"]["name"]))
+    if key == "claim":
+        return _tex_claim(record["claim"])
+    if key in ("n", "horizon"):
+        return _tex_exponent(record, key, shared)  # type: ignore[arg-type]
+    return latex_escape(verdict_words(record))
+
+
+def _columns(entries: Sequence[Entry], columns: Sequence[str] | None) -> tuple[str, ...]:
+    if columns is None:
+        any_h = any(record["claim"]["horizon"] is not None for _, record in entries)
+        return tuple(c for c in DEFAULT_LATEX_COLUMNS if c != "horizon" or any_h)
+    chosen = tuple(columns)
+    unknown = [c for c in chosen if c not in LATEX_COLUMNS]
+    if unknown or not chosen:
+        raise ValueError(
+            f"index columns {', '.join(map(repr, unknown)) or '(none)'} unknown; choose from {', '.join(LATEX_COLUMNS)}"
+        )
+    return chosen
+
+
+def _caption(entries: Sequence[Entry], shared: tuple[float, float] | None, part: int, parts: int) -> str:
+    levels = (f"lower (fire-side) bound at {percent(shared[0])}, upper (pass-side) bound at {percent(shared[1])}"
+              if shared else "lower (fire-side) and upper (pass-side) bounds at the levels given")
+    text = (f"Rate checks ({_tally(entries)}). Exponent cells: fitted exponent [{levels}]; "
+            "limit: the exponent tested, the claim plus its tolerance.")
+    if part:
+        text = f"Rate checks, continued ({part + 1} of {parts})."
+    return r"\caption{" + latex_escape(text) + "}"
+
+
+def _row_lines(record: Mapping[str, Any], keys: Sequence[str], widths: Sequence[float], points: float) -> int:
+    """Estimated text lines of one row: its tallest cell, the names wrapping at the column width."""
+    texts = {"check": _short_label(record), "test": str(record["test_id"]), "mdp": str(record["mdp"]["name"]),
+             "verdict": verdict_words(record)}
+    lines = 1
+    for key, width in zip(keys, widths):
+        if key in ("n", "horizon"):
+            lines = max(lines, 3)
+        elif key in texts:
+            per_line = max(1, int((width * points - 6.0) / _CHAR_POINTS))
+            lines = max(lines, -(-len(texts[key]) // per_line))
+    return lines
+
+
+def _chunks(entries: Sequence[Entry], keys: Sequence[str], widths: Sequence[float], span: str) -> list[list[Entry]]:
+    """The rows split into floats that each fit a page (see _FLOAT_POINTS)."""
+    chunks: list[list[Entry]] = [[]]
+    height = 0.0
+    for entry in entries:
+        row = 9.5 * _row_lines(entry[1], keys, widths, _COLUMN_POINTS[span]) + 3.0
+        if chunks[-1] and (height + row > _FLOAT_POINTS or len(chunks[-1]) == ROWS_PER_FLOAT):
+            chunks.append([])
+            height = 0.0
+        chunks[-1].append(entry)
+        height += row
+    return chunks
+
+
+def index_latex(entries: Sequence[Entry], columns: Sequence[str] | None = None, span: str = "column",
+                label: str = "tab:rlrates") -> str:
+    """LaTeX floats (no preamble) to ``\\input``: booktabs and array, one column wide unless ``span="page"``.
+
+    ``columns`` picks and orders the columns (keys of :data:`LATEX_COLUMNS`);
+    ``label`` is the ``\\label`` of the first float. Raises ``ValueError`` for
+    an unknown column or span.
+    """
+    if span not in ("column", "page"):
+        raise ValueError(f"index span {span!r} must be 'column' or 'page'")
+    keys = _columns(entries, columns)
+    shared = _shared_levels(entries)
+    total = sum(LATEX_COLUMNS[key][1] for key in keys)
+    widths = [LATEX_COLUMNS[key][1] / total for key in keys]
+    spec = "".join(
+        r">{\raggedright\arraybackslash\hspace{0pt}}p{\dimexpr" + f"{width:.3f}"
+        + r"\linewidth-2\tabcolsep\relax}" for width in widths)
+    environment = "table" if span == "column" else "table*"
+    lines = [
+        f"% rlrates checks, {_tally(entries)}. Needs \\usepackage{{booktabs,array}}.",
+        "% Rows are named by each check's label; the full test ids:",
+        *(f"%   {record_label(r)}: {r['test_id']}".replace("\n", " ") for _, r in entries),
+    ]
+    chunks = _chunks(entries, keys, widths, span)
+    for part, chunk in enumerate(chunks):
+        lines += [
+            f"\\begin{{{environment}}}[tbp]",
+            r"\centering\footnotesize\setlength{\tabcolsep}{3pt}",
+            _caption(entries, shared, part, len(chunks)),
         ]
-        lines.append(" & ".join(cells) + r" \\")
-    lines += [r"\bottomrule", r"\end{tabular}"]
+        if part == 0:
+            lines.append(f"\\label{{{latex_escape(label)}}}")
+        lines += [
+            r"\begin{tabular}{@{}" + spec + "@{}}",
+            r"\toprule",
+            " & ".join(LATEX_COLUMNS[key][0] for key in keys) + r" \\",
+            r"\midrule",
+        ]
+        lines += [" & ".join(_tex_cell(key, record, shared) for key in keys) + r" \\" for _, record in chunk]
+        lines += [r"\bottomrule", r"\end{tabular}", f"\\end{{{environment}}}"]
     return "\n".join(lines) + "\n"
 
 
@@ -182,14 +348,15 @@ def index_entries(directory: Path, records: Iterable[tuple[Path, Mapping[str, An
     return sorted(entries, key=lambda entry: (str(entry[1]["test_id"]), entry[0]))
 
 
-def write_index_files(directory: Path, entries: Sequence[Entry]) -> list[Path]:
-    """Write ``index.md`` and ``index.tex`` of ``entries`` into ``directory``."""
+def write_index_files(directory: Path, entries: Sequence[Entry], columns: Sequence[str] | None = None,
+                      span: str = "column") -> list[Path]:
+    """Write ``index.md`` and ``index.tex`` of ``entries`` into ``directory`` (``columns``, ``span``: see :func:`index_latex`)."""
     markdown, latex = INDEX_FILES
-    return [write_text(directory / markdown, index_markdown(entries)),
-            write_text(directory / latex, index_latex(entries))]
+    tex = index_latex(entries, columns, span)  # refuses bad columns before anything is written
+    return [write_text(directory / markdown, index_markdown(entries)), write_text(directory / latex, tex)]
 
 
-def write_index(directory: Path | str) -> list[Path]:
+def write_index(directory: Path | str, columns: Sequence[str] | None = None, span: str = "column") -> list[Path]:
     """Write ``index.md`` and ``index.tex`` from every ``check.json`` under ``directory``.
 
     Returns the files written; ``[]`` (and nothing written) when there is no check.
@@ -198,4 +365,5 @@ def write_index(directory: Path | str) -> list[Path]:
     folders = find_checks(root)
     if not folders:
         return []
-    return write_index_files(root, index_entries(root, ((f, read_record(f / RECORD_FILE)) for f in folders)))
+    entries = index_entries(root, ((f, read_record(f / RECORD_FILE)) for f in folders))
+    return write_index_files(root, entries, columns, span)

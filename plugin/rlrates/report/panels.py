@@ -23,6 +23,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
+from ..fit_words import percent
 from ..vocabulary import Factor
 from .axes import NOTE_COLOUR, empty_panel, finish_log_axes
 from .figure_data import discount_slopes, horizon_points
@@ -78,9 +79,13 @@ def _title(record: Mapping[str, Any], factor: Factor, label: str) -> str:
     fit = record_fit(record, factor)
     if fit is None:
         return f"no {factor} claim"
+    claimed = f"{fit.claimed:+g}".replace("-", "\u2212")
+    limit = f"tested limit {_signed(fit.limit)} = claim {claimed} + {fit.tolerance:g}"
     if not fit.measured:
-        return f"{label}-exponent not measurable, {fit.verdict}"
-    return f"{label}-exponent {_signed(fit.exponent)} [{_signed(fit.low)}, {_signed(fit.high)}], {fit.verdict}"
+        return f"{label}-exponent not measurable: {fit.verdict}\n{limit}"
+    levels = f"bounds at {percent(fit.low_level)} / {percent(fit.high_level)}"
+    return (f"{label}-exponent {_signed(fit.exponent)} [{_signed(fit.low)}, {_signed(fit.high)}]\n"
+            f"{levels}\n{limit}: {fit.verdict}")
 
 
 def _open_label(rows: pd.DataFrame) -> str:
