@@ -56,10 +56,10 @@ def import_problem(estimator: Any) -> str | None:
     if isinstance(estimator, functools.partial):
         return "it is a functools.partial; name the function and its arguments in the reproducer yourself"
     module, qualname = _names(estimator)
-    if "<locals>" in qualname:
-        return f"`{qualname}` is defined inside a function; define it at module level to rerun the check from Python"
     if "<lambda>" in qualname:
         return "it is a lambda; give it a name at module level to rerun the check from Python"
+    if "<locals>" in qualname:
+        return f"`{qualname}` is defined inside a function; define it at module level to rerun the check from Python"
     if not module or module == "__main__":
         return f"it is defined in the script that ran ({module or 'no module'}), which another process cannot import"
     if not hasattr(estimator, "__qualname__"):

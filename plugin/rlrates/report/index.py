@@ -223,9 +223,12 @@ def _tex_exponent(record: Mapping[str, Any], factor: Factor, shared: tuple[float
 
 
 def _short_label(record: Mapping[str, Any]) -> str:
-    """The label without a trailing ``[MDP name]`` (the MDP has its own column)."""
-    label, suffix = record_label(record), f"[{record['mdp']['name']}]"
-    return label[: -len(suffix)] if label.endswith(suffix) and len(label) > len(suffix) else label
+    """The label without a trailing ``[id]`` that names the MDP (it has its own column)."""
+    label, mdp = record_label(record), str(record["mdp"]["name"])
+    head, bracket, param = label[:-1].rpartition("[") if label.endswith("]") else ("", "", "")
+    if bracket and head and param and (mdp == param or mdp.startswith(param + "-")):
+        return head
+    return label
 
 
 def _tex_cell(key: str, record: Mapping[str, Any], shared: tuple[float, float] | None) -> str:
