@@ -97,10 +97,8 @@ def _top_packages(module: types.ModuleType) -> set[str]:
     """Top-level package names that ``module``'s globals show it imported (modules, and objects from modules)."""
     found = set()
     for value in vars(module).values():
-        if isinstance(value, types.ModuleType):
-            name = value.__name__
-        else:
-            name = getattr(value, "__module__", None) if callable(value) else None
+        name: Any = value.__name__ if isinstance(value, types.ModuleType) else (
+            getattr(value, "__module__", None) if callable(value) else None)
         if isinstance(name, str) and name:
             found.add(name.split(".")[0])
     return found

@@ -217,3 +217,48 @@ def test_bad_figure_width_is_refused_by_name(bad: str) -> None:
 
     with pytest.raises(ValueError, match=f"figure width '{bad}' must be"):
         figure_width(bad)
+
+
+def test_an_exact_check_draws_no_line_through_rounding_noise() -> None:
+    """Cells whose error vanished (zero) carry rounding noise of 1e-16: no points, no fitted or claimed line."""
+    table = power_law_table()
+    table["error"] = 1e-16 * (1 + table["replicate"])
+    record = power_law_record()
+    record["cells"] = [dict(cell, zero=True, usable=True, fitted=False, left_out="zero error") for cell in record["cells"]]
+    record["fits"] = [Fit("n", exponent=float("nan"), se=float("nan"), low=float("nan"), high=float("nan"),
+                          low_level=0.99, high_level=0.95, claimed=-0.5, tolerance=0.15, detectable=float("nan"),
+                          verdict="exact").to_dict()]
+    figure = build_figure(table, record)
+    assert figure is not None
+    assert all(len(line.get_xdata()) == 0 for ax in figure.axes for line in ax.get_lines())
+    assert "every mean error is zero: exact here" in [t.get_text() for ax in figure.axes for t in ax.texts]
+    labels = legend_texts(figure)
+    assert "$\\gamma$=0.5, H=2: no point drawn (zero error)" in labels
+    assert not any("claimed" in label or "slope" in label for label in labels)
+
+
+def test_no_slopes_in_the_legend_when_the_n_exponent_is_not_measurable() -> None:
+    record = power_law_record()
+    record["fits"] = [Fit("n", exponent=float("nan"), se=float("nan"), low=float("nan"), high=float("nan"),
+                          low_level=0.99, high_level=0.95, claimed=-0.5, tolerance=0.15, detectable=float("nan"),
+                          verdict="unclear").to_dict()]
+    figure = build_figure(power_law_table(), record)
+    assert figure is not None
+    assert figure.axes[0].get_title(loc="left").startswith("(a) n-exponent not measurable")
+    labels = legend_texts(figure)
+    assert "$\\gamma$=0.5, H=2" in labels and "$\\gamma$=0.9, H=10" in labels
+    assert not any("n-slope" in label for label in labels)
+
+
+def test_every_power_of_two_of_a_long_grid_is_labelled() -> None:
+    n = np.repeat(2 ** np.arange(6, 14), 2)
+    table = pd.DataFrame({"gamma": 0.5, "H": 2.0, "n": n, "replicate": np.tile([0, 1], 8),
+                          "error": 3.0 * n ** -0.5, "seconds": 0.0})
+    record = power_law_record()
+    record["cells"] = [mark(0.5, int(v)) for v in 2 ** np.arange(6, 14)]
+    record["slopes"] = record["slopes"][:1]
+    figure = build_figure(table, record, "column")
+    assert figure is not None
+    figure.canvas.draw()
+    labels = [t.get_text() for t in figure.axes[0].get_xticklabels()]
+    assert labels == [f"$2^{{{k}}}$" for k in range(6, 14)]

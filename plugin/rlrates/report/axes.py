@@ -35,11 +35,23 @@ def _tick_text(value: float) -> str:
     return str(int(value)) if float(value).is_integer() else f"{value:.3g}"
 
 
+def _powers_of_two(values: np.ndarray) -> bool:
+    exponents = np.log2(values)
+    return bool(np.all(values > 0) and np.allclose(exponents, np.round(exponents)))
+
+
 def _label_ticks(axis: Any, values: np.ndarray, ticker: ModuleType, most: int = 6) -> None:
-    """Ticks at the data's own values, labelled as plain numbers (every other one when crowded)."""
+    """Ticks at the data's own values, labelled as plain numbers.
+
+    When crowded, powers of two are all labelled in the short form $2^{k}$; other values
+    are labelled every other one.
+    """
     values = np.unique(values)
-    step = math.ceil(len(values) / most)
-    labels = [_tick_text(v) if i % step == 0 else "" for i, v in enumerate(values)]
+    if len(values) > most and _powers_of_two(values):
+        labels = [f"$2^{{{int(round(math.log2(v)))}}}$" for v in values]
+    else:
+        step = math.ceil(len(values) / most)
+        labels = [_tick_text(v) if i % step == 0 else "" for i, v in enumerate(values)]
     axis.set_major_locator(ticker.FixedLocator(values))
     axis.set_major_formatter(ticker.FixedFormatter(labels))
     axis.set_minor_locator(ticker.NullLocator())
