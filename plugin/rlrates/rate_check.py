@@ -209,6 +209,7 @@ def check(
                      resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates))
     if label is not None and (not isinstance(label, str) or not label.strip()):
         raise TypeError(f"`label` must be a non-empty string, got {label!r}")
+    call = _model_over_n_only(call, mdp, gammas is not None)
     name, metadata = _describe_source(mdp)
     _warn_design(call, n_grid is not None)
     started = time.perf_counter()
@@ -245,6 +246,17 @@ def _validate(estimator: object, claim: object, target: object, norm: object, se
         raise ValueError("a `horizon` claim needs at least two discounts in `gammas` to fit an H-exponent")
     return _Call(estimator, claim, validate_target(target), validate_norm(norm), _validate_seed(seed), design,
                  None if time_limit is None else float(time_limit))
+
+
+def _model_over_n_only(call: _Call, mdp: MDPSource, own_gammas: bool) -> _Call:
+    """A model's error does not depend on the discount: sweep one MDP over n only (the smallest discount).
+
+    Kept as asked when the caller gave ``gammas``, claims an H-exponent, or passes a
+    gamma-indexed family (whose model changes with the discount).
+    """
+    if call.target != "model" or own_gammas or call.claim.horizon is not None or not isinstance(mdp, TabularMDP):
+        return call
+    return dataclasses.replace(call, design=dataclasses.replace(call.design, gammas=call.design.gammas[:1]))
 
 
 def _warn_design(call: _Call, own_grid: bool) -> None:
