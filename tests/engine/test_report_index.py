@@ -244,3 +244,28 @@ def test_cli_reports_a_corrupt_folder_in_one_line(tables_only: Path) -> None:
 def test_cli_missing_directory(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["report", str(tmp_path / "nowhere")]) == 2
     assert capsys.readouterr().err.strip() == f"rlrates report: error: {tmp_path / 'nowhere'}: not a directory"
+
+
+def test_cli_redraws_at_column_width_with_chosen_columns(copy: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    """``--figure-width column`` gives figures at most 3.5 in wide (issue 13's bar); --columns reaches index.tex."""
+    from matplotlib.image import imread
+
+    assert main(["report", str(copy), "--figure-width", "column", "--columns", "check,claim,verdict",
+                 "--table-span", "page"]) == 0
+    for png in copy.rglob("figure.png"):
+        assert imread(png).shape[1] / 200 <= 3.5  # pixels over the report's 200 dpi
+    tex = (copy / "index.tex").read_text(encoding="utf-8")
+    assert r"\begin{table*}[tbp]" in tex and r"Check & Claim & Verdict \\" in tex
+    assert main(["report", str(copy), "--columns", "check,time"]) == 2
+    assert "rlrates report: error: index columns 'time' unknown" in capsys.readouterr().err
+
+
+def test_cli_draws_in_a_users_style_sheet(copy: Path, tmp_path: Path) -> None:
+    """A style sheet given with --style sets the figure size (matplotlib's style-sheet format)."""
+    from matplotlib.image import imread
+
+    sheet = tmp_path / "paper.mplstyle"
+    sheet.write_text("figure.figsize: 5.0, 3.0\nfont.family: serif\n", encoding="utf-8")
+    assert main(["report", str(copy), "--style", str(sheet)]) == 0
+    shapes = {imread(png).shape[:2] for png in copy.rglob("figure.png")}
+    assert shapes == {(600, 1000)}  # 3 x 5 in at 200 dpi
