@@ -15,8 +15,11 @@ from typing import TYPE_CHECKING
 if TYPE_CHECKING:  # pragma: no cover
     from .result import Fit
 
-__all__ = ["FIT_VERDICT_WORDS", "signed", "percent", "limit_words", "bounds_words", "detectable_words", "fit_words"]
+__all__ = ["BOUNDS_NOTE", "FIT_VERDICT_WORDS", "signed", "percent", "limit_words", "bounds_words", "detectable_words", "fit_words"]
 
+#: What the brackets of :func:`bounds_words` hold, said once per report.
+BOUNDS_NOTE = ("exponents are given as fitted [lower bound at its confidence level, upper bound at its level]; "
+               "the lower bound decides a failure, the upper one a pass")
 #: A fit's verdict as a word of a sentence ("fails: n-exponent ...").
 FIT_VERDICT_WORDS = {"ok": "holds", "violated": "fails", "unclear": "unclear", "exact": "exact"}
 
@@ -41,26 +44,25 @@ def limit_words(fit: "Fit") -> str:
 
 
 def bounds_words(fit: "Fit") -> str:
-    """``lower bound -0.60 at 99.5%, upper bound -0.52 at 95%`` (the fire-side and pass-side bounds)."""
-    return (f"lower bound {signed(fit.low)} at {percent(fit.low_level)}, "
-            f"upper bound {signed(fit.high)} at {percent(fit.high_level)}")
+    """``[-0.60 at 99.5%, -0.52 at 95%]``: the fire-side lower and pass-side upper bound, with their levels."""
+    return f"[{signed(fit.low)} at {percent(fit.low_level)}, {signed(fit.high)} at {percent(fit.high_level)}]"
 
 
 def detectable_words(fit: "Fit") -> str:
-    """``would catch a true exponent of -0.27 or above (95%)``, or ``""`` when not finite."""
+    """``would catch -0.27 or above (95%)``: true exponents this check fails with 95% probability; ``""`` if unknown."""
     if not math.isfinite(fit.detectable):
         return ""
-    return f"would catch a true exponent of {signed(fit.detectable)} or above (95%)"
+    return f"would catch {signed(fit.detectable)} or above (95%)"
 
 
 def fit_words(fit: "Fit", *, verdict: bool = True) -> str:
-    """One fit in words, e.g. ``fails: n-exponent -0.01 (lower bound ...), tested limit -0.35 (claim -0.5 + 0.15)``."""
+    """One fit in words, e.g. ``fails: n-exponent -0.01 (bounds ...), tested limit -0.35 (claim -0.5 + 0.15), ...``."""
     head = f"{FIT_VERDICT_WORDS[fit.verdict]}: " if verdict else ""
     name = f"{fit.symbol}-exponent"
     if fit.verdict == "exact":
         return f"{head}{name} not fitted, the error is zero (exact); {limit_words(fit)}"
     if not fit.measured:
         return f"{head}{name} not measurable; {limit_words(fit)}"
-    parts = [f"{head}{name} {signed(fit.exponent)} ({bounds_words(fit)})", limit_words(fit)]
+    parts = [f"{head}{name} {signed(fit.exponent)} {bounds_words(fit)}", limit_words(fit)]
     catch = detectable_words(fit)
-    return ", ".join(parts) + (f"; {catch}" if catch else "")
+    return ", ".join(parts + ([catch] if catch else []))

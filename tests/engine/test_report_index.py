@@ -34,8 +34,8 @@ def test_index_has_one_sorted_row_per_check_with_links(session: Path) -> None:
     assert by_id[PASS_ID].startswith("| test_plugin[garnet_10] | `")  # the short label: the function, no path
     assert "| pass |" in by_id[PASS_ID] and "| fail (" in by_id[FAIL_ID] and "| error |" in by_id[ERROR_ID]
     assert "not fitted (estimator error)" in by_id[ERROR_ID]
-    assert re.search(r"\| holds: n-exponent [+-]\d\.\d\d \(lower bound [+-]\d\.\d\d at 99\.67%, upper bound "
-                     r"[+-]\d\.\d\d at 95%\), tested limit -0\.35 \(claim -0\.5 \+ 0\.15\)", by_id[PASS_ID])
+    assert re.search(r"\| holds: n-exponent [+-]\d\.\d\d \[[+-]\d\.\d\d at 99\.67%, [+-]\d\.\d\d at 95%\], "
+                     r"tested limit -0\.35 \(claim -0\.5 \+ 0\.15\), would catch [+-]\d\.\d\d or above \(95%\)", by_id[PASS_ID])
     for link in re.findall(r"\]\(([^)]+)\)", text):
         assert (session / link).is_file(), link
     assert "3 check(s): 1 pass, 1 fail, 1 error" in text
@@ -87,8 +87,8 @@ def hand_made(test_id: str = "t::a_b", label: str | None = None, mdp: str = "rin
 def test_index_rows_of_a_hand_made_record() -> None:
     md_row = index_markdown([("t-a_b-00000000", hand_made())]).splitlines()[-1]
     assert md_row == (
-        "| a_b | `t::a_b` | q_pi | ring-S8 | fails: n-exponent +0.00 (lower bound -0.06 at 98.75%, upper bound "
-        "+0.03 at 80%), tested limit -0.4 (claim -0.5 + 0.1); would catch a true exponent of -0.10 or above (95%) | "
+        "| a_b | `t::a_b` | q_pi | ring-S8 | fails: n-exponent +0.00 [-0.06 at 98.75%, +0.03 at 80%], "
+        "tested limit -0.4 (claim -0.5 + 0.1), would catch -0.10 or above (95%) | "
         "not claimed | n^-0.5 | fail (rate, floor) | "
         "[figure](t-a_b-00000000/figure.png) · [pdf](t-a_b-00000000/figure.pdf) · [data](t-a_b-00000000/check.json) |"
     )

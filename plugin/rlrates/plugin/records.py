@@ -16,7 +16,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Any
 
-from ..fit_words import fit_words
+from ..fit_words import BOUNDS_NOTE, fit_words
 from ..result import Fit
 from ..vocabulary import STATUSES
 
@@ -125,7 +125,7 @@ def format_summary(records: Iterable[CheckRecord]) -> list[str] | None:
                 lines.append(f"      rerun alone: {record.rerun}")
     counts = Counter(r.status for r in ordered)
     tally = ", ".join(f"{counts[s]} {s}" for s in STATUSES if counts[s])
-    lines.append(f"{len(ordered)} rate check(s) in all: {tally}.")
+    lines.append(f"{len(ordered)} rate check(s) in all: {tally}; {BOUNDS_NOTE}.")
     if any(_group(r) not in ("pass", "expected") for r in ordered):
         lines.append("Each command above reruns that check alone with the same streams; another master seed "
                      "gives an independent retest.")

@@ -26,7 +26,7 @@ from pathlib import Path
 from typing import Any
 from urllib.parse import quote
 
-from ..fit_words import fit_words, percent, signed
+from ..fit_words import BOUNDS_NOTE, fit_words, percent, signed
 from ..result import Fit
 from ..vocabulary import STATUSES, Factor
 from .files import FIGURE_FILES, INDEX_FILES, RECORD_FILE, find_checks, write_text
@@ -155,9 +155,8 @@ def index_markdown(entries: Sequence[Entry]) -> str:
     lines = [
         "# rlrates checks",
         "",
-        f"{_tally(entries)}. Each exponent cell gives the fit's verdict, the fitted exponent with its one-sided "
-        "bounds and their levels, and the limit tested (the claim plus its tolerance); each folder's check.json "
-        "has the full provenance.",
+        f"{_tally(entries)}. Each exponent cell gives the fit's verdict, the exponent and the limit tested (the "
+        f"claim plus its tolerance); {BOUNDS_NOTE}. Each folder's check.json has the full provenance.",
         "",
         "| check | test | target | MDP | n-exponent | H-exponent | claim | verdict | files |",
         "|---|---|---|---|---|---|---|---|---|",
