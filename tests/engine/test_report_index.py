@@ -13,7 +13,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from report_checks import ERROR_ID, FAIL_ID, PASS_ID, truncate_json
+from report_checks import ERROR_ID, FAIL_ID, NEEDS_PDFLATEX, PASS_ID, assert_paper_fits, truncate_json
 
 from rlrates import CheckResult
 from rlrates.__main__ import main
@@ -136,29 +136,7 @@ def test_many_rows_are_split_into_floats_that_each_fit_a_page() -> None:
     assert floats[0][floats[0].index(r"\midrule") + 1].startswith(r"test\_\allowbreak{}rate\_\allowbreak{}00 & ")
 
 
-PAPER = r"""\documentclass[twocolumn]{article}
-\usepackage{booktabs,longtable,graphicx,array}
-\usepackage[margin=2cm]{geometry}
-\begin{document}
-Some text of the paper.
-\input{index.tex}
-\end{document}
-"""
-
-
-def compile_paper(folder: Path, index_tex: str) -> str:
-    """Run pdflatex on a two-column article that inputs ``index_tex``; return its log."""
-    (folder / "index.tex").write_text(index_tex, encoding="utf-8")
-    (folder / "paper.tex").write_text(PAPER, encoding="utf-8")
-    done = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", "paper.tex"], cwd=folder,
-                          capture_output=True, text=True, timeout=120)
-    log = (folder / "paper.log").read_text(encoding="latin-1")
-    assert done.returncode == 0, log[-3000:]
-    return log
-
-
-@pytest.mark.skipif(shutil.which("pdflatex") is None,
-                    reason="pdflatex is not installed (Debian: texlive-latex-base texlive-latex-recommended)")
+@NEEDS_PDFLATEX
 @pytest.mark.parametrize("rows", [0, 13, 84])
 def test_index_compiles_in_a_two_column_paper_without_overfull_boxes(session: Path, tmp_path: Path, rows: int) -> None:
     """The real session's index (rows=0), or hand-made ones with long ids and names, in \\documentclass[twocolumn]."""
@@ -171,11 +149,7 @@ def test_index_compiles_in_a_two_column_paper_without_overfull_boxes(session: Pa
         text = index_latex(entries)
     else:
         text = (session / "index.tex").read_text(encoding="utf-8")
-    log = compile_paper(tmp_path, text)
-    overfull = [float(points) for points in re.findall(r"Overfull \\hbox \((\d+(?:\.\d+)?)pt too wide\)", log)]
-    assert max(overfull, default=0.0) <= 20.0, f"overfull boxes: {overfull}"
-    assert "Float too large" not in log
-    assert "Output written on paper.pdf" in log
+    assert_paper_fits(tmp_path, text)
 
 
 def test_markdown_escapes_raw_html_in_names() -> None:

@@ -54,8 +54,8 @@ LATEX_COLUMNS: dict[str, tuple[str, float]] = {
     "target": ("Target", 0.6),
     "mdp": ("MDP", 1.0),
     "claim": ("Claim", 0.8),
-    "n": (r"$n$-exponent", 1.4),
-    "horizon": (r"$H$-exponent", 1.4),
+    "n": (r"$n$-exponent", 1.45),
+    "horizon": (r"$H$-exponent", 1.45),
     "verdict": ("Verdict", 1.0),
 }
 #: The default columns (``horizon`` is left out when no check claims an H-exponent).
@@ -76,10 +76,21 @@ def latex_escape(text: str) -> str:
     return _LATEX_PATTERN.sub(lambda match: _LATEX_SPECIAL[match.group()], text)
 
 
+_BREAK, _HYPHEN = "\x00", "\x01"  # placed in the raw text, turned into LaTeX after escaping
+_LONG_WORD = re.compile(r"[A-Za-z]{9,}")
+
+
+def _hyphenate(word: str) -> str:
+    """A discretionary hyphen after every fifth letter of a long word (LaTeX will not hyphenate one
+    joined to a hyphen or an underscore), keeping at least three letters on the last line."""
+    return "".join(c + (_HYPHEN if (i + 1) % 5 == 0 and len(word) - i > 3 else "") for i, c in enumerate(word))
+
+
 def _breakable(text: str) -> str:
-    """Escaped text that may break after ``_``, ``-``, ``/``, ``,`` and ``.``, and before ``[`` (names have no spaces)."""
-    escaped = re.sub(r"(\\_|-|/|,|\.)", lambda m: m.group(1) + r"\allowbreak{}", latex_escape(text))
-    return escaped.replace("[", r"\allowbreak{}[")
+    """Escaped text that may break after ``_``, ``-``, ``/``, ``,`` and ``.``, before ``[``, and inside long words."""
+    marked = re.sub(r"([_\-/,.])", lambda m: m.group(1) + _BREAK, text).replace("[", _BREAK + "[")
+    marked = _LONG_WORD.sub(lambda m: _hyphenate(m.group()), marked)
+    return latex_escape(marked).replace(_BREAK, r"\allowbreak{}").replace(_HYPHEN, r"\-")
 
 
 def _fixed(value: float) -> str:
