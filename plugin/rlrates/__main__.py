@@ -2,7 +2,7 @@
 
 ``python -m rlrates demo`` checks reference estimators and a broken one;
 ``python -m rlrates report DIR [--figure-width column|page|INCHES] [--style FILE]
-[--columns check,mdp,n,verdict] [--table-span column|page]`` redraws the figures and
+[--columns check,mdp,n,verdict] [--table-span column|page|long]`` redraws the figures and
 the index of a report directory from its saved tables (no rerun), at the width
 asked and in the user's matplotlib style (``--style``, or a matplotlibrc that
 matplotlib finds as usual).
@@ -100,8 +100,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     report.add_argument("--columns", default=None, metavar="LIST",
                         help="comma-separated columns of index.tex: check, test, target, mdp, claim, n, horizon, "
                         "verdict (default check,mdp,n,horizon,verdict)")
-    report.add_argument("--table-span", default="column", choices=("column", "page"),
-                        help="index.tex as a one-column table (default) or a full-width table*")
+    report.add_argument("--table-span", default="column", choices=("column", "page", "long"),
+                        help="index.tex as one-column table floats (default), full-width table* floats, "
+                        "or a longtable across pages (one-column documents)")
     args = parser.parse_args(argv)
     if args.command == "demo":
         return _demo(args.seed)

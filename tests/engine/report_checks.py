@@ -56,7 +56,7 @@ def truncate_json(folder: Path) -> None:
     path.write_text(path.read_text(encoding="utf-8")[:200], encoding="utf-8")
 
 
-PAPER = r"""\documentclass[twocolumn]{article}
+PAPER = r"""\documentclass[OPTIONS]{article}
 \usepackage{booktabs,longtable,graphicx,array}
 \usepackage[margin=2cm]{geometry}
 \begin{document}
@@ -72,11 +72,13 @@ NEEDS_PDFLATEX = pytest.mark.skipif(
     reason="pdflatex is not installed (Debian: texlive-latex-base texlive-latex-recommended)")
 
 
-def assert_paper_fits(folder: Path, index_tex: str) -> None:
+def assert_paper_fits(folder: Path, index_tex: str, documentclass: str = "twocolumn") -> None:
     """Compile a two-column article that inputs ``index_tex`` with pdflatex: it must build, with no
-    overfull box wider than 20 pt and no float too large for a page (issue 13's bar)."""
+    overfull box wider than 20 pt and no float too large for a page (issue 13's bar). Pass
+    ``documentclass="article"`` for a one-column article."""
     (folder / "index.tex").write_text(index_tex, encoding="utf-8")
-    (folder / "paper.tex").write_text(PAPER, encoding="utf-8")
+    options = "" if documentclass == "article" else documentclass
+    (folder / "paper.tex").write_text(PAPER.replace("[OPTIONS]", f"[{options}]" if options else ""), encoding="utf-8")
     done = subprocess.run(["pdflatex", "-interaction=nonstopmode", "-halt-on-error", "paper.tex"], cwd=folder,
                           capture_output=True, text=True, timeout=120)
     log = (folder / "paper.log").read_text(encoding="latin-1")

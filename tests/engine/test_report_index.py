@@ -120,7 +120,7 @@ def test_columns_can_be_chosen_and_a_page_wide_table_asked_for() -> None:
     assert r"plug-\allowbreak{}in & $n^{-0.5}$ & fail (rate, floor) \\" in text
     with pytest.raises(ValueError, match="index columns 'seconds' unknown; choose from check, test"):
         index_latex([("a", hand_made())], columns=["check", "seconds"])
-    with pytest.raises(ValueError, match="index span 'wide' must be 'column' or 'page'"):
+    with pytest.raises(ValueError, match="index span 'wide' must be one of 'column', 'page', 'long'"):
         index_latex([("a", hand_made())], span="wide")
 
 
@@ -150,6 +150,15 @@ def test_index_compiles_in_a_two_column_paper_without_overfull_boxes(session: Pa
     else:
         text = (session / "index.tex").read_text(encoding="utf-8")
     assert_paper_fits(tmp_path, text)
+
+
+@NEEDS_PDFLATEX
+def test_a_longtable_breaks_84_rows_across_pages_of_a_one_column_document(tmp_path: Path) -> None:
+    entries = [(f"f{i}", hand_made(f"tests/t.py::test_rate_{i:02d}[garnet-S20-A4-b5]", mdp="garnet-S20-A4-b5"))
+               for i in range(84)]
+    text = index_latex(entries, span="long")
+    assert text.count(r"\begin{longtable}") == 1 and r"\endhead" in text and "{booktabs,array,longtable}" in text
+    assert_paper_fits(tmp_path, text, documentclass="article")
 
 
 def test_markdown_escapes_raw_html_in_names() -> None:

@@ -8,7 +8,8 @@ writes ``index.md`` and ``index.tex`` next to the check folders.
 
 ``index.tex`` is made to drop into a paper: each row is named by the check's
 short label (the full test id is kept in a comment), the table is one column
-wide by default (``table``; ``span="page"`` gives ``table*``), its columns can
+wide by default (``table``; ``span="page"`` gives ``table*``, ``span="long"`` a
+``longtable`` for one-column documents), its columns can
 be chosen (:data:`LATEX_COLUMNS`), it has a caption and a ``\\label``, and it is
 split into several floats of at most :data:`ROWS_PER_FLOAT` rows so that no
 float is taller than a page (longtable is not used: it refuses two-column mode).
@@ -33,7 +34,7 @@ from .files import FIGURE_FILES, INDEX_FILES, RECORD_FILE, find_checks, write_te
 from .schema import read_record, record_fit, record_label
 
 __all__ = [
-    "LATEX_COLUMNS", "DEFAULT_LATEX_COLUMNS", "ROWS_PER_FLOAT", "index_markdown", "index_latex", "latex_escape",
+    "LATEX_COLUMNS", "DEFAULT_LATEX_COLUMNS", "ROWS_PER_FLOAT", "SPANS", "index_markdown", "index_latex", "latex_escape",
     "index_entries", "write_index_files", "write_index", "verdict_words",
 ]
 
@@ -67,7 +68,7 @@ ROWS_PER_FLOAT = 30
 # at most _FLOAT_POINTS, leaving room for the caption and the heading. Characters per line are
 # estimated at _CHAR_POINTS each in a column _COLUMN_POINTS wide.
 _FLOAT_POINTS = 540.0
-_COLUMN_POINTS = {"column": 236.0, "page": 483.0}
+_COLUMN_POINTS = {"column": 236.0, "page": 483.0, "long": 483.0}
 _CHAR_POINTS = 4.4
 
 
@@ -309,39 +310,19 @@ def _chunks(entries: Sequence[Entry], keys: Sequence[str], widths: Sequence[floa
     return chunks
 
 
-def index_latex(entries: Sequence[Entry], columns: Sequence[str] | None = None, span: str = "column",
-                label: str = "tab:rlrates") -> str:
-    """LaTeX floats (no preamble) to ``\\input``: booktabs and array, one column wide unless ``span="page"``.
-
-    ``columns`` picks and orders the columns (keys of :data:`LATEX_COLUMNS`);
-    ``label`` is the ``\\label`` of the first float. Raises ``ValueError`` for
-    an unknown column or span.
-    """
-    if span not in ("column", "page"):
-        raise ValueError(f"index span {span!r} must be 'column' or 'page'")
-    keys = _columns(entries, columns)
+def _float_lines(entries: Sequence[Entry], keys: Sequence[str], widths: Sequence[float], spec: str, span: str,
+                 label: str) -> list[str]:
+    """The rows as ``table`` (or ``table*``) floats, split so that each fits a page."""
     shared = _shared_levels(entries)
-    total = sum(LATEX_COLUMNS[key][1] for key in keys)
-    widths = [LATEX_COLUMNS[key][1] / total for key in keys]
-    spec = "".join(
-        r">{\raggedright\arraybackslash\hspace{0pt}}p{\dimexpr" + f"{width:.3f}"
-        + r"\linewidth-2\tabcolsep\relax}" for width in widths)
     environment = "table" if span == "column" else "table*"
-    lines = [
-        f"% rlrates checks, {_tally(entries)}. Needs \\usepackage{{booktabs,array}}.",
-        "% Rows are named by each check's label; the full test ids:",
-        *(f"%   {record_label(r)}: {r['test_id']}".replace("\n", " ") for _, r in entries),
-    ]
     chunks = _chunks(entries, keys, widths, span)
+    lines: list[str] = []
     for part, chunk in enumerate(chunks):
         lines += [
             f"\\begin{{{environment}}}[tbp]",
             r"\centering\footnotesize\setlength{\tabcolsep}{3pt}",
             _caption(entries, shared, part, len(chunks)),
-        ]
-        if part == 0:
-            lines.append(f"\\label{{{latex_escape(label)}}}")
-        lines += [
+            *([f"\\label{{{latex_escape(label)}}}"] if part == 0 else []),
             r"\begin{tabular}{@{}" + spec + "@{}}",
             r"\toprule",
             " & ".join(LATEX_COLUMNS[key][0] for key in keys) + r" \\",
@@ -349,6 +330,59 @@ def index_latex(entries: Sequence[Entry], columns: Sequence[str] | None = None, 
         ]
         lines += [" & ".join(_tex_cell(key, record, shared) for key in keys) + r" \\" for _, record in chunk]
         lines += [r"\bottomrule", r"\end{tabular}", f"\\end{{{environment}}}"]
+    return lines
+
+
+def _longtable_lines(entries: Sequence[Entry], keys: Sequence[str], spec: str, label: str) -> list[str]:
+    """The rows as one ``longtable`` that breaks across pages, its heading repeated (one-column documents)."""
+    shared = _shared_levels(entries)
+    heading = " & ".join(LATEX_COLUMNS[key][0] for key in keys) + r" \\"
+    return [
+        r"{\footnotesize\setlength{\tabcolsep}{3pt}",
+        r"\begin{longtable}{@{}" + spec + "@{}}",
+        _caption(entries, shared, 0, 1) + f"\\label{{{latex_escape(label)}}}" + r" \\",
+        r"\toprule", heading, r"\midrule", r"\endfirsthead",
+        rf"\multicolumn{{{len(keys)}}}{{@{{}}l}}{{\emph{{Rate checks, continued}}}} \\",
+        r"\toprule", heading, r"\midrule", r"\endhead",
+        r"\bottomrule", r"\endlastfoot",
+        *(" & ".join(_tex_cell(key, record, shared) for key in keys) + r" \\" for _, record in entries),
+        r"\end{longtable}}",
+    ]
+
+
+#: How ``index.tex`` spans the page: a one-column float, a full-width float, or a longtable.
+SPANS = ("column", "page", "long")
+
+
+def index_latex(entries: Sequence[Entry], columns: Sequence[str] | None = None, span: str = "column",
+                label: str = "tab:rlrates") -> str:
+    """LaTeX (no preamble) to ``\\input``, needing booktabs and array (and longtable for ``span="long"``).
+
+    ``span``: "column" gives ``table`` floats one column wide, "page" ``table*``
+    floats (both split so that each fits a page, and both work in two-column
+    documents); "long" one ``longtable`` that breaks across pages (one-column
+    documents only: longtable refuses two-column mode). ``columns`` picks and
+    orders the columns (keys of :data:`LATEX_COLUMNS`); ``label`` is the
+    ``\\label`` of the table. Raises ``ValueError`` for an unknown column or span.
+    """
+    if span not in SPANS:
+        raise ValueError(f"index span {span!r} must be one of {', '.join(map(repr, SPANS))}")
+    keys = _columns(entries, columns)
+    total = sum(LATEX_COLUMNS[key][1] for key in keys)
+    widths = [LATEX_COLUMNS[key][1] / total for key in keys]
+    spec = "".join(
+        r">{\raggedright\arraybackslash\hspace{0pt}}p{\dimexpr" + f"{width:.3f}"
+        + r"\linewidth-2\tabcolsep\relax}" for width in widths)
+    lines = [
+        f"% rlrates checks, {_tally(entries)}. Needs \\usepackage{{booktabs,array"
+        + (",longtable" if span == "long" else "") + "}.",
+        "% Rows are named by each check's label; the full test ids:",
+        *(f"%   {record_label(r)}: {r['test_id']}".replace("\n", " ") for _, r in entries),
+    ]
+    if span == "long":
+        lines += _longtable_lines(entries, keys, spec, label)
+    else:
+        lines += _float_lines(entries, keys, widths, spec, span, label)
     return "\n".join(lines) + "\n"
 
 
