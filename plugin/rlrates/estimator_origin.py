@@ -104,13 +104,19 @@ def _top_packages(module: types.ModuleType) -> set[str]:
     return found
 
 
+@functools.lru_cache(maxsize=1)
+def _distributions() -> Mapping[str, list[str]]:
+    """Top-level package -> installed distributions (read once per process: it scans every installed package)."""
+    return importlib.metadata.packages_distributions()
+
+
 def _package_versions(module_name: str) -> dict[str, str]:
     """Versions of the installed distributions behind the packages the module imports (its own included)."""
     module = sys.modules.get(module_name)
     if module is None:
         return {}
     tops = _top_packages(module) | {module_name.split(".")[0]}
-    owners: Mapping[str, list[str]] = importlib.metadata.packages_distributions()
+    owners = _distributions()
     versions: dict[str, str] = {}
     for top in sorted(tops):
         for distribution in owners.get(top, []):
