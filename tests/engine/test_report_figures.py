@@ -262,3 +262,16 @@ def test_every_power_of_two_of_a_long_grid_is_labelled() -> None:
     figure.canvas.draw()
     labels = [t.get_text() for t in figure.axes[0].get_xticklabels()]
     assert labels == [f"$2^{{{k}}}$" for k in range(6, 14)]
+
+
+def test_y_ticks_thin_out_on_the_short_axes_of_a_column_figure(saved_failing: Path) -> None:
+    """Stacked panels at column width are short: at most four labelled y ticks each (about 0.3 in apart)."""
+    saved = read_check(saved_failing)
+    for width, most in (("column", 4), ("page", 5)):
+        figure = build_figure(saved.errors, saved.record, width)
+        assert figure is not None
+        figure.canvas.draw()
+        for ax in figure.axes:
+            low, high = ax.get_ylim()
+            shown = [t for t in ax.get_yticklabels() if t.get_text() and low <= t.get_position()[1] <= high]
+            assert 2 <= len(shown) <= most, (width, [t.get_text() for t in shown])

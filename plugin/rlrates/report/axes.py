@@ -22,13 +22,15 @@ if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
-__all__ = ["NOTE_COLOUR", "log_ticks", "finish_log_axes", "add_legend", "empty_panel"]
+__all__ = ["NOTE_COLOUR", "STACK_BELOW", "log_ticks", "finish_log_axes", "add_legend", "empty_panel"]
 
 #: The colour of notes and reference markers.
 NOTE_COLOUR = "#555555"
 
 _MANTISSAS = ((1.0,), (1.0, 2.0, 5.0), (1.0, 2.0, 3.0, 5.0), (1.0, 1.5, 2.0, 3.0, 4.0, 5.0, 6.0, 8.0))
 _MINIMUM_SPAN = 2.5
+#: Figures narrower than this (inches) stack their two panels instead of setting them side by side.
+STACK_BELOW = 5.0
 
 
 def _tick_text(value: float) -> str:
@@ -57,7 +59,7 @@ def _label_ticks(axis: Any, values: np.ndarray, ticker: ModuleType, most: int = 
     axis.set_minor_locator(ticker.NullLocator())
 
 
-def log_ticks(low: float, high: float) -> np.ndarray:
+def log_ticks(low: float, high: float, most: int = 7) -> np.ndarray:
     """Tick values in [low, high]: the sparsest of the 1 / 1-2-5 / ... ladders that gives at least three.
 
     The finest ladder steps by at most 1.5, so a range of a factor 2.5 (the least
@@ -70,13 +72,17 @@ def log_ticks(low: float, high: float) -> np.ndarray:
         ticks = values[(values >= low * (1 - 1e-9)) & (values <= high * (1 + 1e-9))]
         if len(ticks) >= 3:
             break
-    return ticks if len(ticks) <= 7 else ticks[:: math.ceil(len(ticks) / 7)]
+    return ticks if len(ticks) <= most else ticks[:: math.ceil(len(ticks) / most)]
 
 
 def _label_log_values(ax: "Axes", ticker: ModuleType) -> None:
     """Plain-number labels on the log y axis, at round values that fit its range."""
     low, high = ax.get_ylim()
-    ax.yaxis.set_major_locator(ticker.FixedLocator(log_ticks(low, high)))
+    # about one labelled tick per 0.3 in of axes height: an axes is about 55% of its row of the
+    # figure, and a narrow figure has two rows (its panels are stacked)
+    rows = 2 if ax.figure.get_figwidth() < STACK_BELOW else 1
+    most = max(3, min(7, int(0.55 * ax.figure.get_figheight() / rows / 0.3)))
+    ax.yaxis.set_major_locator(ticker.FixedLocator(log_ticks(low, high, most)))
     ax.yaxis.set_major_formatter(ticker.FuncFormatter(lambda v, _: f"{v:g}"))
     ax.yaxis.set_minor_locator(ticker.LogLocator(base=10.0, subs=tuple(range(1, 10))))
     ax.yaxis.set_minor_formatter(ticker.NullFormatter())

@@ -27,7 +27,7 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from .axes import add_legend
+from .axes import STACK_BELOW, add_legend
 from .figure_data import cell_points
 from .files import FIGURE_FILES, write_atomic
 from .panels import Style, panel_horizon, panel_n
@@ -44,8 +44,7 @@ __all__ = [
 FIGURE_SIZE = (7.0, 3.1)
 #: The named widths in inches: the text width of a two-column paper, and one of its columns.
 FIGURE_WIDTHS = {"page": 7.0, "column": 3.4}
-#: Below this width (inches) the panels are stacked instead of side by side.
-_STACK_BELOW = 5.0
+
 #: The one line said when figures are skipped for want of matplotlib.
 FIGURES_SKIPPED = "figures skipped: install pytest-rlrates[plot] (matplotlib) to get them"
 
@@ -138,7 +137,7 @@ def _size(matplotlib: ModuleType, width: float | None) -> tuple[float, float]:
         if user != tuple(matplotlib.rcParamsDefault["figure.figsize"]):
             return float(user[0]), float(user[1])
         width = FIGURE_SIZE[0]
-    return (width, FIGURE_SIZE[1]) if width >= _STACK_BELOW else (width, 2.2 * width / FIGURE_WIDTHS["column"] * 2.0)
+    return (width, FIGURE_SIZE[1]) if width >= STACK_BELOW else (width, 2.2 * width / FIGURE_WIDTHS["column"] * 2.0)
 
 
 def _y_label(record: Mapping[str, Any]) -> str:
@@ -169,7 +168,7 @@ def build_figure(table: pd.DataFrame, record: Mapping[str, Any], width: str | fl
         size = _size(matplotlib, inches)
         figure = Figure(figsize=size, layout="constrained")
         FigureCanvasAgg(figure)
-        left, right = figure.subplots(*((1, 2) if size[0] >= _STACK_BELOW else (2, 1)))
+        left, right = figure.subplots(*((1, 2) if size[0] >= STACK_BELOW else (2, 1)))
         discounts = panel_n(left, cells, record, style, ticker, Line2D)
         lines = discounts[len(style):] + panel_horizon(right, cells, record, style, ticker, Line2D)
         left.set_ylabel(_y_label(record))
