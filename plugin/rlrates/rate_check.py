@@ -219,7 +219,8 @@ def check(
     if reproducer is None:
         extras = {"norm": norm if norm != "sup" else None, "n_grid": n_grid, "gammas": gammas,
                   "replicates": replicates, "context": context or None, "time_limit": time_limit}
-        reproducer = _reproducer(call, rebuild_call(metadata) or name, policy is not None, extras)
+        mdp_call = rebuild_call(metadata) or f"<the MDP {name!r}: not rebuildable from its metadata, build it as before>"
+        reproducer = _reproducer(call, mdp_call, policy is not None, extras)
     run = RunInfo(passes.passes, time.perf_counter() - started,
                   float(passes.table["seconds"].sum()) if len(passes.table) else 0.0, context, passes.blocks,
                   reproducer, estimator_origin(estimator), label or "")

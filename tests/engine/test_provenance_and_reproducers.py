@@ -91,6 +91,13 @@ def test_reproducer_of_a_locally_defined_estimator_says_it_cannot_be_imported() 
     assert "it is a lambda" in str(import_problem(lambda b, p: None))
 
 
+def test_reproducer_says_plainly_when_the_mdp_cannot_be_rebuilt() -> None:
+    mdp = rlrates.TabularMDP(np.array(rlrates.garnet(6, 2, 3, seed=0).P), np.full((6, 2), 0.5), name="my-lab-mdp")
+    result = rlrates.check(reference.plugin_q_pi, mdp, rlrates.Claim(n=-0.5), n_grid=(256, 512, 1024), replicates=4)
+    assert ("rlrates.check(rlrates.reference.plugin_q_pi, <the MDP 'my-lab-mdp': not rebuildable from its metadata, "
+            "build it as before>, ") in result.run.reproducer
+
+
 def test_check_json_names_the_estimator_its_source_and_its_packages(lab: Any, tmp_path: Path) -> None:
     result = rlrates.check(lab.plug_in, rlrates.garnet(10, 2, 3, seed=1), rlrates.Claim(n=-0.5), seed=5)
     saved = read_check(write_check(result, tmp_path / "report", "t.py::test_lab", figures=False))
