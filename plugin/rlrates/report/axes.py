@@ -80,8 +80,10 @@ def _label_log_values(ax: "Axes", ticker: ModuleType) -> None:
     low, high = ax.get_ylim()
     # about one labelled tick per 0.3 in of axes height: an axes is about 55% of its row of the
     # figure, and a narrow figure has two rows (its panels are stacked)
-    rows = 2 if ax.figure.get_figwidth() < STACK_BELOW else 1
-    most = max(3, min(7, int(0.55 * ax.figure.get_figheight() / rows / 0.3)))
+    figure = ax.figure
+    width, height = figure.bbox.width / figure.dpi, figure.bbox.height / figure.dpi  # inches
+    rows = 2 if width < STACK_BELOW else 1
+    most = max(3, min(7, int(0.55 * height / rows / 0.3)))
     ax.yaxis.set_major_locator(ticker.FixedLocator(log_ticks(low, high, most)))
     ax.yaxis.set_major_formatter(ticker.FuncFormatter(lambda v, _: f"{v:g}"))
     ax.yaxis.set_minor_locator(ticker.LogLocator(base=10.0, subs=tuple(range(1, 10))))
