@@ -1,8 +1,11 @@
 """Command line.
 
 ``python -m rlrates demo`` checks reference estimators and a broken one;
-``python -m rlrates report DIR`` redraws the figures and the index of a report
-directory from its saved tables (no rerun).
+``python -m rlrates report DIR [--figure-width column|page|INCHES] [--style FILE]
+[--columns check,mdp,n,verdict] [--table-span column|page|long]`` redraws the figures and
+the index of a report directory from its saved tables (no rerun), at the width
+asked and in the user's matplotlib style (``--style``, or a matplotlibrc that
+matplotlib finds as usual).
 """
 
 from __future__ import annotations
@@ -10,6 +13,7 @@ from __future__ import annotations
 import argparse
 import sys
 from collections.abc import Sequence
+from typing import Any
 
 
 def _demo(seed: int) -> int:
@@ -40,16 +44,35 @@ def _demo(seed: int) -> int:
     return 0 if outcomes == expected else 1
 
 
-def _report(directory: str) -> int:
+def _style(path: str | None) -> Any:
+    """A context that applies the matplotlib style sheet ``path`` (nothing without one, or without matplotlib)."""
+    import contextlib
+
+    if path is None:
+        return contextlib.nullcontext()
+    from .report.figures import load_matplotlib
+
+    matplotlib = load_matplotlib()
+    if matplotlib is None:
+        return contextlib.nullcontext()
+    import matplotlib.style
+
+    return matplotlib.style.context(path)
+
+
+def _report(args: argparse.Namespace) -> int:
     import warnings
 
     from .report import ReportError, ReportWarning, rebuild
 
+    columns = [c.strip() for c in args.columns.split(",") if c.strip()] if args.columns else None
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always", ReportWarning)
         try:
-            written = rebuild(directory)
-        except ReportError as exc:
+            with _style(args.style):
+                written = rebuild(args.directory, figure_width=args.figure_width, columns=columns,
+                                  span=args.table_span)
+        except (ReportError, ValueError, OSError) as exc:
             print(f"rlrates report: error: {exc}", file=sys.stderr)
             return 2
     for path in written:
@@ -69,11 +92,22 @@ def main(argv: Sequence[str] | None = None) -> int:
     demo.add_argument("--seed", type=int, default=0, help="master seed (default 0)")
     report = commands.add_parser("report", help="rebuild the figures and index of a report directory from its saved files")
     report.add_argument("directory", help="the report directory (holds one folder per check)")
+    report.add_argument("--figure-width", default=None, metavar="WIDTH",
+                        help="column (3.4 in, panels stacked), page (7 in) or a width in inches "
+                        "(default: the figure size of your matplotlib style, else page)")
+    report.add_argument("--style", default=None, metavar="FILE",
+                        help="a matplotlib style sheet (name or file) to draw the figures with")
+    report.add_argument("--columns", default=None, metavar="LIST",
+                        help="comma-separated columns of index.tex: check, test, target, mdp, claim, n, horizon, "
+                        "verdict (default check,mdp,n,horizon,verdict)")
+    report.add_argument("--table-span", default="column", choices=("column", "page", "long"),
+                        help="index.tex as one-column table floats (default), full-width table* floats, "
+                        "or a longtable across pages (one-column documents)")
     args = parser.parse_args(argv)
     if args.command == "demo":
         return _demo(args.seed)
     if args.command == "report":
-        return _report(args.directory)
+        return _report(args)
     return 2  # pragma: no cover
 
 

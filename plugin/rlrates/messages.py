@@ -93,7 +93,7 @@ def format_message(result: CheckResult) -> str:
         lines.append("mean error by n:")
         lines.extend("    " + line for line in grid.to_string(float_format=lambda v: f"{v:.4g}").splitlines())
     lines.append(
-        f"budget:   {result.budget.name}, {result.run.passes} pass(es), {len(result.table)} estimator calls, "
+        f"budget:   {result.budget.name}, {result.run.passes} pass(es), {result.estimator_calls} estimator calls, "
         f"{result.run.elapsed:.2f} s ({result.run.estimator_seconds:.2f} s in the estimator)"
     )
     lines.append("evidence under idealised assumptions (generative model, known rewards), not a proof")

@@ -25,6 +25,7 @@ import pandas as pd
 
 from .claims import Claim
 from .escalation import Escalation
+from .estimator_origin import estimator_expression, estimator_origin
 from .families import rebuild_call
 from .fitting import summarise_cells
 from .mdp import TabularMDP
@@ -143,6 +144,7 @@ def check(
     reproducer: str | None = None,
     time_limit: float | None = None,
     zero_level: float | None = None,
+    label: str | None = None,
 ) -> CheckResult:
     """Check that ``estimator``'s error on ``mdp`` falls and grows as ``claim`` says.
 
@@ -196,6 +198,9 @@ def check(
         Absolute error at or below which an error counts as zero (for example the
         stopping tolerance of an iterative solver). By default only floating-point
         zero, relative to the value scale, counts.
+    label : str, optional
+        A short name for the check in reports (index rows, figure files); the
+        pytest layer defaults it to the test function's name.
 
     Returns
     -------
@@ -224,6 +229,9 @@ def check(
     call = _validate(estimator, claim, target, norm, seed, executor, time_limit,
                      resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates,
                                     zero_level=zero_level))
+    if label is not None and (not isinstance(label, str) or not label.strip()):
+        raise TypeError(f"`label` must be a non-empty string, got {label!r}")
+    call = _model_over_n_only(call, mdp, gammas is not None)
     name, metadata = _describe_source(mdp)
     _warn_design(call, n_grid is not None)
     started = time.perf_counter()
@@ -239,10 +247,11 @@ def check(
         extras = {"norm": norm if norm != "sup" else None, "n_grid": n_grid, "gammas": gammas,
                   "replicates": replicates, "context": context or None, "time_limit": time_limit,
                   "zero_level": zero_level}
-        reproducer = _reproducer(call, rebuild_call(metadata) or name, policy is not None, extras)
+        mdp_call = rebuild_call(metadata) or f"<the MDP {name!r}: not rebuildable from its metadata, build it as before>"
+        reproducer = _reproducer(call, mdp_call, policy is not None, extras)
     run = RunInfo(passes.passes, time.perf_counter() - started,
                   float(passes.table["seconds"].sum()) if len(passes.table) else 0.0, context, passes.blocks,
-                  reproducer)
+                  reproducer, estimator_origin(estimator), label or "")
     description = MDPDescription(name, metadata, {g: t.mdp.fingerprint for g, t in truths.items()},
                                  {g: t.scale for g, t in truths.items()})
     result = _assemble(call, passes, run, description, probe_notes)
@@ -266,6 +275,17 @@ def _validate(estimator: object, claim: object, target: object, norm: object, se
         raise ValueError("a `horizon` claim needs at least two discounts in `gammas` to fit an H-exponent")
     return _Call(estimator, claim, validate_target(target), validate_norm(norm), _validate_seed(seed), design,
                  None if time_limit is None else float(time_limit))
+
+
+def _model_over_n_only(call: _Call, mdp: MDPSource, own_gammas: bool) -> _Call:
+    """A model's error does not depend on the discount: sweep one MDP over n only (the smallest discount).
+
+    Kept as asked when the caller gave ``gammas``, claims an H-exponent, or passes a
+    gamma-indexed family (whose model changes with the discount).
+    """
+    if call.target != "model" or own_gammas or call.claim.horizon is not None or not isinstance(mdp, TabularMDP):
+        return call
+    return dataclasses.replace(call, design=dataclasses.replace(call.design, gammas=call.design.gammas[:1]))
 
 
 def _warn_design(call: _Call, own_grid: bool) -> None:
@@ -341,9 +361,11 @@ def _run_passes(plan: SweepPlan, executor: Executor | None, call: _Call, truths:
 
 
 def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str, Any]) -> str:
-    """The Python call that reproduces the check."""
+    """The Python that reproduces the check: ``import rlrates; import module; rlrates.check(module.name, ...)``."""
+    imported, name = estimator_expression(call.estimator)
     return (
-        f"rlrates.check({_estimator_name(call.estimator)}, {mdp_call}, {call.claim.as_call()}, "
+        "import rlrates; " + (f"{imported}; " if imported else "")
+        + f"rlrates.check({name}, {mdp_call}, {call.claim.as_call()}, "
         f"target={call.target!r}, " + ("policy=<the policy given>, " if policy_given else "")
         + f"budget={call.design.name!r}, seed={call.seed}"
         + "".join(f", {key}={value!r}" for key, value in extras.items() if value is not None)

@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, fields
+from dataclasses import dataclass, field, fields
 from typing import Any
 
 import pandas as pd
@@ -176,7 +176,11 @@ class MDPDescription:
 
 @dataclass(frozen=True)
 class RunInfo:
-    """How the run went: passes, timings, the stream context, the replicate blocks and the reproducer."""
+    """How the run went: passes, timings, the stream context, the replicate blocks and the reproducer.
+
+    ``estimator`` describes the estimator that ran (:func:`rlrates.estimator_origin.estimator_origin`);
+    ``label`` is the short name of the check in reports ("" when none was given).
+    """
 
     passes: int
     elapsed: float
@@ -184,6 +188,8 @@ class RunInfo:
     context: str
     blocks: tuple[Block, ...]
     reproducer: str
+    estimator: Mapping[str, Any] = field(default_factory=dict)
+    label: str = ""
 
 
 @dataclass(frozen=True)
@@ -234,6 +240,12 @@ class CheckResult:
     def fits(self) -> pd.DataFrame:
         """The fits as a DataFrame (a view of ``factors``: one row per claimed factor)."""
         return fits_frame(self.factors)
+
+    @property
+    def estimator_calls(self) -> int:
+        """Calls made: the rows of the table, plus the call that raised or returned an invalid estimate."""
+        failed = self.failure is not None and self.failure.kind in ("raised", "invalid")
+        return len(self.evidence.table) + int(failed)
 
     def fit(self, factor: Factor) -> Fit | None:
         """The fit of one factor, or ``None`` when it was not claimed."""

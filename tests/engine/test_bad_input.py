@@ -144,6 +144,18 @@ class Case:
     match: str
 
 
+def _figure_width(width: str) -> Any:
+    from rlrates.report.figures import figure_width
+
+    return figure_width(width)
+
+
+def _index_columns(columns: list[str]) -> Any:
+    from rlrates.report.index import index_latex
+
+    return index_latex([], columns)
+
+
 CATALOGUE = [
     Case("P-ndim", lambda: rlrates.TabularMDP(np.ones((2, 2)), np.zeros((2, 2))), r"`P` must have 3 dimensions"),
     Case("P-shape", lambda: rlrates.TabularMDP(np.ones((2, 1, 3)) / 3, np.zeros((2, 1))), r"same S on both ends, got \(2, 1, 3\)"),
@@ -193,6 +205,10 @@ CATALOGUE = [
     Case("report-dir-not-writable", _report_dir_under_a_file, r"--rlrates-report: cannot write to the report directory .*occupied/reports"),
     Case("report-json-corrupt", _corrupt_report(_truncate_json), r"check.json: not valid JSON \(line \d+, column \d+"),
     Case("report-csv-edited", _corrupt_report(_drop_error_column), r"errors.csv: .*error"),
+    Case("label-empty", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, label=" ", **SMALL),
+         r"`label` must be a non-empty string, got ' '"),
+    Case("figure-width", lambda: _figure_width("wide"), r"figure width 'wide' must be 'column', 'page' or a number of inches"),
+    Case("index-columns", lambda: _index_columns(["check", "time"]), r"index columns 'time' unknown; choose from check, test"),
 ]
 
 

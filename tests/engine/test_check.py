@@ -102,7 +102,7 @@ def test_reference_estimators_pass_every_target(garnet: rlrates.TabularMDP, esti
     assert set(result.fits["factor"]) == {"n"} | ({"horizon"} if claim.horizon is not None else set())
     assert list(result.table.columns) == ["gamma", "H", "n", "replicate", "error", "seconds"]
     ci = BUDGETS["ci"]
-    assert set(result.table["gamma"]) == set(ci.gammas)
+    assert set(result.table["gamma"]) == (set(ci.gammas) if target != "model" else {min(ci.gammas)})  # model: n only
     assert set(ci.n_grid) <= set(result.table["n"])
 
 
@@ -112,6 +112,17 @@ def test_model_error_is_max_l1_distance(garnet: rlrates.TabularMDP) -> None:
     result = rlrates.check(reference.empirical_model, garnet, rlrates.Claim(n=-0.5), target="model", seed=0)
     means = result.table.groupby("n")["error"].mean()
     assert (means <= 3 * np.sqrt((3 - 1) / means.index.to_numpy())).all()
+
+
+def test_model_target_is_swept_over_n_only(garnet: rlrates.TabularMDP) -> None:
+    """The empirical model's L1 error does not involve the discount (its definition), so one discount suffices;
+    gammas given by the caller are kept."""
+    result = rlrates.check(reference.empirical_model, garnet, rlrates.Claim(n=-0.5), target="model", seed=0)
+    assert set(result.table["gamma"]) == {min(BUDGETS["ci"].gammas)}
+    assert result.budget.gammas == (min(BUDGETS["ci"].gammas),)
+    both = rlrates.check(reference.empirical_model, garnet, rlrates.Claim(n=-0.5), target="model", seed=0,
+                         gammas=(0.5, 0.9))
+    assert set(both.table["gamma"]) == {0.5, 0.9}
 
 
 def test_mean_absolute_norm_is_smaller_than_sup_norm(garnet: rlrates.TabularMDP) -> None:
@@ -263,7 +274,7 @@ def test_a_failure_message_answers_the_four_questions(garnet: rlrates.TabularMDP
     assert re.search(r"why: +(error floor|rate too slow)", text)  # why
     assert "mean error by n:" in text and "gamma=0.9" in text
     last = text.splitlines()[-1]
-    assert last.startswith("reproduce: rlrates.check(stale_buffer_q_pi")
+    assert last.startswith("reproduce: import rlrates; import zoo; rlrates.check(zoo.stale_buffer_q_pi")
     assert "seed=4" in last and "context='tests/test_x.py::test_y'" in last
 
 
@@ -271,6 +282,8 @@ def test_the_python_reproducer_reruns_the_same_check() -> None:
     mdp = rlrates.garnet(states=10, actions=2, branching=3, seed=1)
     result = rlrates.check(zoo.stale_buffer_q_pi, mdp, CLAIM, seed=4, n_grid=(128, 256, 512), replicates=8,
                            context="tests/test_x.py::test_y")
-    again = eval(result.run.reproducer, {"rlrates": rlrates, "stale_buffer_q_pi": zoo.stale_buffer_q_pi})
+    *imports, call = result.run.reproducer.split("; ")  # "import rlrates; import zoo; rlrates.check(zoo....)"
+    assert imports == ["import rlrates", "import zoo"]
+    again = eval(call, {"rlrates": rlrates, "zoo": zoo})
     pd.testing.assert_frame_equal(_numbers(result), _numbers(again))
     assert again.status == result.status

@@ -20,7 +20,7 @@ from report_checks import FAIL_ID, PASS_ID
 
 import rlrates
 from rlrates import CheckResult, RatesWarning, reference
-from rlrates.report import folder_name, read_check, rebuild, write_check
+from rlrates.report import check_folder_name, read_check, rebuild, write_check
 from rlrates.report.figure_data import NOT_DECIDED, cell_points, discount_slopes, horizon_points
 from rlrates.report.figures import build_figure
 from rlrates.result import Fit
@@ -121,13 +121,15 @@ def saved_failing(tmp_path_factory: pytest.TempPathFactory, failing: CheckResult
     return write_check(failing, tmp_path_factory.mktemp("report"), FAIL_ID)
 
 
-def test_figure_is_readable(saved_failing: Path) -> None:
+@pytest.mark.parametrize(("width", "size"), [("page", (7.0, 3.1)), ("column", (3.4, 4.4)), (None, (7.0, 3.1))])
+def test_figure_is_readable(saved_failing: Path, width: str | None, size: tuple[float, float]) -> None:
+    """8 pt text at print size (common practice for figures in a paper), nothing overlapping or cut off."""
     saved = read_check(saved_failing)
-    figure = build_figure(saved.errors, saved.record)
+    figure = build_figure(saved.errors, saved.record, width)
     assert figure is not None
     figure.canvas.draw()
     renderer = figure.canvas.get_renderer()  # type: ignore[attr-defined]
-    assert tuple(figure.get_size_inches()) == (7.0, 2.8)
+    assert tuple(figure.get_size_inches()) == pytest.approx(size)
     texts = [t for t in figure.findobj(Text) if isinstance(t, Text) and t.get_text() and t.get_visible()]
     assert len(texts) > 20 and min(float(t.get_fontsize()) for t in texts) >= 8
     (legend,) = figure.legends
@@ -178,6 +180,98 @@ def test_write_check_draws_from_memory_the_same_bytes_as_rebuild(monkeypatch: py
     drawn = {name: (folder / name).read_bytes() for name in ("figure.png", "figure.pdf")}
     copy = Path(shutil.copytree(folder.parent, tmp_path / "second"))
     for name in drawn:
-        (copy / folder_name(PASS_ID) / name).unlink()
+        (copy / check_folder_name(PASS_ID) / name).unlink()
     rebuild(copy)
-    assert {name: (copy / folder_name(PASS_ID) / name).read_bytes() for name in drawn} == drawn
+    assert {name: (copy / check_folder_name(PASS_ID) / name).read_bytes() for name in drawn} == drawn
+
+
+def test_titles_state_the_tested_limit_and_the_levels(saved_failing: Path) -> None:
+    saved = read_check(saved_failing)
+    figure = build_figure(saved.errors, saved.record, "column")
+    assert figure is not None
+    (n_fit,) = [Fit.from_dict(f) for f in saved.record["fits"] if f["factor"] == "n"]
+    title = figure.axes[0].get_title(loc="left")
+    minus = "\u2212"
+    assert f"tested limit {n_fit.limit:+.2f} = claim {n_fit.claimed:+g} + {n_fit.tolerance:g}".replace("-", minus) in title
+    assert f"bounds at {100 * n_fit.low_level:.4g}% / {100 * n_fit.high_level:.4g}%" in title
+
+
+def test_a_users_font_size_and_figure_size_win(saved_failing: Path) -> None:
+    """A style that sets font.size and figure.figsize (as a style sheet or matplotlibrc would) is honoured."""
+    import matplotlib
+
+    saved = read_check(saved_failing)
+    with matplotlib.rc_context({"font.size": 11.0, "font.family": "serif", "figure.figsize": (6.0, 4.0)}):
+        figure = build_figure(saved.errors, saved.record)
+    assert figure is not None
+    assert tuple(figure.get_size_inches()) == pytest.approx((6.0, 4.0))
+    title = figure.axes[0].title if figure.axes[0].get_title() else figure.axes[0]._left_title  # noqa: SLF001
+    assert figure.axes[0]._left_title.get_fontsize() >= 11.0  # noqa: SLF001  ("large" relative to 11 pt)
+    assert figure.axes[0]._left_title.get_fontfamily() == ["serif"]  # noqa: SLF001
+    assert title is not None
+
+
+@pytest.mark.parametrize("bad", ["wide", "0.5", "nan", "30"])
+def test_bad_figure_width_is_refused_by_name(bad: str) -> None:
+    from rlrates.report.figures import figure_width
+
+    with pytest.raises(ValueError, match=f"figure width '{bad}' must be"):
+        figure_width(bad)
+
+
+def test_an_exact_check_draws_no_line_through_rounding_noise() -> None:
+    """Cells whose error vanished (zero) carry rounding noise of 1e-16: no points, no fitted or claimed line."""
+    table = power_law_table()
+    table["error"] = 1e-16 * (1 + table["replicate"])
+    record = power_law_record()
+    record["cells"] = [dict(cell, zero=True, usable=True, fitted=False, left_out="zero error") for cell in record["cells"]]
+    record["fits"] = [Fit("n", exponent=float("nan"), se=float("nan"), low=float("nan"), high=float("nan"),
+                          low_level=0.99, high_level=0.95, claimed=-0.5, tolerance=0.15, detectable=float("nan"),
+                          verdict="exact").to_dict()]
+    figure = build_figure(table, record)
+    assert figure is not None
+    assert all(len(line.get_xdata()) == 0 for ax in figure.axes for line in ax.get_lines())
+    assert "every mean error is zero: exact here" in [t.get_text() for ax in figure.axes for t in ax.texts]
+    labels = legend_texts(figure)
+    assert "$\\gamma$=0.5, H=2: no point drawn (zero error)" in labels
+    assert not any("claimed" in label or "slope" in label for label in labels)
+
+
+def test_no_slopes_in_the_legend_when_the_n_exponent_is_not_measurable() -> None:
+    record = power_law_record()
+    record["fits"] = [Fit("n", exponent=float("nan"), se=float("nan"), low=float("nan"), high=float("nan"),
+                          low_level=0.99, high_level=0.95, claimed=-0.5, tolerance=0.15, detectable=float("nan"),
+                          verdict="unclear").to_dict()]
+    figure = build_figure(power_law_table(), record)
+    assert figure is not None
+    assert figure.axes[0].get_title(loc="left").startswith("(a) n-exponent not measurable")
+    labels = legend_texts(figure)
+    assert "$\\gamma$=0.5, H=2" in labels and "$\\gamma$=0.9, H=10" in labels
+    assert not any("n-slope" in label for label in labels)
+
+
+def test_every_power_of_two_of_a_long_grid_is_labelled() -> None:
+    n = np.repeat(2 ** np.arange(6, 14), 2)
+    table = pd.DataFrame({"gamma": 0.5, "H": 2.0, "n": n, "replicate": np.tile([0, 1], 8),
+                          "error": 3.0 * n ** -0.5, "seconds": 0.0})
+    record = power_law_record()
+    record["cells"] = [mark(0.5, int(v)) for v in 2 ** np.arange(6, 14)]
+    record["slopes"] = record["slopes"][:1]
+    figure = build_figure(table, record, "column")
+    assert figure is not None
+    figure.canvas.draw()
+    labels = [t.get_text() for t in figure.axes[0].get_xticklabels()]
+    assert labels == [f"$2^{{{k}}}$" for k in range(6, 14)]
+
+
+def test_y_ticks_thin_out_on_the_short_axes_of_a_column_figure(saved_failing: Path) -> None:
+    """Stacked panels at column width are short: at most four labelled y ticks each (about 0.3 in apart)."""
+    saved = read_check(saved_failing)
+    for width, most in (("column", 4), ("page", 5)):
+        figure = build_figure(saved.errors, saved.record, width)
+        assert figure is not None
+        figure.canvas.draw()
+        for ax in figure.axes:
+            low, high = ax.get_ylim()
+            shown = [t for t in ax.get_yticklabels() if t.get_text() and low <= t.get_position()[1] <= high]
+            assert 2 <= len(shown) <= most, (width, [t.get_text() for t in shown])

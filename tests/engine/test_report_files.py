@@ -25,7 +25,7 @@ from report_checks import ERROR_ID, FAIL_ID, PASS_ID, load, truncate_json
 
 import rlrates
 from rlrates import CheckResult, reference, report
-from rlrates.report import ReportError, ReportWarning, folder_name, read_check, rebuild, write_check
+from rlrates.report import ReportError, ReportWarning, check_folder_name, folder_name, read_check, rebuild, write_check
 from rlrates.result import FIT_KEYS, Fit
 from rlrates.sampling import draw_block, mdp_kernel, stream_context
 from rlrates.targets import estimate_error, solve_truth
@@ -49,14 +49,14 @@ def test_folder_names_are_safe_readable_and_distinct() -> None:
 
 
 def test_check_folder_holds_tables_and_figures(session: Path) -> None:
-    folder = session / folder_name(PASS_ID)
+    folder = session / check_folder_name(PASS_ID)
     assert sorted(p.name for p in folder.iterdir()) == ["check.json", "errors.csv", "figure.pdf", "figure.png"]
     assert (folder / "figure.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert (folder / "figure.pdf").read_bytes()[:5] == b"%PDF-"
 
 
 def test_errors_csv_is_the_raw_table_repr_exact(session: Path, passing: CheckResult) -> None:
-    saved = pd.read_csv(session / folder_name(PASS_ID) / "errors.csv")
+    saved = pd.read_csv(session / check_folder_name(PASS_ID) / "errors.csv")
     assert list(saved.columns) == TABLE_COLUMNS
     expected = passing.table[TABLE_COLUMNS].sort_values(["gamma", "n", "replicate"], ignore_index=True)
     pd.testing.assert_frame_equal(saved, expected, check_exact=True, check_dtype=False)
@@ -64,7 +64,7 @@ def test_errors_csv_is_the_raw_table_repr_exact(session: Path, passing: CheckRes
 
 
 def test_check_json_matches_the_result(session: Path, passing: CheckResult) -> None:
-    record = load(session / folder_name(PASS_ID))
+    record = load(session / check_folder_name(PASS_ID))
     assert record["schema"] == report.SCHEMA
     assert record["test_id"] == PASS_ID
     assert (record["status"], record["target"], record["norm"]) == ("pass", "q_pi", "sup")
@@ -90,7 +90,7 @@ def test_check_json_matches_the_result(session: Path, passing: CheckResult) -> N
 
 def test_check_json_records_the_fitted_cells_and_slopes(session: Path, failing: CheckResult) -> None:
     """``cells`` and ``slopes`` are the check's own summary and n-slopes, one entry per cell and per discount."""
-    record = load(session / folder_name(FAIL_ID))
+    record = load(session / check_folder_name(FAIL_ID))
     summary = failing.evidence.summary
     assert len(record["cells"]) == len(summary) == len(failing.table.groupby(["gamma", "n"])) > 0
     for cell, (_, row) in zip(record["cells"], summary.iterrows()):
@@ -106,7 +106,7 @@ def test_check_json_records_the_fitted_cells_and_slopes(session: Path, failing: 
 
 
 def test_provenance_versions_platform_and_timestamps(session: Path, passing: CheckResult) -> None:
-    record = load(session / folder_name(PASS_ID))
+    record = load(session / check_folder_name(PASS_ID))
     versions = record["environment"]["versions"]
     assert versions["rlrates"] == rlrates.__version__
     imported = {name: importlib.import_module(name).__version__ for name in ("numpy", "scipy", "pandas", "pytest", "matplotlib")}
@@ -138,7 +138,7 @@ def test_recorded_streams_rebuild_a_replicate_exactly(session: Path, garnet: rlr
                                                      passing: CheckResult) -> None:
     """check.json alone (seed, context, spawn keys, blocks) redraws a replicate and reproduces its error bit for bit."""
     assert passing.run.passes == 1  # a single-pass check: its blocks are known without help from the check
-    folder = session / folder_name(PASS_ID)
+    folder = session / check_folder_name(PASS_ID)
     record = load(folder)
     errors = pd.read_csv(folder / "errors.csv")
     row = errors[(errors["gamma"] == 0.9) & (errors["n"] == 512) & (errors["replicate"] == 5)].iloc[0]
@@ -157,7 +157,7 @@ def test_recorded_streams_rebuild_a_replicate_exactly(session: Path, garnet: rlr
 
 
 def test_erroring_check_keeps_its_rows_and_the_failure(session: Path, erroring: CheckResult) -> None:
-    folder = session / folder_name(ERROR_ID)
+    folder = session / check_folder_name(ERROR_ID)
     saved = read_check(folder)
     assert len(saved.errors) == len(erroring.table) > 0
     pd.testing.assert_frame_equal(saved.errors, erroring.table[TABLE_COLUMNS].reset_index(drop=True), check_exact=True)
@@ -196,7 +196,7 @@ def test_an_interrupted_write_keeps_the_previous_files(monkeypatch: pytest.Monke
 def test_without_matplotlib_tables_are_written_with_one_line(monkeypatch: pytest.MonkeyPatch, tmp_path: Path,
                                                              passing: CheckResult) -> None:
     monkeypatch.setitem(sys.modules, "matplotlib", None)
-    folder = tmp_path / folder_name(PASS_ID)
+    folder = tmp_path / check_folder_name(PASS_ID)
     folder.mkdir()
     (folder / "figure.png").write_bytes(b"stale figure of an older run")
     with pytest.warns(ReportWarning) as caught:

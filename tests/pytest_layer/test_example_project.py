@@ -12,6 +12,7 @@ import sys
 from pathlib import Path
 
 import pytest
+from report_checks import NEEDS_PDFLATEX, assert_paper_fits
 
 ROOT = Path(__file__).resolve().parents[2]
 
@@ -57,13 +58,22 @@ def test_the_example_project_passes_and_its_regression_stays_caught(report: tupl
     _, run = report
     assert run.returncode == 0, run.stdout + run.stderr
     assert re.search(r"\d+ passed, 1 xfailed", run.stdout), run.stdout
-    assert "FAIL (floor" in run.stdout  # the summary names why the kept regression fails
+    # the summary lists the kept regression as an expected failure and names why it fails
+    assert "failed as expected (xfail) (1):\n  test_chunked_evaluation_regression: " in run.stdout
+    assert "(floor, rate fired): fails: n-exponent" in run.stdout
+
+
+@NEEDS_PDFLATEX
+def test_the_index_drops_into_a_two_column_paper(report: tuple[Path, subprocess.CompletedProcess[str]],
+                                                 tmp_path: Path) -> None:
+    directory, _ = report
+    assert_paper_fits(tmp_path, (directory / "index.tex").read_text(encoding="utf-8"))
 
 
 def test_the_index_lists_every_check_and_rebuilds_byte_for_byte(report: tuple[Path, subprocess.CompletedProcess[str]]) -> None:
     directory, run = report
     records = sorted(directory.glob("*/check.json"))
-    checks = int(re.search(r"(\d+) check\(s\):", run.stdout).group(1))  # type: ignore[union-attr]
+    checks = int(re.search(r"(\d+) rate check\(s\) in all:", run.stdout).group(1))  # type: ignore[union-attr]
     assert len(records) == checks >= 10
     index = (directory / "index.md").read_text()
     for path in records:

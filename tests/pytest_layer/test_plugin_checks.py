@@ -55,14 +55,18 @@ def test_correct_estimator_passes_and_two_bugs_fail_with_reasons(project: pytest
     assert "claimed:   error <~ n^-0.5 * H^2" in squared
     assert "Traceback" not in first_32 + squared  # pytrace=False: the message only
     summary = summary_lines(output)
-    assert summary[0].split() == ["verdict", "seconds", "target", "mdp", "test"]
-    heads = [line.split() for line in summary if "test_inner_verdicts.py::" in line]
-    assert [(h[0], h[-1]) for h in heads] == [
-        ("FAIL", "test_inner_verdicts.py::test_first_32"),
-        ("PASS", "test_inner_verdicts.py::test_plug_in"),
-        ("FAIL", "test_inner_verdicts.py::test_squared_discount"),
-    ]
-    assert "3 check(s): 1 pass, 2 fail;" in output
+    # grouped by verdict, failures first, one line per check in words, each failure followed by its rerun command
+    assert summary[0] == "failed (2):"
+    assert summary[1].startswith("  test_first_32: q_pi on garnet-S10-A2-b3-seed1 (floor, rate fired): fails: n-exponent ")
+    assert re.search(r"fails: n-exponent [+-]\d\.\d\d \[[+-]\d\.\d\d at 99\.5%, [+-]\d\.\d\d at 95%\], "
+                     r"tested limit -0\.35 \(claim -0\.5 \+ 0\.15\), would catch [+-]\d\.\d\d or above ", summary[1])
+    assert summary[2] == "      rerun alone: pytest test_inner_verdicts.py::test_first_32 --rlrates-seed=0 --rlrates-budget=ci"
+    assert summary[3].startswith("  test_squared_discount: ") and "H-exponent" in summary[3]
+    assert summary[5:7] == ["passed (1):", summary[6]] and summary[6].startswith("  test_plug_in: q_pi on ")
+    assert "holds: n-exponent " in summary[6] and len(summary) == 9  # a pass needs no rerun line
+    assert summary[7].startswith("3 rate check(s) in all: 1 pass, 2 fail; exponents are given as fitted [lower bound")
+    assert summary[8].startswith("Each command above reruns that check alone")
+    assert "seconds" not in "\n".join(summary)  # no timing column
     # the same records reach JUnit XML as properties
     properties = {
         case.get("name"): json.loads(prop.get("value", "{}"))
@@ -126,7 +130,9 @@ def test_estimator_exception_fails_with_its_traceback_and_the_cell(project: pyte
     assert "the estimator raised at gamma=0.5, n=512, replicate=0: RuntimeError: scratch buffer sized for 256" in section
     assert "estimator traceback:" in section
     assert re.search(r'File ".*estimators\.py", line \d+, in breaks_at_512', section)
-    assert "ERROR" in summary_lines(result.stdout.str())[1]
+    summary = summary_lines(result.stdout.str())
+    assert summary[0] == "estimator errors (1):"
+    assert summary[1].startswith("  test_breaks: q_pi on garnet-S10-A2-b3-seed1: the estimator raised at gamma=0.5, n=512")
 
 
 INCONCLUSIVE_TESTS = """
@@ -152,9 +158,9 @@ def test_inconclusive_fails_by_default_and_can_skip_but_never_pass(project: pyte
         skipped = project.runpytest("-rs", *flags)
         skipped.assert_outcomes(skipped=1)
         skipped.stdout.fnmatch_lines([
-            "SKIPPED *rlrates inconclusive within the 'tiny' budget: target q_pi on garnet-S10-A2-b3-seed1 (n *, claimed <= -0.5: *",
+            "SKIPPED *rlrates inconclusive within the 'tiny' budget: target q_pi on garnet-S10-A2-b3-seed1 (unclear: n-exponent *tested limit -0.35 (claim -0.5 + 0.15)*",
         ])
-        assert "INCONCLUSIVE" in summary_lines(skipped.stdout.str())[1]
+        assert summary_lines(skipped.stdout.str())[0] == "inconclusive (1):"
         assert "inconclusive checks skip" in skipped.stdout.str()
     explicit = project.runpytest("--rlrates-inconclusive=fail", "-o", "rlrates_inconclusive=skip")
     explicit.assert_outcomes(failed=1)  # the command line beats the ini key
@@ -242,3 +248,68 @@ def test_worker_processes_do_not_change_thenumbers(project: pytest.Pytester) -> 
     assert "2 worker processes per check" in pooled.stdout.str()
     name = "test_pool[garnet-S10-A2-b3]"
     assert seeded_lines(failure_section(pooled.stdout.str(), name)) == seeded_lines(failure_section(alone.stdout.str(), name))
+
+
+REPORT_TESTS = """
+import pytest
+import rlrates as rl
+from estimators import first_32, plug_in
+
+@pytest.mark.rlrates(n=-0.5, suite=["random"])
+def test_plug_in_on_the_garnets(rlrates, rlrates_mdp):
+    rlrates(plug_in, rlrates_mdp, replicates=8)
+
+@pytest.mark.xfail(strict=True, reason="kept regression")
+@pytest.mark.rlrates(n=-0.5, label="first-32 buffer")
+def test_kept_regression(rlrates):
+    rlrates(first_32, rl.garnet(10, 2, 3, seed=1))
+"""
+
+
+def test_report_rows_have_short_labels_expected_failures_and_distinct_folders(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner_report=REPORT_TESTS)
+    project.makeini("[pytest]\nrlrates_figure_width = column\n")
+    result = project.runpytest("--rlrates-report=report")
+    result.assert_outcomes(passed=3, xfailed=1)
+    report = project.path / "report"
+    folders = sorted(path.name for path in report.iterdir() if path.is_dir())
+    readable = sorted(name.rsplit("-", 1)[0] for name in folders)
+    # the three Garnets of the suite differ only at the end of their ids; their folders differ at a glance
+    assert readable == ["first-32-buffer", "test_plug_in_on_the_garnets-garnet-S10-A2-b3",
+                        "test_plug_in_on_the_garnets-garnet-S20-A4-b5", "test_plug_in_on_the_garnets-garnet-S30-A3-b10"]
+    records = {name: json.loads((report / name / "check.json").read_text()) for name in folders}
+    kept = next(r for r in records.values() if r["label"] == "first-32 buffer")
+    assert kept["expected"] == {"status": "fail", "strict": True, "reason": "kept regression"}
+    index = (report / "index.md").read_text(encoding="utf-8")
+    assert "| first-32 buffer | `test_inner_report.py::test_kept_regression` |" in index
+    assert "| expected failure (floor, rate) |" in index
+    tex = (report / "index.tex").read_text(encoding="utf-8")
+    assert r"first-\allowbreak{}32 buffer & " in tex and "expected failure (floor, rate)" in tex
+    assert "test_inner_report.py" not in tex.split(r"\begin{table}")[1]  # only in the comments above the float
+    # the ini key sized the figures for one column
+    matplotlib_image = pytest.importorskip("matplotlib.image")
+    (png,) = (report / name / "figure.png" for name in folders if name.startswith("first-32"))
+    height, width = matplotlib_image.imread(png).shape[:2]
+    assert width == 3.4 * 200  # inches times the report's 200 dpi
+    summary = summary_lines(result.stdout.str())
+    assert summary[0] == "failed as expected (xfail) (1):" and summary[1].startswith("  first-32 buffer: q_pi on ")
+    assert summary[2] == "passed (3):"
+    assert summary[3].startswith("  test_plug_in_on_the_garnets[garnet-S10-A2-b3]: q_pi on garnet-S10-A2-b3-seed1: holds: ")
+    # in the paper's table the label loses the [MDP] id, which the MDP column shows
+    assert r"test\_\allowbreak{}plug\_\allowbreak{}in\_\allowbreak{}on\_\allowbreak{}the\_\allowbreak{}garnets & garnet-" in tex
+
+
+def test_bad_figure_width_and_label_are_refused_by_name(project: pytest.Pytester) -> None:
+    bad_width = project.runpytest("--rlrates-figure-width=huge")
+    assert bad_width.ret == pytest.ExitCode.USAGE_ERROR
+    bad_width.stderr.fnmatch_lines(["*--rlrates-figure-width: figure width 'huge' must be 'column', 'page' or a number of inches*"])
+    project.makepyfile(test_inner_label="""
+        import pytest
+        from estimators import plug_in
+
+        @pytest.mark.rlrates(n=-0.5, label=3)
+        def test_bad(rlrates):
+            pass
+    """)
+    bad_label = project.runpytest()
+    bad_label.stdout.fnmatch_lines(["*@pytest.mark.rlrates on test_inner_label.py::test_bad: `label` must be a non-empty string, got 3*"])

@@ -63,7 +63,7 @@ def test_settings_come_from_options_over_ini_keys(project: pytest.Pytester) -> N
     from_options = project.runpytest("--rlrates-budget=ci", "--rlrates-seed=4", "--rlrates-report=elsewhere")
     assert (f"rlrates: budget ci, master seed 4 (rerun with --rlrates-seed=4); "
             f"reports to {project.path / 'elsewhere'}") in from_options.stdout.str()
-    assert "rlrates checks" not in from_options.stdout.str()  # no check ran: no summary section
+    assert "rate checks (rlrates)" not in from_options.stdout.str()  # no check ran: no summary section
 
 
 # --------------------------------------------------------------------------- listings and isolation

@@ -108,7 +108,9 @@ def pytest_terminal_summary(terminalreporter: Any, exitstatus: int, config: pyte
     if lines is None:
         return
     settings = session.settings
-    terminalreporter.write_sep("=", f"rlrates checks: budget {settings.budget}, master seed {settings.seed}")
+    terminalreporter.write_sep(
+        "=", f"rate checks (rlrates), budget {settings.budget}, master seed {settings.seed}"
+    )
     for line in lines:
         terminalreporter.write_line(line)
 
@@ -157,7 +159,7 @@ def pytest_itemcollected(item: pytest.Item) -> None:
 
 @pytest.fixture
 def rlrates(request: pytest.FixtureRequest) -> RatesRunner:
-    """Check an estimator's error rate: ``rlrates(estimator, mdp, claim=None, target=..., **options)``.
+    """Check an estimator's error rate: ``rlrates(estimator, mdp, claim=None, target=..., label=..., **options)``.
 
     Runs ``rlrates.check`` with the session's budget (``--rlrates-budget``),
     master seed (``--rlrates-seed``) and worker processes (``--rlrates-workers``);
@@ -167,8 +169,9 @@ def rlrates(request: pytest.FixtureRequest) -> RatesRunner:
     Returns the ``CheckResult`` when the claim holds; otherwise fails the test
     with the explanation and a one-line pytest command that reproduces it.
     An inconclusive check fails too, or skips with ``--rlrates-inconclusive=skip``;
-    it never passes. Further keyword options (``n_grid``, ``gammas``,
-    ``replicates``, ``norm``) go to ``rlrates.check``.
+    it never passes. ``label`` names the check in reports (default: the
+    marker's ``label=``, else the test's name). Further keyword options
+    (``n_grid``, ``gammas``, ``replicates``, ``norm``) go to ``rlrates.check``.
 
     The fixture argument hides the ``rlrates`` package inside the test, so a
     test module that needs both imports the package under another name::

@@ -1,11 +1,12 @@
 """The ``rlrates`` marker: validating and merging its arguments, and reading the markers of a test item.
 
 ``@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None,
-suite=None, mdps=None, policy=None, zero_level=None)``: the claim under test (an
+suite=None, mdps=None, policy=None, zero_level=None, label=None)``: the claim under test (an
 ``rlrates.Claim``, or its exponents ``n=`` / ``horizon=``), defaults for the ``rlrates``
 fixture (target, budget, policy: an (S, A) array or a callable ``mdp -> policy`` applied to
-each MDP; zero_level: the error that counts as zero), and the MDPs of ``rlrates_mdp`` (``suite=`` narrows the standard suite to member
-names or tags; ``mdps=`` replaces it with a list or a dict ``{id: mdp}``).
+each MDP; zero_level: the error that counts as zero), the MDPs of ``rlrates_mdp`` (``suite=``
+narrows the standard suite to member names or tags; ``mdps=`` replaces it with a list or a dict
+``{id: mdp}``), and ``label=``, the check's short name in reports (default: the test function's name).
 
 :func:`parse_marker` and :func:`merge_specs` are plain functions of the marker's
 arguments. The pytest layer validates every marker at collection, so a bad argument
@@ -36,11 +37,11 @@ MARKER = "rlrates"
 #: The marker's line in ``pytest --markers``.
 MARKER_HELP = (
     "rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None, suite=None, mdps=None, "
-    "policy=None, zero_level=None): the rate claim under test (an rlrates.Claim, or its exponents as n= "
-    "and horizon=) plus defaults for the `rlrates` fixture (target, budget, policy: an (S, A) array or a "
+    "policy=None, zero_level=None, label=None): the rate claim under test (an rlrates.Claim, or its exponents "
+    "as n= and horizon=) plus defaults for the `rlrates` fixture (target, budget, policy: an (S, A) array or a "
     "callable mdp -> policy, zero_level: the error that counts as zero); suite= narrows the standard "
     "MDP suite of `rlrates_mdp` to member names or tags, mdps= replaces it with your own MDPs "
-    "(a list, or a dict {id: mdp})."
+    "(a list, or a dict {id: mdp}); label= names the check in reports (default: the test function's name)."
 )
 
 
@@ -48,7 +49,7 @@ class MarkerError(ValueError):
     """A ``@pytest.mark.rlrates`` argument is unusable; the message names it and the test."""
 
 
-MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "budget", "suite", "mdps", "policy", "zero_level")
+MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "budget", "suite", "mdps", "policy", "zero_level", "label")
 
 
 @dataclass(frozen=True)
@@ -61,6 +62,7 @@ class MarkerSpec:
     members: tuple[SuiteMember, ...] | None = None
     policy: Any = None
     zero_level: float | None = None
+    label: str | None = None
 
 
 def _bad(where: str, text: str) -> MarkerError:
@@ -106,6 +108,9 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
     budget = kwargs.get("budget")
     if budget is not None and not isinstance(budget, Budget) and budget not in BUDGETS:
         raise _bad(where, f"unknown `budget` {budget!r}; choose one of {', '.join(BUDGETS)} or pass an rlrates.Budget")
+    label = kwargs.get("label")
+    if label is not None and (not isinstance(label, str) or not label.strip()):
+        raise _bad(where, f"`label` must be a non-empty string, got {label!r}")
     if kwargs.get("suite") is not None and kwargs.get("mdps") is not None:
         raise _bad(where, "give `suite=` (narrow the standard suite) or `mdps=` (replace it), not both")
     members: tuple[SuiteMember, ...] | None = None
@@ -119,7 +124,8 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
     except SuiteError as exc:
         raise _bad(where, str(exc)) from None
     return MarkerSpec(claim=claim, target=target, budget=budget, members=members,
-                      policy=_policy(kwargs.get("policy"), where), zero_level=_zero_level(kwargs.get("zero_level"), where))
+                      policy=_policy(kwargs.get("policy"), where),
+                      zero_level=_zero_level(kwargs.get("zero_level"), where), label=label)
 
 
 def _policy(policy: Any, where: str) -> Any:
@@ -154,7 +160,7 @@ def merge_specs(specs: Iterable[MarkerSpec]) -> MarkerSpec:
     """Combine markers, closest first (function over class over module): the first one that says a thing wins."""
     merged: dict[str, Any] = {}
     for spec in specs:
-        for name in ("claim", "target", "budget", "members", "policy", "zero_level"):
+        for name in ("claim", "target", "budget", "members", "policy", "zero_level", "label"):
             value = getattr(spec, name)
             if value is not None and name not in merged:
                 merged[name] = value

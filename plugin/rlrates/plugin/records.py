@@ -16,13 +16,14 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, fields
 from typing import TYPE_CHECKING, Any
 
+from ..fit_words import BOUNDS_NOTE, fit_words
 from ..result import Fit
 from ..vocabulary import STATUSES
 
 if TYPE_CHECKING:  # pragma: no cover
     from ..result import CheckResult
 
-__all__ = ["CheckRecord", "format_summary"]
+__all__ = ["CheckRecord", "SUMMARY_GROUPS", "check_line", "format_summary"]
 
 
 @dataclass(frozen=True)
@@ -30,6 +31,7 @@ class CheckRecord:
     """What the session summary shows about one check."""
 
     test: str
+    label: str
     status: str
     target: str
     mdp: str
@@ -41,11 +43,15 @@ class CheckRecord:
     budget: str
     passes: int
     calls: int
+    rerun: str
+    problem: str
+    expected_fail: bool = False
 
     @classmethod
-    def from_result(cls, result: CheckResult, test: str) -> CheckRecord:
+    def from_result(cls, result: CheckResult, test: str, rerun: str = "", expected_fail: bool = False) -> CheckRecord:
         return cls(
             test=test,
+            label=result.run.label or test.rsplit("::", 1)[-1],
             status=result.status,
             target=result.target,
             mdp=result.mdp.name,
@@ -56,7 +62,10 @@ class CheckRecord:
             seed=int(result.seed),
             budget=result.budget.name,
             passes=int(result.run.passes),
-            calls=int(len(result.table)),
+            calls=int(result.estimator_calls),
+            rerun=rerun,
+            problem=result.failure.describe() if result.failure is not None else "",
+            expected_fail=expected_fail,
         )
 
     def to_json(self) -> str:
@@ -76,37 +85,48 @@ class CheckRecord:
         return cls(fits=fits, fired=fired, **data)
 
 
-def _verdict_word(record: CheckRecord) -> str:
-    word = record.status.upper()
-    if record.status == "fail" and record.fired:
-        word += f" ({', '.join(record.fired)})"
-    return word
+#: The groups of the summary, in order (failures first), with their headings.
+SUMMARY_GROUPS = (("fail", "failed"), ("error", "estimator errors"), ("inconclusive", "inconclusive"),
+                  ("expected", "failed as expected (xfail)"), ("pass", "passed"))
+
+
+def _group(record: CheckRecord) -> str:
+    return "expected" if record.expected_fail and record.status == "fail" else record.status
+
+
+def check_line(record: CheckRecord) -> str:
+    """One check in words: its label, what ran on what, then each fit's verdict, exponent, bounds and tested limit."""
+    head = f"{record.label}: {record.target} on {record.mdp}"
+    if record.status == "error":
+        return f"{head}: {record.problem or 'the estimator failed'} (after {record.calls} estimator call(s))"
+    fired = f" ({', '.join(record.fired)} fired)" if record.fired else ""
+    words = "; ".join(fit_words(fit) for fit in record.fits) or "nothing fitted"
+    return f"{head}{fired}: {words}"
 
 
 def format_summary(records: Iterable[CheckRecord]) -> list[str] | None:
-    """The lines of the terminal summary, sorted by test id; ``None`` when there were no checks.
+    """The lines of the terminal summary, grouped by verdict (failures first); ``None`` when there were no checks.
 
-    One heading line per check (verdict, seconds, target, MDP, test id), then one
-    indented line per fitted factor.
+    Each group has a heading with its count, then one line per check in words;
+    a check that did not pass is followed by the command that reruns it alone.
     """
     ordered = sorted(records, key=lambda r: r.test)
     if not ordered:
         return None
-    words = [_verdict_word(r) for r in ordered]
-    verdict_width = max(len("verdict"), *(len(w) for w in words))
-    target_width = max(len("target"), *(len(r.target) for r in ordered))
-    mdp_width = max(len("mdp"), *(len(r.mdp) for r in ordered))
-    lines = [f"{'verdict':<{verdict_width}}  {'seconds':>7}  {'target':<{target_width}}  {'mdp':<{mdp_width}}  test"]
-    indent = " " * (verdict_width + 11)
-    for record, word in zip(ordered, words):
-        lines.append(
-            f"{word:<{verdict_width}}  {record.seconds:>7.2f}  {record.target:<{target_width}}  "
-            f"{record.mdp:<{mdp_width}}  {record.test}"
-        )
-        for fit in record.fits:
-            lines.append(f"{indent}{fit.describe()}")
+    lines: list[str] = []
+    for status, heading in SUMMARY_GROUPS:
+        group = [r for r in ordered if _group(r) == status]
+        if not group:
+            continue
+        lines.append(f"{heading} ({len(group)}):")
+        for record in group:
+            lines.append(f"  {check_line(record)}")
+            if status not in ("pass", "expected") and record.rerun:
+                lines.append(f"      rerun alone: {record.rerun}")
     counts = Counter(r.status for r in ordered)
     tally = ", ".join(f"{counts[s]} {s}" for s in STATUSES if counts[s])
-    total = sum(r.seconds for r in ordered)
-    lines.append(f"{len(ordered)} check(s): {tally}; {total:.2f} s in checks")
+    lines.append(f"{len(ordered)} rate check(s) in all: {tally}; {BOUNDS_NOTE}.")
+    if any(_group(r) not in ("pass", "expected") for r in ordered):
+        lines.append("Each command above reruns that check alone with the same streams; another master seed "
+                     "gives an independent retest.")
     return lines

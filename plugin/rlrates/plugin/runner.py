@@ -46,9 +46,37 @@ def reproduce_command(config: pytest.Config, nodeid: str, seed: int, budget: str
     return f"pytest {shlex.quote(target)} {SEED_OPTION}={seed} {BUDGET_OPTION}={budget}"
 
 
+def expected_failure(item: pytest.Item) -> dict[str, Any] | None:
+    """``{"status": "fail", "strict": ..., "reason": ...}`` when the item is marked xfail (condition true), else ``None``.
+
+    A condition given as a string is not evaluated here: such a mark counts as expected only
+    when pytest's own evaluation would not be needed (no conditions, or all of them true).
+    """
+    for mark in item.iter_markers("xfail"):
+        conditions = mark.args or ((mark.kwargs["condition"],) if "condition" in mark.kwargs else ())
+        if all(not isinstance(c, str) and bool(c) for c in conditions):
+            strict = mark.kwargs.get("strict", item.config.getini("xfail_strict"))
+            return {"status": "fail", "strict": bool(strict), "reason": str(mark.kwargs.get("reason", ""))}
+    return None
+
+
+def check_label(item: pytest.Item, given: str | None, count: int) -> str:
+    """The check's short name: the one given (marker or call), else the test's name (function and parameters).
+
+    A marker label on a parametrised test keeps the parameter id; the second and later checks of one
+    test get ``#2``, ``#3``, ...
+    """
+    name = item.name
+    params = name[name.index("["):] if "[" in name and name.endswith("]") else ""
+    label = name if given is None else (given if given.endswith(params) else given + params)
+    return label if count == 1 else f"{label}#{count}"
+
+
 def skip_reason(record: CheckRecord, reproducer: str) -> str:
     """Why an inconclusive check skips its test (with ``--rlrates-inconclusive=skip``)."""
-    fits = "; ".join(fit.describe() for fit in record.fits) or "nothing fitted"
+    from ..fit_words import fit_words
+
+    fits = "; ".join(fit_words(fit) for fit in record.fits) or "nothing fitted"
     return (
         f"rlrates inconclusive within the {record.budget!r} budget: target {record.target} on {record.mdp} "
         f"({fits}); reproduce: {reproducer}"
@@ -82,13 +110,14 @@ class RatesRunner:
     def _report(self, result: CheckResult) -> None:
         """Keep the result; write its report folder when the session has a report directory."""
         self.results.append(result)
-        report_dir = self._session.settings.report_dir
-        if report_dir is not None:
+        settings = self._session.settings
+        if settings.report_dir is not None:
             from ..report import figures_available, write_check
 
             nodeid = self._item.nodeid
-            label = nodeid if len(self.results) == 1 else f"{nodeid}#{len(self.results)}"
-            write_check(result, report_dir, label, figures=figures_available())
+            test_id = nodeid if len(self.results) == 1 else f"{nodeid}#{len(self.results)}"
+            write_check(result, settings.report_dir, test_id, figures=figures_available(),
+                        expected=expected_failure(self._item), figure_width=settings.figure_width)
 
     def _refuse_session_owned(self, check_options: dict[str, Any]) -> None:
         __tracebackhide__ = True
@@ -109,6 +138,7 @@ class RatesRunner:
         target: str | None = None,
         policy: Any = None,
         budget: str | Budget | None = None,
+        label: str | None = None,
         **check_options: Any,
     ) -> CheckResult:
         __tracebackhide__ = True
@@ -141,6 +171,7 @@ class RatesRunner:
                 executor=self._session.executor(),
                 context=nodeid,
                 reproducer=self.reproducer,
+                label=check_label(self._item, label or spec.label, len(self.results) + 1),
                 **check_options,
             )
         except (TypeError, ValueError) as exc:
@@ -158,7 +189,8 @@ class RatesRunner:
         __tracebackhide__ = True
         from .records import CheckRecord
 
-        record = CheckRecord.from_result(result, self._item.nodeid)
+        record = CheckRecord.from_result(result, self._item.nodeid, self.reproducer,
+                                         expected_failure(self._item) is not None)
         self._item.user_properties.append((PROPERTY_NAME, record.to_json()))
         if result.status == "pass":
             return result

@@ -20,6 +20,7 @@ import pytest
 
 __all__ = [
     "BUDGET_OPTION", "SEED_OPTION", "REPORT_OPTION", "WORKERS_OPTION", "INCONCLUSIVE_OPTION", "SUITE_OPTION",
+    "FIGURE_WIDTH_OPTION",
     "INCONCLUSIVE_CHOICES", "BUDGET_NAMES", "DEFAULT_SEED", "RANDOM_SEED", "WORKER_SEED_KEY",
     "RatesSettings", "add_options", "resolve_settings",
 ]
@@ -30,6 +31,7 @@ REPORT_OPTION = "--rlrates-report"
 WORKERS_OPTION = "--rlrates-workers"
 INCONCLUSIVE_OPTION = "--rlrates-inconclusive"
 SUITE_OPTION = "--rlrates-suite"
+FIGURE_WIDTH_OPTION = "--rlrates-figure-width"
 INCONCLUSIVE_CHOICES = ("fail", "skip")
 #: The names of ``rlrates.BUDGETS``, spelled out so that ``--help`` needs no import.
 BUDGET_NAMES = ("ci", "appendix")
@@ -95,6 +97,16 @@ def _parse_inconclusive(text: str) -> str:
     return text
 
 
+def _parse_figure_width(text: str) -> str:
+    from ..report.figures import figure_width  # imported only when the setting is given
+
+    try:
+        figure_width(text)
+    except ValueError as exc:
+        raise argparse.ArgumentTypeError(str(exc)) from None
+    return text.strip().lower()
+
+
 def add_options(parser: pytest.Parser) -> None:
     """Register the ``--rlrates-...`` options and the ``rlrates_...`` ini keys (for ``pytest_addoption``)."""
     group = parser.getgroup("rlrates", "rate checks of tabular RL estimators (pytest-rlrates)")
@@ -127,6 +139,11 @@ def add_options(parser: pytest.Parser) -> None:
         help="comma-separated member names or tags of the standard MDP suite that rlrates_mdp runs over, "
         "e.g. random,chain (default: every stochastic member; ini key rlrates_suite). A marker's suite= or mdps= still wins.",
     )
+    group.addoption(
+        FIGURE_WIDTH_OPTION, dest="rlrates_figure_width", type=_parse_figure_width, default=None, metavar="WIDTH",
+        help="width of report figures: column (3.4 in, panels stacked), page (7 in, the default) or a number "
+        "of inches (ini key rlrates_figure_width).",
+    )
     parser.addini("rlrates_budget", "rlrates: default sweep budget (ci or appendix).", type="string", default="")
     parser.addini("rlrates_seed", f"rlrates: default master seed (integer >= 0 or '{RANDOM_SEED}').", type="string",
                   default="")
@@ -134,6 +151,8 @@ def add_options(parser: pytest.Parser) -> None:
                   type="string", default="")
     parser.addini("rlrates_workers", "rlrates: worker processes per check (integer >= 1).", type="string", default="")
     parser.addini("rlrates_inconclusive", "rlrates: fail or skip a test whose check is inconclusive.",
+                  type="string", default="")
+    parser.addini("rlrates_figure_width", "rlrates: width of report figures (column, page or inches).",
                   type="string", default="")
     parser.addini("rlrates_suite", "rlrates: member names or tags of the standard MDP suite that "
                   "rlrates_mdp runs over (default: all).", type="args", default=[])
@@ -152,6 +171,7 @@ class RatesSettings:
     inconclusive: str = "fail"
     report_dir: Path | None = None
     suite: tuple[str, ...] | None = None
+    figure_width: str | None = None
 
 
 def _from_ini(config: pytest.Config, name: str, parse: Callable[[str], Any]) -> Any:
@@ -216,4 +236,5 @@ def resolve_settings(config: pytest.Config) -> RatesSettings:
         inconclusive=_setting(config, "rlrates_inconclusive", _parse_inconclusive, "fail"),
         report_dir=report_dir,
         suite=suite,
+        figure_width=_setting(config, "rlrates_figure_width", _parse_figure_width, None),
     )

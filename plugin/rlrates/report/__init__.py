@@ -27,7 +27,7 @@ Pure: no pytest import; matplotlib is optional.
 
 from __future__ import annotations
 
-from .checks import SavedCheck, read_check, rebuild, write_check
+from .checks import SavedCheck, check_folder_name, read_check, rebuild, write_check
 from .figures import FIGURES_SKIPPED, figures_available
 from .files import (
     ERRORS_FILE, FIGURE_FILES, INDEX_FILES, RECORD_FILE, ReportError, ReportWarning, find_checks, folder_name,
@@ -38,5 +38,6 @@ from .schema import SCHEMA
 __all__ = [
     "SCHEMA", "ERRORS_FILE", "RECORD_FILE", "FIGURE_FILES", "INDEX_FILES", "FIGURES_SKIPPED",
     "ReportError", "ReportWarning", "SavedCheck",
-    "folder_name", "write_check", "read_check", "find_checks", "write_index", "rebuild", "figures_available",
+    "folder_name", "check_folder_name", "write_check", "read_check", "find_checks", "write_index", "rebuild",
+    "figures_available",
 ]

@@ -22,30 +22,44 @@ if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
     from matplotlib.figure import Figure
 
-__all__ = ["NOTE_COLOUR", "log_ticks", "finish_log_axes", "add_legend", "empty_panel"]
+__all__ = ["NOTE_COLOUR", "STACK_BELOW", "log_ticks", "finish_log_axes", "add_legend", "empty_panel"]
 
 #: The colour of notes and reference markers.
 NOTE_COLOUR = "#555555"
 
 _MANTISSAS = ((1.0,), (1.0, 2.0, 5.0), (1.0, 2.0, 3.0, 5.0), (1.0, 1.5, 2.0, 3.0, 4.0, 5.0, 6.0, 8.0))
 _MINIMUM_SPAN = 2.5
+#: Figures narrower than this (inches) stack their two panels instead of setting them side by side.
+STACK_BELOW = 5.0
 
 
 def _tick_text(value: float) -> str:
     return str(int(value)) if float(value).is_integer() else f"{value:.3g}"
 
 
+def _powers_of_two(values: np.ndarray) -> bool:
+    exponents = np.log2(values)
+    return bool(np.all(values > 0) and np.allclose(exponents, np.round(exponents)))
+
+
 def _label_ticks(axis: Any, values: np.ndarray, ticker: ModuleType, most: int = 6) -> None:
-    """Ticks at the data's own values, labelled as plain numbers (every other one when crowded)."""
+    """Ticks at the data's own values, labelled as plain numbers.
+
+    When crowded, powers of two are all labelled in the short form $2^{k}$; other values
+    are labelled every other one.
+    """
     values = np.unique(values)
-    step = math.ceil(len(values) / most)
-    labels = [_tick_text(v) if i % step == 0 else "" for i, v in enumerate(values)]
+    if len(values) > most and _powers_of_two(values):
+        labels = [f"$2^{{{int(round(math.log2(v)))}}}$" for v in values]
+    else:
+        step = math.ceil(len(values) / most)
+        labels = [_tick_text(v) if i % step == 0 else "" for i, v in enumerate(values)]
     axis.set_major_locator(ticker.FixedLocator(values))
     axis.set_major_formatter(ticker.FixedFormatter(labels))
     axis.set_minor_locator(ticker.NullLocator())
 
 
-def log_ticks(low: float, high: float) -> np.ndarray:
+def log_ticks(low: float, high: float, most: int = 7) -> np.ndarray:
     """Tick values in [low, high]: the sparsest of the 1 / 1-2-5 / ... ladders that gives at least three.
 
     The finest ladder steps by at most 1.5, so a range of a factor 2.5 (the least
@@ -58,13 +72,19 @@ def log_ticks(low: float, high: float) -> np.ndarray:
         ticks = values[(values >= low * (1 - 1e-9)) & (values <= high * (1 + 1e-9))]
         if len(ticks) >= 3:
             break
-    return ticks if len(ticks) <= 7 else ticks[:: math.ceil(len(ticks) / 7)]
+    return ticks if len(ticks) <= most else ticks[:: math.ceil(len(ticks) / most)]
 
 
 def _label_log_values(ax: "Axes", ticker: ModuleType) -> None:
     """Plain-number labels on the log y axis, at round values that fit its range."""
     low, high = ax.get_ylim()
-    ax.yaxis.set_major_locator(ticker.FixedLocator(log_ticks(low, high)))
+    # about one labelled tick per 0.3 in of axes height: an axes is about 55% of its row of the
+    # figure, and a narrow figure has two rows (its panels are stacked)
+    figure = ax.figure
+    width, height = figure.bbox.width / figure.dpi, figure.bbox.height / figure.dpi  # inches
+    rows = 2 if width < STACK_BELOW else 1
+    most = max(3, min(7, int(0.55 * height / rows / 0.3)))
+    ax.yaxis.set_major_locator(ticker.FixedLocator(log_ticks(low, high, most)))
     ax.yaxis.set_major_formatter(ticker.FuncFormatter(lambda v, _: f"{v:g}"))
     ax.yaxis.set_minor_locator(ticker.LogLocator(base=10.0, subs=tuple(range(1, 10))))
     ax.yaxis.set_minor_formatter(ticker.NullFormatter())

@@ -1,7 +1,11 @@
 """The figure of one check: two panels (see :mod:`rlrates.report.panels`), saved as PNG and PDF.
 
-Sized for the full text width of a two-column paper (7 x 2.8 in), with one
-legend outside both panels so it never covers data. Every discount has its own
+Sized for the full text width of a two-column paper ("page": 7 x 3.1 in, the
+panels side by side) or for one column ("column": 3.4 in wide, the panels one
+above the other), or any width in inches, with fonts of 8 pt at that print size
+and one legend outside the panels so it never covers data. A user's matplotlib
+style (a style sheet or matplotlibrc that sets fonts or the figure size) wins
+over these defaults: only settings still at matplotlib's defaults are changed. Every discount has its own
 colour and marker shape (Okabe-Ito palette, safe for colour-blind readers).
 
 A figure is a pure function of a check's error table and its record (the
@@ -23,7 +27,7 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from .axes import add_legend
+from .axes import STACK_BELOW, add_legend
 from .figure_data import cell_points
 from .files import FIGURE_FILES, write_atomic
 from .panels import Style, panel_horizon, panel_n
@@ -31,10 +35,16 @@ from .panels import Style, panel_horizon, panel_n
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.figure import Figure
 
-__all__ = ["FIGURE_SIZE", "FIGURES_SKIPPED", "load_matplotlib", "figures_available", "build_figure", "draw_figures"]
+__all__ = [
+    "FIGURE_SIZE", "FIGURE_WIDTHS", "FIGURES_SKIPPED", "figure_width", "load_matplotlib", "figures_available",
+    "build_figure", "draw_figures",
+]
 
-#: Width and height in inches: the full text width of a two-column paper.
-FIGURE_SIZE = (7.0, 2.8)
+#: Width and height in inches of a "page" figure: the full text width of a two-column paper.
+FIGURE_SIZE = (7.0, 3.1)
+#: The named widths in inches: the text width of a two-column paper, and one of its columns.
+FIGURE_WIDTHS = {"page": 7.0, "column": 3.4}
+
 #: The one line said when figures are skipped for want of matplotlib.
 FIGURES_SKIPPED = "figures skipped: install pytest-rlrates[plot] (matplotlib) to get them"
 
@@ -46,7 +56,7 @@ _METADATA = {"png": {"Software": None}, "pdf": {"CreationDate": None, "Producer"
 
 _STYLE: dict[str, Any] = {
     "font.size": 8,
-    "axes.titlesize": 8.5,
+    "axes.titlesize": 8,
     "axes.labelsize": 8.5,
     "xtick.labelsize": 8,
     "ytick.labelsize": 8,
@@ -85,18 +95,64 @@ def figures_available() -> bool:
     return load_matplotlib() is not None
 
 
+def figure_width(width: str | float | None) -> float | None:
+    """Inches for ``width`` ("column", "page", a number of inches as text or number; ``None``: not chosen).
+
+    Raises ``ValueError`` naming the value for anything else or a width outside 1 to 20 inches.
+    """
+    if width is None:
+        return None
+    if isinstance(width, str) and width.strip().lower() in FIGURE_WIDTHS:
+        return FIGURE_WIDTHS[width.strip().lower()]
+    try:
+        inches = float(width)
+    except (TypeError, ValueError):
+        raise ValueError(
+            f"figure width {width!r} must be 'column', 'page' or a number of inches"
+        ) from None
+    if not 1.0 <= inches <= 20.0:
+        raise ValueError(f"figure width {width!r} must be between 1 and 20 inches")
+    return inches
+
+
+_FONT_SIZES = ("font.size", "axes.titlesize", "axes.labelsize", "xtick.labelsize", "ytick.labelsize",
+               "legend.fontsize", "legend.title_fontsize")
+
+
+def _style(matplotlib: ModuleType) -> dict[str, Any]:
+    """The report's rc settings, minus those the user has set (differs from matplotlib's default).
+
+    A user who sets any font size keeps all of matplotlib's font sizes (they scale with ``font.size``).
+    """
+    current, default = matplotlib.rcParams, matplotlib.rcParamsDefault
+    user_sizes = any(current[key] != default[key] for key in _FONT_SIZES)
+    return {key: value for key, value in _STYLE.items()
+            if current[key] == default[key] and not (user_sizes and key in _FONT_SIZES)}
+
+
+def _size(matplotlib: ModuleType, width: float | None) -> tuple[float, float]:
+    """The figure size: the width chosen, else the user's figure.figsize, else the page size."""
+    if width is None:
+        user = tuple(matplotlib.rcParams["figure.figsize"])
+        if user != tuple(matplotlib.rcParamsDefault["figure.figsize"]):
+            return float(user[0]), float(user[1])
+        width = FIGURE_SIZE[0]
+    return (width, FIGURE_SIZE[1]) if width >= STACK_BELOW else (width, 2.2 * width / FIGURE_WIDTHS["column"] * 2.0)
+
+
 def _y_label(record: Mapping[str, Any]) -> str:
     norm, target = str(record["norm"]), str(record["target"])
     return f"{_NORM_WORDS.get(norm, norm)} {_ERROR_LABELS.get(target, 'error')}"
 
 
-def build_figure(table: pd.DataFrame, record: Mapping[str, Any]) -> "Figure | None":
+def build_figure(table: pd.DataFrame, record: Mapping[str, Any], width: str | float | None = None) -> "Figure | None":
     """The two-panel figure of one check, or ``None`` when matplotlib is missing.
 
     ``table`` is the tidy error table (the rows of ``errors.csv``); ``record`` the
     check's record (keys used: ``claim``, ``fits``, ``slopes``, ``cells``,
-    ``status``, ``failure``, ``target``, ``norm``).
+    ``status``, ``failure``, ``target``, ``norm``). ``width``: see :func:`figure_width`.
     """
+    inches = figure_width(width)
     matplotlib = load_matplotlib()
     if matplotlib is None:
         return None
@@ -108,10 +164,11 @@ def build_figure(table: pd.DataFrame, record: Mapping[str, Any]) -> "Figure | No
     cells = cell_points(table, record)
     gammas = sorted(float(g) for g in cells["gamma"].unique())
     style: Style = {g: (_COLOURS[i % len(_COLOURS)], _MARKERS[i % len(_MARKERS)]) for i, g in enumerate(gammas)}
-    with matplotlib.rc_context(_STYLE):
-        figure = Figure(figsize=FIGURE_SIZE, layout="constrained")
+    with matplotlib.rc_context(_style(matplotlib)):
+        size = _size(matplotlib, inches)
+        figure = Figure(figsize=size, layout="constrained")
         FigureCanvasAgg(figure)
-        left, right = figure.subplots(1, 2)
+        left, right = figure.subplots(*((1, 2) if size[0] >= STACK_BELOW else (2, 1)))
         discounts = panel_n(left, cells, record, style, ticker, Line2D)
         lines = discounts[len(style):] + panel_horizon(right, cells, record, style, ticker, Line2D)
         left.set_ylabel(_y_label(record))
@@ -119,9 +176,10 @@ def build_figure(table: pd.DataFrame, record: Mapping[str, Any]) -> "Figure | No
     return figure
 
 
-def draw_figures(folder: Path, table: pd.DataFrame, record: Mapping[str, Any]) -> list[Path]:
+def draw_figures(folder: Path, table: pd.DataFrame, record: Mapping[str, Any],
+                 width: str | float | None = None) -> list[Path]:
     """Write the figure files of one check into ``folder``; ``[]`` (and stale figures removed) without matplotlib."""
-    figure = build_figure(table, record)
+    figure = build_figure(table, record, width)
     if figure is None:
         for name in FIGURE_FILES:
             with suppress(FileNotFoundError):

@@ -23,6 +23,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
+from ..fit_words import percent
 from ..vocabulary import Factor
 from .axes import NOTE_COLOUR, empty_panel, finish_log_axes
 from .figure_data import discount_slopes, horizon_points
@@ -78,9 +79,13 @@ def _title(record: Mapping[str, Any], factor: Factor, label: str) -> str:
     fit = record_fit(record, factor)
     if fit is None:
         return f"no {factor} claim"
+    claimed = f"{fit.claimed:+g}".replace("-", "\u2212")
+    limit = f"tested limit {_signed(fit.limit)} = claim {claimed} + {fit.tolerance:g}"
     if not fit.measured:
-        return f"{label}-exponent not measurable, {fit.verdict}"
-    return f"{label}-exponent {_signed(fit.exponent)} [{_signed(fit.low)}, {_signed(fit.high)}], {fit.verdict}"
+        return f"{label}-exponent not measurable: {fit.verdict}\n{limit}"
+    levels = f"bounds at {percent(fit.low_level)} / {percent(fit.high_level)}"
+    return (f"{label}-exponent {_signed(fit.exponent)} [{_signed(fit.low)}, {_signed(fit.high)}]\n"
+            f"{levels}\n{limit}: {fit.verdict}")
 
 
 def _open_label(rows: pd.DataFrame) -> str:
@@ -91,19 +96,41 @@ def _open_label(rows: pd.DataFrame) -> str:
     return "(a) open: left out of the fits (" + ", ".join(dict.fromkeys(r.split(" (")[0] for r in reasons)) + ")"
 
 
-def _discount_handle(gamma: float, style: Style, slope: float | None, line: Any) -> Any:
+def _discount_handle(gamma: float, style: Style, slope: float | None, line: Any, *, drawn: bool = True,
+                     slopes_shown: bool = True) -> Any:
+    """A discount's legend entry: its own n-slope, unless the n-exponent was not measured or nothing is drawn."""
     colour, marker = style[gamma]
-    summary = "no n-slope" if slope is None else f"n-slope {_signed(slope)}"
-    return line([], [], color=colour, marker=marker, label=f"$\\gamma$={gamma:g}, H={1.0 / (1.0 - gamma):.3g}: {summary}")
+    name = f"$\\gamma$={gamma:g}, H={1.0 / (1.0 - gamma):.3g}"
+    if not drawn:
+        summary = ": no point drawn (zero error)"
+    elif not slopes_shown:
+        summary = ""
+    else:
+        summary = ": no n-slope" if slope is None else f": n-slope {_signed(slope)}"
+    return line([], [], color=colour, marker=marker, label=name + summary)
+
+
+def _exact(record: Mapping[str, Any], factor: Factor) -> bool:
+    """Whether the check found the error of ``factor`` exactly zero (a fit with verdict "exact")."""
+    fit = record_fit(record, factor)
+    return fit is not None and fit.verdict == "exact"
+
+
+def _slopes_shown(record: Mapping[str, Any]) -> bool:
+    """Per-discount slopes belong in the legend only when the n-exponent was measured (or not claimed)."""
+    fit = record_fit(record, "n")
+    return fit is None or fit.measured
 
 
 def panel_n(ax: "Axes", cells: pd.DataFrame, record: Mapping[str, Any], style: Style, ticker: ModuleType,
             line: Any) -> list[Any]:
     """Panel (a): mean error against n per discount; returns its legend handles (discounts first)."""
     claim = record["claim"]
-    positive = cells[cells["mean"] > 0]
+    positive = cells[(cells["mean"] > 0) & ~cells["zero"]]  # a zero cell's mean is rounding noise: not drawn
     slopes = discount_slopes(record)
-    handles = [_discount_handle(gamma, style, slopes.get(gamma), line) for gamma in style]
+    drawn = set(positive["gamma"].astype(float))
+    handles = [_discount_handle(gamma, style, slopes.get(gamma), line, drawn=gamma in drawn,
+                                slopes_shown=_slopes_shown(record)) for gamma in style]
     for gamma, (colour, marker) in style.items():
         rows = positive[positive["gamma"] == gamma]
         if not len(rows):
@@ -120,7 +147,7 @@ def panel_n(ax: "Axes", cells: pd.DataFrame, record: Mapping[str, Any], style: S
         return handles
     n_values, means = positive["n"].to_numpy(float), positive["mean"].to_numpy(float)
     shown = [means]
-    if len(np.unique(n_values)) >= 2:
+    if len(np.unique(n_values)) >= 2 and not _exact(record, "n"):
         slope = -0.5 if claim.get("n") is None else float(claim["n"])
         x, y = _through_geometric_mean(n_values, means, slope)
         ax.plot(x, y, **_REFERENCE_LINE)
@@ -147,13 +174,15 @@ def panel_horizon(ax: "Axes", cells: pd.DataFrame, record: Mapping[str, Any], st
                   line: Any) -> list[Any]:
     """Panel (b): mean error against H at the n of the check's H-fit; returns its legend handles."""
     claim = record["claim"]
+    finished = cells
+    cells = cells[~cells["zero"]]  # a zero cell's mean is rounding noise: not drawn, no line through it
     positive = cells[cells["mean"] > 0]
     at, fitted = horizon_points(cells)
     ax.set_title("(b) " + _title(record, "horizon", "H"), loc="left")
     ax.set_xlabel("effective horizon H = 1/(1$-\\gamma$)")
     handles: list[Any] = []
     if not len(at):
-        empty_panel(ax, _no_data_text(cells) if not len(positive) else "no n reached by every discount")
+        empty_panel(ax, _no_data_text(finished) if not len(positive) else "no n reached by every discount")
         return handles
     ax.set_ylabel(f"error at n={int(at['n'].iloc[0])}")
     h, m = at["H"].to_numpy(float), at["mean"].to_numpy(float)

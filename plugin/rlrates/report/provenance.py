@@ -31,7 +31,7 @@ from ..sampling import gamma_key, stable_words, stream_context
 if TYPE_CHECKING:  # pragma: no cover
     from ..result import CheckResult
 
-__all__ = ["json_safe", "frame_records", "environment", "git_commit", "streams"]
+__all__ = ["json_safe", "frame_records", "package_version", "environment", "git_commit", "streams"]
 
 
 def json_safe(value: Any) -> Any:
@@ -61,7 +61,8 @@ def frame_records(frame: pd.DataFrame) -> list[dict[str, Any]]:
     return [json_safe(row) for row in frame.to_dict("records")] if len(frame) else []
 
 
-def _version(distribution: str) -> str | None:
+def package_version(distribution: str) -> str | None:
+    """The installed version of ``distribution``, or ``None`` when it is not installed."""
     try:
         return importlib.metadata.version(distribution)
     except importlib.metadata.PackageNotFoundError:
@@ -85,7 +86,7 @@ def environment() -> dict[str, Any]:
         "versions": {
             "rlrates": __version__,
             "python": platform.python_version(),
-            **{name: _version(name) for name in ("numpy", "scipy", "pandas", "pytest", "matplotlib")},
+            **{name: package_version(name) for name in ("numpy", "scipy", "pandas", "pytest", "matplotlib")},
         },
         "platform": platform.platform(),
         "python": sys.version,

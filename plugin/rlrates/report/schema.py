@@ -4,6 +4,10 @@ Top-level keys (schema ``rlrates-check/3``)::
 
     schema        "rlrates-check/3"
     test_id       the pytest node id (or any id the caller gives)
+    label         the check's short name in reports (given, or the last part of test_id)
+    expected      "fail" when the test was marked xfail (``strict`` says whether strictly), else "pass"
+    estimator     {qualname, module, importable, import_problem, source_file, source_sha256,
+                  packages {distribution: version} of what the estimator's module imports}
     status        "pass" | "fail" | "inconclusive" | "error"
     fired         sub-tests that fired: "rate", "floor", "horizon"
     reasons       why the verdict, one sentence per item
@@ -24,9 +28,10 @@ Top-level keys (schema ``rlrates-check/3``)::
                   per-discount spawn-key prefixes, replicate blocks
     mdp           {name, metadata, fingerprints {repr(gamma): hex}, scales {repr(gamma): error scale}}
     run           {started, finished (UTC ISO 8601), elapsed_seconds, estimator_seconds,
-                  passes, estimator_calls}
+                  passes, estimator_calls (the rows, plus a call that raised or returned an invalid estimate)}
     environment   {versions {rlrates, python, numpy, scipy, pandas, pytest, matplotlib},
-                  platform, python, implementation, machine, git_commit}
+                  platform, python, implementation, machine, git_commit}; gymnasium's
+                  version too when the MDP was imported from a gymnasium environment
     failure       null, or {gamma, n, replicate, kind, message, traceback, description}
     reproducer    the call that reproduces the check
     message       the check's full explanation
@@ -51,14 +56,15 @@ from typing import TYPE_CHECKING, Any
 from ..result import FIT_KEYS, Fit
 from ..vocabulary import ERROR_COLUMNS, STATUSES, Factor
 from .files import ERRORS_FILE, ReportError, read_text
-from .provenance import environment, frame_records, json_safe, streams
+from .provenance import environment, frame_records, json_safe, package_version, streams
 
 if TYPE_CHECKING:  # pragma: no cover
     import pandas as pd
 
     from ..result import CheckResult
 
-__all__ = ["SCHEMA", "CELL_KEYS", "check_record", "record_text", "read_record", "record_fit"]
+__all__ = ["SCHEMA", "CELL_KEYS", "default_label", "record_label", "check_record", "record_text", "read_record",
+           "record_fit"]
 
 #: Version tag of ``check.json``; readers refuse other versions.
 SCHEMA = "rlrates-check/3"
@@ -114,16 +120,41 @@ def _run(result: "CheckResult", rows: int) -> dict[str, Any]:
         "elapsed_seconds": float(result.run.elapsed),
         "estimator_seconds": float(result.run.estimator_seconds),
         "passes": int(result.run.passes),
-        "estimator_calls": rows,
+        "estimator_calls": result.estimator_calls,
     }
 
 
+def default_label(test_id: str) -> str:
+    """A check's short name from its id: the part after the last ``::`` (the test function), without a path."""
+    return test_id.rsplit("::", 1)[-1].rsplit("/", 1)[-1] or test_id
+
+
+def record_label(record: Mapping[str, Any]) -> str:
+    """The short name of a (validated) record's check."""
+    label = record.get("label")
+    return label if isinstance(label, str) and label else default_label(str(record["test_id"]))
+
+
+def _environment(result: "CheckResult") -> dict[str, Any]:
+    found = environment()
+    if result.mdp.metadata.get("source") == "gymnasium":
+        found["versions"]["gymnasium"] = package_version("gymnasium")
+    return found
+
+
 def check_record(result: "CheckResult", test_id: str, errors_sha256: str, rows: int,
-                 extra: Mapping[str, Any] | None = None) -> dict[str, Any]:
-    """The content of ``check.json`` for one check (see the module docstring for the keys)."""
+                 extra: Mapping[str, Any] | None = None, expected: Mapping[str, Any] | None = None) -> dict[str, Any]:
+    """The content of ``check.json`` for one check (see the module docstring for the keys).
+
+    ``expected`` is ``{"status": "fail", "strict": bool, "reason": str}`` for a
+    test marked xfail, else ``None`` (expected to pass).
+    """
     return {
         "schema": SCHEMA,
         "test_id": test_id,
+        "label": result.run.label or default_label(test_id),
+        "expected": json_safe(dict(expected)) if expected else {"status": "pass", "strict": False, "reason": ""},
+        "estimator": json_safe(dict(result.run.estimator)),
         "status": result.status,
         "fired": list(result.fired),
         "reasons": list(result.reasons),
@@ -148,7 +179,7 @@ def check_record(result: "CheckResult", test_id: str, errors_sha256: str, rows: 
             "scales": _by_discount(result.mdp.scales),
         },
         "run": _run(result, rows),
-        "environment": environment(),
+        "environment": _environment(result),
         "failure": _failure(result),
         "reproducer": result.run.reproducer,
         "message": result.message,
