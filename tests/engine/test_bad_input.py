@@ -88,6 +88,52 @@ def _report_dir_under_a_file() -> None:
             raise ValueError(str(exc)) from None
 
 
+def _report_dir_with(make: Callable[[Path], None]) -> Callable[[], None]:
+    """Prepare a report directory after ``make`` put something of a user's (or another session's) into it."""
+    def trigger() -> None:
+        import tempfile
+
+        from rlrates.plugin.session import prepare_report_dir
+
+        with tempfile.TemporaryDirectory() as tmp:
+            make(Path(tmp))
+            try:
+                prepare_report_dir(Path(tmp) / "reports", controller=True)
+            except pytest.UsageError as exc:
+                raise ValueError(str(exc)) from None
+
+    return trigger
+
+
+def _users_folder(tmp: Path) -> None:
+    (tmp / "reports" / "api").mkdir(parents=True)
+    (tmp / "reports" / "api" / "check.json").write_text("{}")
+    (tmp / "reports" / "index.md").write_text("# my docs")
+
+
+def _linked_folder(tmp: Path) -> None:
+    (tmp / "reports").mkdir()
+    (tmp / "reports" / "linked").symlink_to(tmp, target_is_directory=True)
+
+
+def _live_lock(tmp: Path) -> None:
+    import os
+
+    (tmp / "reports").mkdir()
+    (tmp / "reports" / ".rlrates-lock").write_text(f"{os.getppid()} another-session\n")
+
+
+def _hand_written_index() -> None:
+    import tempfile
+
+    from rlrates.report import write_index
+
+    with tempfile.TemporaryDirectory() as tmp:
+        _saved_report(Path(tmp))
+        (Path(tmp) / "index.md").write_text("# my own index")
+        write_index(tmp)
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -166,6 +212,11 @@ CATALOGUE = [
     Case("time-limit", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, time_limit=-1), r"`time_limit` must be a positive number of seconds, got -1"),
     Case("estimator-not-picklable", _process_pool_with_a_lambda, r"cannot be pickled, so it cannot be sent to the ProcessPoolExecutor.*module-level function"),
     Case("report-dir-not-writable", _report_dir_under_a_file, r"--rlrates-report: cannot write to the report directory .*occupied/reports"),
+    Case("report-dir-foreign", _report_dir_with(_users_folder),
+         r"--rlrates-report: not written by rlrates, so left alone: .*reports/api, .*reports/index.md"),
+    Case("report-dir-symlink", _report_dir_with(_linked_folder), r"not written by rlrates, so left alone: .*reports/linked"),
+    Case("report-dir-locked", _report_dir_with(_live_lock), r"in use by another rlrates session \(pid \d+, lock file"),
+    Case("report-index-hand-written", _hand_written_index, r"index.md; refusing to overwrite index.md"),
     Case("report-json-corrupt", _corrupt_report(_truncate_json), r"check.json: not valid JSON \(line \d+, column \d+"),
     Case("report-csv-edited", _corrupt_report(_drop_error_column), r"errors.csv: .*error"),
 ]

@@ -127,3 +127,108 @@ def test_interrupted(rlrates):
     rows = (folder / "errors.csv").read_text().strip().splitlines()[1:]
     assert len(rows) >= 2 * 24  # the cells at n = 128 and 256 of the first discount were finished
     assert {int(re.split(",", row)[2]) for row in rows} <= {128, 256}
+
+
+# --------------------------------------------------------------------------- whose files, one session at a time
+# (common practice: a tool removes only what it can show it wrote, and never follows a link out of its directory)
+
+
+def test_a_report_directory_with_someone_elses_files_is_refused_and_left_alone(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + TESTS["b"])
+    docs = project.path / "docs"
+    (docs / "api").mkdir(parents=True)
+    (docs / "api" / "check.json").write_text('{"an": "API example"}')
+    (docs / "api" / "NOTES.txt").write_text("my notes")
+    (docs / "index.md").write_text("# Hand-written docs\n")
+    before = {p: p.read_bytes() for p in docs.rglob("*") if p.is_file()}
+    result = project.runpytest_subprocess("--rlrates-report=docs")
+    assert result.ret == pytest.ExitCode.USAGE_ERROR
+    result.stderr.fnmatch_lines(["*--rlrates-report: not written by rlrates*docs/api, *docs/index.md; *"])
+    assert "INTERNALERROR" not in result.stderr.str() + result.stdout.str()
+    assert {p: p.read_bytes() for p in docs.rglob("*") if p.is_file()} == before
+
+
+def test_a_symlinked_folder_in_the_report_directory_is_a_usage_error(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + TESTS["b"])
+    first = project.runpytest_subprocess("--rlrates-report=out")
+    first.assert_outcomes(passed=1)
+    elsewhere = project.path / "elsewhere"
+    elsewhere.mkdir()
+    (elsewhere / "check.json").write_text("{}")
+    (project.path / "out" / "linked").symlink_to(elsewhere, target_is_directory=True)
+    result = project.runpytest_subprocess("--rlrates-report=out")
+    assert result.ret == pytest.ExitCode.USAGE_ERROR
+    result.stderr.fnmatch_lines(["*not written by rlrates*out/linked*"])
+    assert "INTERNALERROR" not in result.stderr.str() + result.stdout.str()
+    assert (elsewhere / "check.json").read_text() == "{}"
+
+
+def test_a_second_run_replaces_only_its_own_earlier_checks(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + TESTS["a"] + TESTS["b"])
+    project.runpytest_subprocess("--rlrates-report=out").assert_outcomes(passed=2)
+    project.makepyfile(test_inner=HEADER + TESTS["b"])
+    project.runpytest_subprocess("--rlrates-report=out").assert_outcomes(passed=1)
+    ids = {json.loads(p.read_text())["test_id"] for p in (project.path / "out").glob("*/check.json")}
+    assert ids == {"test_inner.py::test_b"}  # test_a's folder was the plugin's own: removed
+    # a file a user drops into one of the plugin's folders makes the next run refuse, naming it
+    (folder,) = [p.parent for p in (project.path / "out").glob("*/check.json")]
+    (folder / "NOTES.txt").write_text("my reading of the figure")
+    result = project.runpytest_subprocess("--rlrates-report=out")
+    assert result.ret == pytest.ExitCode.USAGE_ERROR
+    result.stderr.fnmatch_lines([f"*not written by rlrates*{folder.name}/NOTES.txt*"])
+    assert (folder / "NOTES.txt").read_text() == "my reading of the figure"
+
+
+def test_a_report_directory_locked_by_a_live_session_is_refused_naming_its_pid(project: pytest.Pytester) -> None:
+    import os
+    import subprocess
+    import sys
+
+    project.makepyfile(test_inner=HEADER + TESTS["b"])
+    (project.path / "out").mkdir()
+    lock = project.path / "out" / ".rlrates-lock"
+    lock.write_text(f"{os.getpid()} other-session\n")  # this outer process is alive
+    result = project.runpytest_subprocess("--rlrates-report=out")
+    assert result.ret == pytest.ExitCode.USAGE_ERROR
+    result.stderr.fnmatch_lines([f"*in use by another rlrates session (pid {os.getpid()}*"])
+    assert lock.read_text() == f"{os.getpid()} other-session\n"
+    # a lock whose process has exited is stale: taken over, and released at the end of the session
+    gone = subprocess.Popen([sys.executable, "-c", "pass"])
+    gone.wait()
+    lock.write_text(f"{gone.pid} crashed-session\n")
+    project.runpytest_subprocess("--rlrates-report=out").assert_outcomes(passed=1)
+    assert not lock.exists()
+    assert len(list((project.path / "out").glob("*/check.json"))) == 1
+
+
+def test_two_sessions_at_once_on_one_report_directory(project: pytest.Pytester) -> None:
+    """The second session is refused up front; the first writes its whole report."""
+    import subprocess
+    import sys
+    import time
+
+    project.makepyfile(test_slow=HEADER + '''
+import time
+
+def slow_plug_in(batch, problem):
+    time.sleep(0.002)
+    return plug_in(batch, problem)
+
+@pytest.mark.rlrates(n=-0.5)
+def test_slow(rlrates):
+    rlrates(slow_plug_in, rl.chain(8))
+''')
+    project.makepyfile(test_quick=HEADER + TESTS["b"])
+    command = [sys.executable, "-m", "pytest", "-p", "no:cacheprovider", "--rlrates-report=out"]
+    first = subprocess.Popen([*command, "test_slow.py"], cwd=project.path, stdout=subprocess.PIPE, stderr=subprocess.STDOUT)
+    lock = project.path / "out" / ".rlrates-lock"
+    deadline = time.monotonic() + 60
+    while not lock.exists() and time.monotonic() < deadline:
+        time.sleep(0.05)
+    second = subprocess.run([*command, "test_quick.py"], cwd=project.path, capture_output=True, text=True, timeout=120)
+    output, _ = first.communicate(timeout=180)
+    assert second.returncode == pytest.ExitCode.USAGE_ERROR, second.stdout + second.stderr
+    assert f"pid {first.pid}" in second.stderr
+    assert first.returncode == 0, output.decode()
+    ids = {json.loads(p.read_text())["test_id"] for p in (project.path / "out").glob("*/check.json")}
+    assert ids == {"test_slow.py::test_slow"} and (project.path / "out" / "index.md").is_file()

@@ -44,6 +44,7 @@ class RatesSession:
     built: dict[str, Any] = field(default_factory=dict)
     _seen: dict[str, int] = field(default_factory=dict)
     _executor: Executor | None = None
+    _lock: Any = None  # the report directory's ReportLock, held by the controller
 
     def executor(self) -> Executor | None:
         """The session's process pool, created on first use when workers > 1."""
@@ -67,6 +68,9 @@ class RatesSession:
         if self._executor is not None:
             self._executor.shutdown(wait=True, cancel_futures=True)
             self._executor = None
+        if self._lock is not None:
+            self._lock.release()
+            self._lock = None
 
     def pytest_runtest_logreport(self, report: pytest.TestReport) -> None:
         texts = [value for name, value in report.user_properties if name == PROPERTY_NAME]
@@ -86,8 +90,13 @@ class RatesSession:
 _SESSION = pytest.StashKey[RatesSession]()
 
 
-def prepare_report_dir(directory: Path, controller: bool) -> None:
-    """Make sure the report directory is writable; on the controller, clear earlier sessions' checks."""
+def prepare_report_dir(directory: Path, controller: bool) -> Any:
+    """Make sure the report directory is writable; on the controller, lock it and clear earlier sessions' checks.
+
+    Returns the controller's lock (``None`` on a pytest-xdist worker). Only what
+    the plugin wrote is removed; a directory holding anything else, or locked
+    by another live session, is a usage error naming the files or the pid.
+    """
     try:
         directory.mkdir(parents=True, exist_ok=True)
         probe = directory / f".rlrates-write-test-{os.getpid()}"
@@ -98,21 +107,27 @@ def prepare_report_dir(directory: Path, controller: bool) -> None:
             f"{REPORT_OPTION}: cannot write to the report directory {directory}: {exc.strerror or exc}"
         ) from None
     if not controller:
-        return
-    import shutil
+        return None
+    from ..report.files import ReportError, clear_own
+    from ..report.lock import lock_report_dir
 
-    for old in directory.iterdir():  # only folders this plugin wrote: they hold a check.json
-        if old.is_dir() and (old / "check.json").is_file():
-            shutil.rmtree(old)
-    for name in ("index.md", "index.tex"):
-        (directory / name).unlink(missing_ok=True)
+    try:
+        lock = lock_report_dir(directory)
+    except ReportError as exc:
+        raise pytest.UsageError(f"{REPORT_OPTION}: {exc}") from None
+    try:
+        clear_own(directory)
+    except (ReportError, OSError) as exc:
+        lock.release()
+        raise pytest.UsageError(f"{REPORT_OPTION}: {exc}") from None
+    return lock
 
 
 def start_session(config: pytest.Config) -> RatesSession:
     """Resolve the settings, prepare the report directory, keep the session in the stash and register it."""
     session = RatesSession(resolve_settings(config))
     if session.settings.report_dir is not None:
-        prepare_report_dir(session.settings.report_dir, controller=not hasattr(config, "workerinput"))
+        session._lock = prepare_report_dir(session.settings.report_dir, controller=not hasattr(config, "workerinput"))
     config.stash[_SESSION] = session
     config.pluginmanager.register(session, "rlrates-session")
     return session
