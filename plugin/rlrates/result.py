@@ -151,6 +151,8 @@ class CellFailure:
             return f"the estimator raised at {where}: {self.message}"
         if self.kind == "interrupted":
             return f"interrupted (KeyboardInterrupt) at {where}; the rows finished before it are kept"
+        if self.kind == "crashed":
+            return f"the cell at {where} never finished: {self.message}; the rows finished before it are kept"
         return f"invalid estimate at {where}: {self.message}"
 
 

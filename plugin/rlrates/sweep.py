@@ -7,9 +7,12 @@ drawn in one vectorised call from the block's own stream
 :func:`rlrates.sampling.block_seed`, so the numbers do not depend on execution
 order or on the executor.
 
-An estimator that raises, or returns something invalid, does not stop the
-session: the cell records a :class:`CellFailure` naming (gamma, n, replicate)
-with the estimator's own traceback, and everything computed so far is kept.
+An estimator that raises (even ``SystemExit`` or ``GeneratorExit``), or returns
+something invalid, does not stop the session: the cell records a
+:class:`CellFailure` naming (gamma, n, replicate) with the estimator's own
+traceback, and everything computed so far is kept. A cell the executor loses (a
+worker process that dies, a killed cluster worker) is a ``"crashed"`` failure
+naming that cell, with the rows of the cells finished before it.
 """
 
 from __future__ import annotations
@@ -17,7 +20,7 @@ from __future__ import annotations
 import time
 import traceback
 from collections.abc import Iterable, Iterator, Mapping
-from concurrent.futures import Executor, Future
+from concurrent.futures import BrokenExecutor, CancelledError, Executor, Future
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
@@ -120,7 +123,7 @@ def run_cell(task: CellTask) -> CellOutcome:
         except KeyboardInterrupt:  # keep what is done; rate_check re-raises after recording it
             outcome.failure = CellFailure(truth.gamma, task.n, replicate, "interrupted", "KeyboardInterrupt", "")
             return outcome
-        except Exception as exc:  # the estimator's own bug: record it, keep the session alive
+        except (Exception, SystemExit, GeneratorExit) as exc:  # the estimator's own bug: record it, keep the session alive
             outcome.failure = CellFailure(
                 truth.gamma, task.n, replicate, "raised", f"{type(exc).__name__}: {exc}",
                 "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)),
@@ -161,13 +164,40 @@ def _outcomes(tasks: list[CellTask], executor: Executor | None) -> Iterator[Cell
         for task in tasks:
             yield run_cell(task)
         return
-    futures: list[Future[CellOutcome]] = [executor.submit(run_cell, task) for task in tasks]
+    futures: list[Future[CellOutcome]] = []
     try:
-        for future in futures:
-            yield future.result()
+        for task in tasks:
+            try:
+                futures.append(executor.submit(run_cell, task))
+            except BrokenExecutor as exc:  # broken before this cell could even be sent
+                yield _lost(task, exc)
+                return
+        for task, future in zip(tasks, futures):
+            try:
+                outcome = future.result()
+            except (KeyboardInterrupt, CancelledError):
+                raise
+            except BaseException as exc:  # the executor lost the cell: its worker died, or the cluster failed
+                outcome = _lost(task, exc)
+            yield outcome  # outside the try: closing the generator here must not count as a lost cell
+            if outcome.failure is not None and outcome.failure.kind == "crashed":
+                return
     finally:
         for future in futures:
             future.cancel()
+
+
+def _lost(task: CellTask, exc: BaseException) -> CellOutcome:
+    """The outcome of a cell the executor could not run to the end (no rows: its replicates are unaccounted for)."""
+    if isinstance(exc, BrokenExecutor):
+        why = ("the worker process running it died (os._exit, a crash or the out-of-memory killer) and the "
+               f"process pool broke ({type(exc).__name__})")
+    else:
+        why = f"the executor failed while running it: {type(exc).__name__}: {exc}"
+    message = f"replicates {task.start}..{task.stop - 1} of this cell were lost: {why}"
+    detail = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+    return CellOutcome(task.truth.gamma, task.n, [], CellFailure(task.truth.gamma, task.n, task.start, "crashed",
+                                                                 message, detail))
 
 
 def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None) -> tuple[pd.DataFrame, CellFailure | None]:

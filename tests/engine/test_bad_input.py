@@ -60,6 +60,33 @@ def _slow(batch: Any, problem: Any) -> np.ndarray:
     return reference.plugin_q_pi(batch, problem)
 
 
+def _exits(batch: Any, problem: Any) -> np.ndarray:
+    if batch.n == 256:
+        raise SystemExit("estimator called sys.exit")
+    return reference.plugin_q_pi(batch, problem)
+
+
+def _generator_exit(batch: Any, problem: Any) -> np.ndarray:
+    if batch.n == 256:
+        raise GeneratorExit
+    return reference.plugin_q_pi(batch, problem)
+
+
+def _kills_its_process(batch: Any, problem: Any) -> np.ndarray:
+    if batch.n == 256:
+        import os
+
+        os._exit(3)
+    return reference.plugin_q_pi(batch, problem)
+
+
+def _worker_dies() -> str:
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=2) as pool:
+        return _run(_kills_its_process, executor=pool)
+
+
 _SHARED = np.zeros((6, 2))
 
 
@@ -205,6 +232,9 @@ CATALOGUE = [
     Case("return-bad-action", _returns(lambda p: np.full(6, 5), "policy"), r"picks action 5 in state 0; valid actions are 0..1"),
     Case("return-model-rows", _returns(lambda p: np.full((6, 2, 6), 0.2), "model"), r"model's row \(s=0, a=0\) sums to 1.2"),
     Case("estimator-raises", lambda: _run(_raises), r"raised at gamma=0.5, n=256, replicate=0: KeyError: 'missing successor table'(.|\n)*_raises"),
+    Case("estimator-system-exit", lambda: _run(_exits), r"raised at gamma=0.5, n=256, replicate=0: SystemExit: estimator called sys.exit"),
+    Case("estimator-generator-exit", lambda: _run(_generator_exit), r"raised at gamma=0.5, n=256, replicate=0: GeneratorExit"),
+    Case("worker-died", _worker_dies, r"the cell at gamma=0.5, n=256, replicate=0 never finished: replicates 0..3 of this cell were lost: the worker process running it died"),
     Case("estimator-mutates", lambda: _run(_mutates), r"raised at gamma=0.5, n=128, replicate=0: ValueError: assignment destination is read-only"),
     Case("estimator-too-slow", lambda: _run(_slow, time_limit=0.005), r"at gamma=0.5, n=128, replicate=0: the call took .* over the per-call time limit of 0.005 s"),
     Case("estimator-same-object", lambda: _run(_same_object), r"replicate=1: the estimator returned the same array object"),

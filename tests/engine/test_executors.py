@@ -76,3 +76,29 @@ def test_a_dask_cluster_matches_serial(garnet: rlrates.TabularMDP, serial: rlrat
         clustered = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, seed=3, executor=executor)
     pd.testing.assert_frame_equal(_numbers(serial), _numbers(clustered), check_exact=True)
     assert clustered.status == serial.status
+
+
+def _dies_at_512(batch: Any, problem: Any) -> np.ndarray:
+    """A worker-killing bug: the process exits at n = 512 without raising anything."""
+    if batch.n >= 512:
+        import os
+
+        os._exit(3)
+    return reference.plugin_q_pi(batch, problem)
+
+
+def test_a_worker_that_dies_is_an_error_naming_the_cell_with_the_rows_before_it(garnet: rlrates.TabularMDP,
+                                                                                 serial: rlrates.CheckResult) -> None:
+    """Common practice: a lost process is reported where it happened, and the finished work survives."""
+    with ProcessPoolExecutor(max_workers=2) as pool:
+        result = rlrates.check(_dies_at_512, garnet, CLAIM, seed=3, executor=pool)
+    assert result.status == "error"
+    failure = result.failure
+    assert failure is not None and failure.kind == "crashed"
+    assert (failure.gamma, failure.n, failure.replicate) == (min(result.budget.gammas), 512, 0)
+    assert "worker process running it died" in result.message and "gamma=0.5, n=512" in result.message
+    # the cells finished before it are kept, and equal the serial run's rows for those cells
+    kept = _numbers(result)
+    assert len(kept) > 0 and set(kept["n"]) <= {128, 256}
+    expected = _numbers(serial).merge(kept[["gamma", "n", "replicate"]], on=["gamma", "n", "replicate"])
+    pd.testing.assert_frame_equal(kept.reset_index(drop=True), expected, check_exact=True)

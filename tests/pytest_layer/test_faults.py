@@ -29,6 +29,17 @@ def interrupted_at_large_n(batch, problem):
     if batch.n >= 512:
         raise KeyboardInterrupt
     return plug_in(batch, problem)
+
+def exits_at_large_n(batch, problem):
+    if batch.n >= 512:
+        import os
+        os._exit(3)
+    return plug_in(batch, problem)
+
+def system_exit_at_large_n(batch, problem):
+    if batch.n >= 512:
+        raise SystemExit(2)
+    return plug_in(batch, problem)
 '''
 
 TESTS = {
@@ -49,7 +60,13 @@ def test_broken(rlrates):
 ''',
 }
 
-HEADER = "import pytest\nimport rlrates as rl\nfrom estimators import plug_in, raises, interrupted_at_large_n\n"
+def _garnet_test(name: str, estimator: str) -> str:
+    """An inner test that checks ``estimator`` on a 10-state Garnet against the claim n^-0.5."""
+    return f"\n@pytest.mark.rlrates(n=-0.5)\ndef {name}(rlrates):\n    rlrates({estimator}, rl.garnet(10, 2, 3, seed=1))\n"
+
+
+HEADER = ("import pytest\nimport rlrates as rl\n"
+          "from estimators import plug_in, raises, interrupted_at_large_n, exits_at_large_n, system_exit_at_large_n\n")
 
 
 @pytest.fixture
@@ -113,11 +130,7 @@ def test_an_erroring_check_still_writes_its_raw_table(project: pytest.Pytester) 
 
 
 def test_an_interrupt_mid_sweep_keeps_the_rows_on_disk_and_ends_cleanly(project: pytest.Pytester) -> None:
-    project.makepyfile(test_inner=HEADER + '''
-@pytest.mark.rlrates(n=-0.5)
-def test_interrupted(rlrates):
-    rlrates(interrupted_at_large_n, rl.garnet(10, 2, 3, seed=1))
-''')
+    project.makepyfile(test_inner=HEADER + _garnet_test("test_interrupted", "interrupted_at_large_n"))
     result = project.runpytest_subprocess("--rlrates-report=out")
     assert result.ret == pytest.ExitCode.INTERRUPTED
     result.stdout.fnmatch_lines(["*KeyboardInterrupt*"])
@@ -232,3 +245,34 @@ def test_slow(rlrates):
     assert first.returncode == 0, output.decode()
     ids = {json.loads(p.read_text())["test_id"] for p in (project.path / "out").glob("*/check.json")}
     assert ids == {"test_slow.py::test_slow"} and (project.path / "out" / "index.md").is_file()
+
+
+# --------------------------------------------------------------------------- estimators that take their process down
+
+
+def _check_folders(root: Path) -> dict[str, Path]:
+    return {json.loads(p.read_text())["test_id"]: p.parent for p in root.glob("*/check.json")}
+
+
+def test_a_dead_worker_is_an_error_naming_its_cell_and_the_next_check_gets_a_new_pool(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + _garnet_test("test_dies", "exits_at_large_n") + TESTS["b"])
+    result = project.runpytest_subprocess("--rlrates-workers=2", "--rlrates-report=out")
+    result.assert_outcomes(passed=1, failed=1)
+    output = result.stdout.str()
+    assert "BrokenProcessPool" not in output.split("short test summary")[-1]
+    result.stdout.fnmatch_lines(["*the cell at gamma=0.5, n=512, replicate=0 never finished*worker process running it died*"])
+    folders = _check_folders(project.path / "out")
+    record = json.loads((folders["test_inner.py::test_dies"] / "check.json").read_text())
+    assert (record["status"], record["failure"]["kind"], record["failure"]["n"]) == ("error", "crashed", 512)
+    assert record["data"]["rows"] > 0  # the cells at n = 128 and 256 were kept
+    assert json.loads((folders["test_inner.py::test_b"] / "check.json").read_text())["status"] == "pass"
+
+
+def test_system_exit_in_an_estimator_is_an_estimator_error(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + _garnet_test("test_exits", "system_exit_at_large_n") + TESTS["b"])
+    result = project.runpytest_subprocess("--rlrates-report=out")
+    result.assert_outcomes(passed=1, failed=1)
+    result.stdout.fnmatch_lines(["*the estimator raised at gamma=0.5, n=512, replicate=0: SystemExit: 2*"])
+    result.stdout.fnmatch_lines(["*rlrates checks: *", "ERROR*test_inner.py::test_exits"])
+    record = json.loads((_check_folders(project.path / "out")["test_inner.py::test_exits"] / "check.json").read_text())
+    assert record["status"] == "error" and record["data"]["rows"] > 0

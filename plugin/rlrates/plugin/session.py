@@ -47,9 +47,12 @@ class RatesSession:
     _lock: Any = None  # the report directory's ReportLock, held by the controller
 
     def executor(self) -> Executor | None:
-        """The session's process pool, created on first use when workers > 1."""
+        """The session's process pool, created on first use when workers > 1, and rebuilt when a worker died."""
         if self.settings.workers <= 1:
             return None
+        if self._executor is not None and not _usable(self._executor):
+            self._executor.shutdown(wait=False, cancel_futures=True)
+            self._executor = None
         if self._executor is None:
             from concurrent.futures import ProcessPoolExecutor
 
@@ -88,6 +91,17 @@ class RatesSession:
 
 
 _SESSION = pytest.StashKey[RatesSession]()
+
+
+def _usable(executor: Executor) -> bool:
+    """Whether ``executor`` still takes work: a pool whose worker died refuses every submit with BrokenExecutor."""
+    from concurrent.futures import BrokenExecutor
+
+    try:
+        executor.submit(os.getpid)
+    except (BrokenExecutor, RuntimeError):  # RuntimeError: shut down
+        return False
+    return True
 
 
 def prepare_report_dir(directory: Path, controller: bool) -> Any:
