@@ -21,6 +21,7 @@ import time
 import traceback
 from collections.abc import Iterable, Iterator, Mapping
 from concurrent.futures import BrokenExecutor, CancelledError, Executor, Future
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
@@ -172,11 +173,14 @@ def _outcomes(tasks: list[CellTask], executor: Executor | None) -> Iterator[Cell
             except BrokenExecutor as exc:  # broken before this cell could even be sent
                 yield _lost(task, exc)
                 return
-        for task, future in zip(tasks, futures):
+        for index, (task, future) in enumerate(zip(tasks, futures)):
             try:
                 outcome = future.result()
             except (KeyboardInterrupt, CancelledError):
                 raise
+            except BrokenProcessPool:  # a dead worker breaks every cell in flight: find the one that killed it
+                yield from _one_by_one(tasks[index:])
+                return
             except BaseException as exc:  # the executor lost the cell: its worker died, or the cluster failed
                 outcome = _lost(task, exc)
             yield outcome  # outside the try: closing the generator here must not count as a lost cell
@@ -187,11 +191,31 @@ def _outcomes(tasks: list[CellTask], executor: Executor | None) -> Iterator[Cell
             future.cancel()
 
 
-def _lost(task: CellTask, exc: BaseException) -> CellOutcome:
+def _one_by_one(tasks: list[CellTask]) -> Iterator[CellOutcome]:
+    """Rerun the cells a broken pool lost, in order, each alone in a fresh one-worker pool, up to the one that dies.
+
+    Streams are seeded per cell, so a rerun gives the rows the lost run would have
+    given; the first cell whose worker dies again is the one named.
+    """
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=1) as alone:
+        for task in tasks:
+            try:
+                outcome = alone.submit(run_cell, task).result()
+            except BrokenExecutor as exc:
+                yield _lost(task, exc, "; it died again when the cell was rerun alone")
+                return
+            yield outcome
+            if outcome.failure is not None:
+                return
+
+
+def _lost(task: CellTask, exc: BaseException, confirmed: str = "") -> CellOutcome:
     """The outcome of a cell the executor could not run to the end (no rows: its replicates are unaccounted for)."""
     if isinstance(exc, BrokenExecutor):
-        why = ("the worker process running it died (os._exit, a crash or the out-of-memory killer) and the "
-               f"process pool broke ({type(exc).__name__})")
+        why = ("the worker process running it died (os._exit, a crash or the out-of-memory killer"
+               f"{confirmed}) and the process pool broke ({type(exc).__name__})")
     else:
         why = f"the executor failed while running it: {type(exc).__name__}: {exc}"
     message = f"replicates {task.start}..{task.stop - 1} of this cell were lost: {why}"

@@ -102,3 +102,4 @@ def test_a_worker_that_dies_is_an_error_naming_the_cell_with_the_rows_before_it(
     assert len(kept) > 0 and set(kept["n"]) <= {128, 256}
     expected = _numbers(serial).merge(kept[["gamma", "n", "replicate"]], on=["gamma", "n", "replicate"])
     pd.testing.assert_frame_equal(kept.reset_index(drop=True), expected, check_exact=True)
+
