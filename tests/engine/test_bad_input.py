@@ -161,6 +161,34 @@ def _hand_written_index() -> None:
         write_index(tmp)
 
 
+def _disk_full() -> str:
+    """ENOSPC injected into the file moves of a session's report writer: a warning, and the summary names the check."""
+    import errno
+    import os
+    import tempfile
+    import warnings
+
+    from rlrates.plugin.records import CheckRecord
+    from rlrates.plugin.session import RatesSession
+    from rlrates.plugin.settings import RatesSettings
+    from rlrates.report import ReportWarning
+
+    def no_space(source: str, target: str) -> None:
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    result = rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **SMALL)
+    with tempfile.TemporaryDirectory() as tmp, pytest.MonkeyPatch.context() as patch:
+        session = RatesSession(RatesSettings(report_dir=Path(tmp)))
+        patch.setattr(os, "replace", no_space)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            session.write_report(result, "tests/test_x.py::test_full")
+        session.records.append(CheckRecord.from_result(result, "tests/test_x.py::test_full"))
+        lines = session.report_lines()
+    assert [w.category for w in caught] == [ReportWarning]
+    return "\n".join([str(caught[0].message), *lines])
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -247,6 +275,8 @@ CATALOGUE = [
     Case("report-dir-symlink", _report_dir_with(_linked_folder), r"not written by rlrates, so left alone: .*reports/linked"),
     Case("report-dir-locked", _report_dir_with(_live_lock), r"in use by another rlrates session \(pid \d+, lock file"),
     Case("report-index-hand-written", _hand_written_index, r"index.md; refusing to overwrite index.md"),
+    Case("report-disk-full", _disk_full, r"the report of tests/test_x.py::test_full was not written to .*: No space left on device; "
+         r"the test keeps its verdict\n(.|\n)*1 report\(s\) missing \(could not be written\): tests/test_x.py::test_full"),
     Case("report-json-corrupt", _corrupt_report(_truncate_json), r"check.json: not valid JSON \(line \d+, column \d+"),
     Case("report-csv-edited", _corrupt_report(_drop_error_column), r"errors.csv: .*error"),
 ]

@@ -276,3 +276,62 @@ def test_system_exit_in_an_estimator_is_an_estimator_error(project: pytest.Pytes
     result.stdout.fnmatch_lines(["*rlrates checks: *", "ERROR*test_inner.py::test_exits"])
     record = json.loads((_check_folders(project.path / "out")["test_inner.py::test_exits"] / "check.json").read_text())
     assert record["status"] == "error" and record["data"]["rows"] > 0
+
+
+# --------------------------------------------------------------------------- a full disk
+
+FULL_DISK = '''
+import errno
+import os
+
+import pytest
+
+_replace = os.replace
+
+
+def _no_space(source, target):
+    if "out" in os.fspath(target):
+        raise OSError(errno.ENOSPC, "No space left on device", os.fspath(target))
+    return _replace(source, target)
+
+
+@pytest.fixture(autouse=True)
+def full_disk_for_full_tests(request, monkeypatch):
+    if "full" in request.node.name:
+        monkeypatch.setattr(os, "replace", _no_space)
+
+
+@pytest.hookimpl(tryfirst=True)
+def pytest_terminal_summary():
+    os.replace = _no_space  # the disk is still full when the index is written
+'''
+
+
+def test_a_full_disk_is_a_warning_and_the_summary_says_which_reports_are_missing(project: pytest.Pytester) -> None:
+    """ENOSPC is injected into every file move under out/ (common practice for testing full disks without a tmpfs)."""
+    project.makeconftest(FULL_DISK)
+    project.makepyfile(test_inner=HEADER + TESTS["b"] + '''
+@pytest.mark.rlrates(n=-0.5)
+def test_full(rlrates):
+    rlrates(plug_in, rl.chain(8))
+''')
+    result = project.runpytest_subprocess("--rlrates-report=out")
+    result.assert_outcomes(passed=2)
+    output = result.stdout.str()
+    assert "Traceback" not in output and "INTERNALERROR" not in output + result.stderr.str()
+    result.stdout.fnmatch_lines([
+        "*ReportWarning: rlrates: the report of test_inner.py::test_full was not written to *out: "
+        "No space left on device; the test keeps its verdict",
+    ])
+    result.stdout.fnmatch_lines([
+        "rlrates report: index not written under *out: No space left on device",
+        "rlrates report: 1 report(s) missing (could not be written): test_inner.py::test_full",
+        "*rlrates checks: budget ci*",
+        "PASS*test_inner.py::test_b",
+        "*",
+        "PASS*test_inner.py::test_full",
+        "*",
+        "2 check(s): 2 pass*",
+        "*2 passed*",
+    ])
+    assert _check_folders(project.path / "out").keys() == {"test_inner.py::test_b"}

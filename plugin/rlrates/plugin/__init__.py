@@ -92,16 +92,8 @@ def pytest_terminal_summary(terminalreporter: Any, exitstatus: int, config: pyte
     if session is None or not session.records:
         return
     if session.settings.report_dir is not None:
-        from ..report import FIGURES_SKIPPED, figures_available, write_index
-
-        written = write_index(session.settings.report_dir)
-        if written:
-            terminalreporter.write_line(
-                f"rlrates report: {len(session.records)} check(s) under {session.settings.report_dir} "
-                f"({', '.join(path.name for path in written)})"
-            )
-        if not figures_available():
-            terminalreporter.write_line(f"rlrates report: {FIGURES_SKIPPED}")
+        for line in session.report_lines():
+            terminalreporter.write_line(line)
     from .records import format_summary
 
     lines = format_summary(session.records)

@@ -82,13 +82,9 @@ class RatesRunner:
     def _report(self, result: CheckResult) -> None:
         """Keep the result; write its report folder when the session has a report directory."""
         self.results.append(result)
-        report_dir = self._session.settings.report_dir
-        if report_dir is not None:
-            from ..report import figures_available, write_check
-
+        if self._session.settings.report_dir is not None:
             nodeid = self._item.nodeid
-            label = nodeid if len(self.results) == 1 else f"{nodeid}#{len(self.results)}"
-            write_check(result, report_dir, label, figures=figures_available())
+            self._session.write_report(result, nodeid if len(self.results) == 1 else f"{nodeid}#{len(self.results)}")
 
     def _refuse_session_owned(self, check_options: dict[str, Any]) -> None:
         __tracebackhide__ = True

@@ -11,6 +11,8 @@ the standard library (and the tiny vocabulary).
 from __future__ import annotations
 
 import os
+import warnings
+from contextlib import suppress
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -24,6 +26,7 @@ from .settings import REPORT_OPTION, RatesSettings, resolve_settings
 if TYPE_CHECKING:  # pragma: no cover
     from concurrent.futures import Executor
 
+    from ..result import CheckResult
     from ..suite import SuiteMember
     from .records import CheckRecord
 
@@ -66,6 +69,50 @@ class RatesSession:
         if member.name not in self.built:
             self.built[member.name] = member.build()
         return self.built[member.name]
+
+    def write_report(self, result: CheckResult, label: str) -> None:
+        """Write one check's report folder; one that cannot be written (a full disk) is a warning, not a failure.
+
+        The test keeps its verdict; the terminal summary lists the reports that are missing.
+        """
+        from ..report import ReportError, ReportWarning, figures_available, write_check
+
+        assert self.settings.report_dir is not None
+        try:
+            write_check(result, self.settings.report_dir, label, figures=figures_available())
+        except (OSError, ReportError) as exc:
+            text = (f"rlrates: the report of {label} was not written to {self.settings.report_dir}: "
+                    f"{getattr(exc, 'strerror', None) or exc}; the test keeps its verdict")
+            with suppress(ReportWarning):  # even under -W error: the verdict is the test's, not the disk's
+                warnings.warn(text, ReportWarning, stacklevel=4)
+
+    def report_lines(self) -> list[str]:
+        """The terminal summary's lines about the report directory: the index written, the reports missing."""
+        from ..report import FIGURES_SKIPPED, RECORD_FILE, figures_available, folder_name, write_index
+
+        directory = self.settings.report_dir
+        assert directory is not None
+        lines = []
+        try:
+            written = write_index(directory)
+        except (OSError, ValueError) as exc:
+            lines.append(f"rlrates report: index not written under {directory}: {getattr(exc, 'strerror', None) or exc}")
+        else:
+            if written:
+                lines.append(f"rlrates report: {len(self.records)} check(s) under {directory} "
+                             f"({', '.join(path.name for path in written)})")
+        counts: dict[str, int] = {}
+        missing = []
+        for record in self.records:
+            counts[record.test] = counts.get(record.test, 0) + 1
+            label = record.test if counts[record.test] == 1 else f"{record.test}#{counts[record.test]}"
+            if not (directory / folder_name(label) / RECORD_FILE).is_file():
+                missing.append(label)
+        if missing:
+            lines.append(f"rlrates report: {len(missing)} report(s) missing (could not be written): {', '.join(missing)}")
+        if not figures_available():
+            lines.append(f"rlrates report: {FIGURES_SKIPPED}")
+        return lines
 
     def close(self) -> None:
         if self._executor is not None:
