@@ -189,6 +189,17 @@ def _disk_full() -> str:
     return "\n".join([str(caught[0].message), *lines])
 
 
+def _too_many_workers() -> None:
+    import argparse
+
+    from rlrates.plugin.settings import _parse_workers
+
+    try:
+        _parse_workers("100000")
+    except argparse.ArgumentTypeError as exc:
+        raise ValueError(str(exc)) from None
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -269,6 +280,8 @@ CATALOGUE = [
     Case("family-not-mdp", lambda: rlrates.check(reference.plugin_q_pi, lambda g: "mdp", CLAIM, **SMALL), r"returned str for gamma=0.5, not a TabularMDP"),
     Case("time-limit", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, time_limit=-1), r"`time_limit` must be a positive number of seconds, got -1"),
     Case("estimator-not-picklable", _process_pool_with_a_lambda, r"cannot be pickled, so it cannot be sent to the ProcessPoolExecutor.*module-level function"),
+    Case("workers-too-many", _too_many_workers, r"100000 worker processes is more than this machine can run usefully: "
+         r"at most \d+ \(4 per CPU on its \d+ CPU\(s\)\)"),
     Case("report-dir-not-writable", _report_dir_under_a_file, r"--rlrates-report: cannot write to the report directory .*occupied/reports"),
     Case("report-dir-foreign", _report_dir_with(_users_folder),
          r"--rlrates-report: not written by rlrates, so left alone: .*reports/api, .*reports/index.md"),

@@ -335,3 +335,18 @@ def test_full(rlrates):
         "*2 passed*",
     ])
     assert _check_folders(project.path / "out").keys() == {"test_inner.py::test_b"}
+
+
+def test_more_workers_than_the_machine_can_run_is_a_usage_error_at_start_up(project: pytest.Pytester) -> None:
+    import os
+
+    project.makepyfile(test_inner=HEADER + TESTS["b"])
+    limit = 4 * (os.cpu_count() or 1)
+    result = project.runpytest_subprocess(f"--rlrates-workers={limit + 1}")
+    assert result.ret == pytest.ExitCode.USAGE_ERROR
+    result.stderr.fnmatch_lines([f"*--rlrates-workers*{limit + 1} worker processes is more than this machine can run "
+                                 f"usefully: at most {limit} (4 per CPU*"])
+    project.makeini(f"[pytest]\naddopts = -p no:cacheprovider\nrlrates_workers = {limit + 1}\n")
+    from_ini = project.runpytest_subprocess()
+    assert from_ini.ret == pytest.ExitCode.USAGE_ERROR
+    from_ini.stderr.fnmatch_lines([f"*ini key rlrates_workers = '{limit + 1}'*at most {limit}*"])
