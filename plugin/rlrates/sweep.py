@@ -107,10 +107,26 @@ class CellOutcome:
 
 
 def run_cell(task: CellTask) -> CellOutcome:
-    """Run the replicates of one cell; stop at the first failure, keeping earlier rows."""
+    """Run the replicates of one cell; stop at the first failure, keeping earlier rows.
+
+    An interrupt (Ctrl-C, or SIGTERM in a pytest session) anywhere in the cell, while
+    sampling, in the estimator or while scoring, keeps the rows finished before it.
+    """
+    outcome = CellOutcome(task.truth.gamma, task.n, [])
+    try:
+        _run_replicates(task, outcome)
+    except KeyboardInterrupt as exc:  # keep what is done; rate_check re-raises after recording it
+        outcome.failure = _interrupted(task, task.start + len(outcome.rows), exc)
+    return outcome
+
+
+def _interrupted(task: CellTask, replicate: int, exc: BaseException) -> CellFailure:
+    return CellFailure(task.truth.gamma, task.n, replicate, "interrupted", type(exc).__name__, "")
+
+
+def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
     truth = task.truth
     problem = truth.problem()
-    outcome = CellOutcome(truth.gamma, task.n, [])
     kernel = task.kernel
     if kernel is None:
         kernel = mdp_kernel(truth.mdp)
@@ -121,15 +137,12 @@ def run_cell(task: CellTask) -> CellOutcome:
         started = time.perf_counter()
         try:
             estimate = task.estimator(batch, problem)
-        except KeyboardInterrupt:  # keep what is done; rate_check re-raises after recording it
-            outcome.failure = CellFailure(truth.gamma, task.n, replicate, "interrupted", "KeyboardInterrupt", "")
-            return outcome
         except (Exception, SystemExit, GeneratorExit) as exc:  # the estimator's own bug: record it, keep the session alive
             outcome.failure = CellFailure(
                 truth.gamma, task.n, replicate, "raised", f"{type(exc).__name__}: {exc}",
                 "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)),
             )
-            return outcome
+            return
         seconds = time.perf_counter() - started
         problem_text = _call_problem(estimate, previous, seconds, task.time_limit)
         if problem_text is None:
@@ -139,10 +152,9 @@ def run_cell(task: CellTask) -> CellOutcome:
                 problem_text = str(exc)
         if problem_text is not None:
             outcome.failure = CellFailure(truth.gamma, task.n, replicate, "invalid", problem_text, "")
-            return outcome
+            return
         previous = estimate
         outcome.rows.append((replicate, estimate_error(valid, truth, task.norm), seconds))
-    return outcome
 
 
 def _call_problem(estimate: object, previous: object, seconds: float, time_limit: float | None) -> str | None:
@@ -176,7 +188,13 @@ def _outcomes(tasks: list[CellTask], executor: Executor | None) -> Iterator[Cell
         for index, (task, future) in enumerate(zip(tasks, futures)):
             try:
                 outcome = future.result()
-            except (KeyboardInterrupt, CancelledError):
+            except KeyboardInterrupt:  # keep the cells already back from the workers, in order; run_sweep names the next
+                for finished in futures[index:]:
+                    if not finished.done() or finished.cancelled() or finished.exception() is not None:
+                        break
+                    yield finished.result()
+                raise
+            except CancelledError:
                 raise
             except BrokenProcessPool:  # a dead worker breaks every cell in flight: find the one that killed it
                 yield from _one_by_one(tasks[index:])
@@ -232,12 +250,20 @@ def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None) -> tu
     task_list = list(tasks)
     records: list[tuple[float, float, int, int, float, float]] = []
     failure: CellFailure | None = None
-    for outcome in _outcomes(task_list, executor):
-        horizon = 1.0 / (1.0 - outcome.gamma)
-        records.extend((outcome.gamma, horizon, outcome.n, r, e, s) for r, e, s in outcome.rows)
-        if outcome.failure is not None:
-            failure = outcome.failure
-            break
+    done = 0
+    try:
+        for outcome in _outcomes(task_list, executor):
+            horizon = 1.0 / (1.0 - outcome.gamma)
+            records.extend((outcome.gamma, horizon, outcome.n, r, e, s) for r, e, s in outcome.rows)
+            done += 1
+            if outcome.failure is not None:
+                failure = outcome.failure
+                break
+    except KeyboardInterrupt as exc:  # while waiting for a worker, or between cells: the finished cells are kept
+        if done < len(task_list):
+            failure = _interrupted(task_list[done], task_list[done].start, exc)
+        else:
+            raise
     return rows_to_table(records), failure
 
 

@@ -200,6 +200,41 @@ def _too_many_workers() -> None:
         raise ValueError(str(exc)) from None
 
 
+def _interrupted_while_sampling() -> str:
+    from rlrates import sweep
+
+    real = sweep.draw_block
+
+    def interrupted(kernel: Any, n: int, *args: Any) -> Any:
+        if n >= 256:
+            raise KeyboardInterrupt
+        return real(kernel, n, *args)
+
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(sweep, "draw_block", interrupted)
+        try:
+            rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **SMALL)
+        except rlrates.CheckInterrupted as exc:
+            return f"{exc} ({len(exc.result.table)} rows kept)"
+    raise AssertionError("the check was not interrupted")
+
+
+def _sigterm() -> str:
+    import os
+    import signal
+
+    from rlrates.plugin.session import Terminated, _on_sigterm
+
+    previous = signal.getsignal(signal.SIGTERM)
+    try:
+        _on_sigterm(os.getpid())(signal.SIGTERM, None)
+    except Terminated as exc:
+        return f"{type(exc).__name__}: {exc}; then {signal.getsignal(signal.SIGTERM)!r}"
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+    raise AssertionError("no Terminated")
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -277,6 +312,9 @@ CATALOGUE = [
     Case("estimator-mutates", lambda: _run(_mutates), r"raised at gamma=0.5, n=128, replicate=0: ValueError: assignment destination is read-only"),
     Case("estimator-too-slow", lambda: _run(_slow, time_limit=0.005), r"at gamma=0.5, n=128, replicate=0: the call took .* over the per-call time limit of 0.005 s"),
     Case("estimator-same-object", lambda: _run(_same_object), r"replicate=1: the estimator returned the same array object"),
+    Case("interrupt-outside-estimator", _interrupted_while_sampling,
+         r"interrupted \(KeyboardInterrupt\) at gamma=0.5, n=256, replicate=0; the rows finished before it are kept \(4 rows kept\)"),
+    Case("sigterm", _sigterm, r"Terminated: SIGTERM; then <Handlers.SIG_DFL: 0>"),
     Case("family-not-mdp", lambda: rlrates.check(reference.plugin_q_pi, lambda g: "mdp", CLAIM, **SMALL), r"returned str for gamma=0.5, not a TabularMDP"),
     Case("time-limit", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, time_limit=-1), r"`time_limit` must be a positive number of seconds, got -1"),
     Case("estimator-not-picklable", _process_pool_with_a_lambda, r"cannot be pickled, so it cannot be sent to the ProcessPoolExecutor.*module-level function"),

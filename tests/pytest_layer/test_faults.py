@@ -36,6 +36,22 @@ def exits_at_large_n(batch, problem):
         os._exit(3)
     return plug_in(batch, problem)
 
+def terminated_at_large_n(batch, problem):
+    """SIGTERM to the session's main process (this one, or the parent of a pool worker) at n = 512."""
+    if batch.n >= 512:
+        import os
+        import signal
+        from pathlib import Path
+        main = os.getpid() if Path("serial.flag").exists() else os.getppid()
+        with open("workers.txt", "a") as pids:
+            pids.write(f"{os.getpid()}\\n")
+        try:
+            open("sent.flag", "x").close()  # one SIGTERM only: a second one ends a process at once
+        except FileExistsError:
+            return plug_in(batch, problem)
+        os.kill(main, signal.SIGTERM)
+    return plug_in(batch, problem)
+
 def system_exit_at_large_n(batch, problem):
     if batch.n >= 512:
         raise SystemExit(2)
@@ -66,7 +82,8 @@ def _garnet_test(name: str, estimator: str) -> str:
 
 
 HEADER = ("import pytest\nimport rlrates as rl\n"
-          "from estimators import plug_in, raises, interrupted_at_large_n, exits_at_large_n, system_exit_at_large_n\n")
+          "from estimators import plug_in, raises, interrupted_at_large_n, exits_at_large_n, system_exit_at_large_n, "
+          "terminated_at_large_n\n")
 
 
 @pytest.fixture
@@ -350,3 +367,47 @@ def test_more_workers_than_the_machine_can_run_is_a_usage_error_at_start_up(proj
     from_ini = project.runpytest_subprocess()
     assert from_ini.ret == pytest.ExitCode.USAGE_ERROR
     from_ini.stderr.fnmatch_lines([f"*ini key rlrates_workers = '{limit + 1}'*at most {limit}*"])
+
+
+# --------------------------------------------------------------------------- SIGTERM
+
+
+@pytest.mark.parametrize("workers", [1, 2], ids=["serial", "two-workers"])
+def test_sigterm_keeps_the_check_in_flight_writes_the_reports_and_leaves_no_orphans(project: pytest.Pytester,
+                                                                                     workers: int) -> None:
+    import os
+    import time
+
+    project.makepyfile(test_inner=HEADER + TESTS["b"] + _garnet_test("test_terminated", "terminated_at_large_n")
+                       + TESTS["a"])
+    if workers == 1:
+        (project.path / "serial.flag").write_text("")
+    result = project.runpytest_subprocess("--rlrates-report=out", "--junitxml=junit.xml", f"--rlrates-workers={workers}")
+    assert result.ret == pytest.ExitCode.INTERRUPTED
+    # serially the interrupt lands in the cell at n = 512; with workers, in the cell the session was waiting for
+    interrupted_n = "512" if workers == 1 else "(256|512)"
+    result.stdout.re_match_lines([rf".*interrupted \(Terminated\) at gamma=0.5, n={interrupted_n}, replicate=0; "
+                                  "the rows finished before it are kept.*"])
+    folders = _check_folders(project.path / "out")
+    assert set(folders) == {"test_inner.py::test_b", "test_inner.py::test_terminated"}  # test_a never ran
+    record = json.loads((folders["test_inner.py::test_terminated"] / "check.json").read_text())
+    assert (record["failure"]["kind"], record["failure"]["message"]) == ("interrupted", "Terminated")
+    assert record["failure"]["n"] == 512 if workers == 1 else record["failure"]["n"] in (256, 512)
+    assert record["data"]["rows"] >= (record["failure"]["n"] // 256) * 24  # every cell before the interrupted one
+    assert "test_inner.py::test_terminated" in (project.path / "out" / "index.md").read_text()
+    assert "test_b" in _properties(project.path / "junit.xml")
+    deadline = time.monotonic() + 10
+    pids = {int(line) for line in (project.path / "workers.txt").read_text().split()}
+    while time.monotonic() < deadline and any(_running(pid) for pid in pids):
+        time.sleep(0.1)
+    assert not any(_running(pid) for pid in pids)  # no pool process outlives the session
+
+
+def _running(pid: int) -> bool:
+    import os
+
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    return True

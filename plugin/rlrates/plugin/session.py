@@ -30,7 +30,44 @@ if TYPE_CHECKING:  # pragma: no cover
     from ..suite import SuiteMember
     from .records import CheckRecord
 
-__all__ = ["RatesSession", "start_session", "end_session", "session_of", "session_or_none", "session_settings", "prepare_report_dir"]
+__all__ = ["Terminated", "RatesSession", "start_session", "end_session", "session_of", "session_or_none", "session_settings", "prepare_report_dir"]
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, raised in the session's main process so that it stops as on Ctrl-C.
+
+    The check in flight keeps its finished rows and writes its report, pytest
+    writes its JUnit file and summary, and the worker pool is shut down rather
+    than left orphaned.
+    """
+
+
+def _on_sigterm(owner: int) -> Any:
+    """A SIGTERM handler for process ``owner``; forked pool workers that inherit it die as SIGTERM says."""
+    import signal
+
+    def handler(signum: int, frame: Any) -> None:
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)  # a second SIGTERM ends the process at once
+        if os.getpid() != owner:
+            os.kill(os.getpid(), signal.SIGTERM)
+            return
+        raise Terminated("SIGTERM")
+
+    return handler
+
+
+def _install_sigterm_handler() -> Any:
+    """Install the handler when SIGTERM has its default action (never replace someone else's); return it."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return None
+    if signal.getsignal(signal.SIGTERM) is not signal.SIG_DFL:
+        return None
+    handler = _on_sigterm(os.getpid())
+    signal.signal(signal.SIGTERM, handler)
+    return handler
 
 
 @dataclass(eq=False)  # hashed by identity: pytest puts registered plugins in sets
@@ -48,6 +85,7 @@ class RatesSession:
     _seen: dict[str, int] = field(default_factory=dict)
     _executor: Executor | None = None
     _lock: Any = None  # the report directory's ReportLock, held by the controller
+    _sigterm: Any = None  # the SIGTERM handler this session installed
 
     def executor(self) -> Executor | None:
         """The session's process pool, created on first use when workers > 1, and rebuilt when a worker died."""
@@ -121,6 +159,12 @@ class RatesSession:
         if self._lock is not None:
             self._lock.release()
             self._lock = None
+        if self._sigterm is not None:
+            import signal
+
+            if signal.getsignal(signal.SIGTERM) is self._sigterm:
+                signal.signal(signal.SIGTERM, signal.SIG_DFL)
+            self._sigterm = None
 
     def pytest_runtest_logreport(self, report: pytest.TestReport) -> None:
         texts = [value for name, value in report.user_properties if name == PROPERTY_NAME]
@@ -189,6 +233,8 @@ def start_session(config: pytest.Config) -> RatesSession:
     session = RatesSession(resolve_settings(config))
     if session.settings.report_dir is not None:
         session._lock = prepare_report_dir(session.settings.report_dir, controller=not hasattr(config, "workerinput"))
+    if not hasattr(config, "workerinput"):  # pytest-xdist workers are stopped by their controller
+        session._sigterm = _install_sigterm_handler()
     config.stash[_SESSION] = session
     config.pluginmanager.register(session, "rlrates-session")
     return session
