@@ -235,6 +235,16 @@ def _sigterm() -> str:
     raise AssertionError("no Terminated")
 
 
+def _check_with(**options: Any) -> Callable[[], object]:
+    return lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **{**SMALL, **options})
+
+
+def _marker_budget_list() -> None:
+    from rlrates.plugin.marker import parse_marker
+
+    parse_marker((), {"n": -0.5, "budget": ["ci"]}, "test_x.py::test_y")
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -293,6 +303,17 @@ CATALOGUE = [
     Case("grid-too-short", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, n_grid=(64, 128)), r"at least three distinct values to fit a slope, got \(64, 128\)"),
     Case("grid-non-integer", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, n_grid=(64, 128.5, 256)), r"positive integers, got 128.5"),
     Case("grid-zero", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, n_grid=(0, 64, 128)), r"positive integers, got 0"),
+    Case("replicates-fraction", _check_with(replicates=4.9), r"`replicates` must be a whole number .* got float 4.9"),
+    Case("replicates-string", _check_with(replicates="10"), r"`replicates` must be a whole number .* got str '10'"),
+    Case("replicates-nan", _check_with(replicates=float("nan")), r"`replicates` must be a whole number .* got float nan"),
+    Case("gammas-number", _check_with(gammas=0.9), r"`gammas` must be a sequence such as \(0.5, 0.9\), got float 0.9"),
+    Case("gammas-string", _check_with(gammas="0.5"), r"`gammas` must be a sequence such as \(0.5, 0.9\), got str '0.5'"),
+    Case("grid-number", _check_with(n_grid=128), r"`n_grid` must be a sequence such as \(128, 256, 512\), got int 128"),
+    Case("grid-huge", _check_with(n_grid=(2**62, 2**63, 2**64)), r"`n_grid` values must lie in 1 .. 2\*\*63 - 1 .* got 9223372036854775808"),
+    Case("executor-not-executor", _check_with(executor=object()), r"`executor` must be a concurrent.futures.Executor .* got object"),
+    Case("policy-unused", _check_with(target="q_star", policy=np.full((6, 2), 0.5)),
+         r"`policy` is the evaluation policy of target 'q_pi' and is not used with target 'q_star'"),
+    Case("marker-budget-list", _marker_budget_list, r"test_x.py::test_y: unknown `budget` \['ci'\]; choose one of ci, appendix"),
     Case("claim-empty", lambda: rlrates.Claim(n=None, horizon=None), r"at least one factor"),
     Case("claim-non-numeric", lambda: rlrates.Claim(n="-1/2"), r"`n` exponent must be a number or None, got '-1/2'"),
     Case("claim-positive", lambda: rlrates.Claim(n=0.5), r"`n` exponent must be negative .* got 0.5"),
