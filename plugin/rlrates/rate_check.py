@@ -23,6 +23,7 @@ from typing import Any
 
 import pandas as pd
 
+from .arguments import check_arguments
 from .claims import Claim
 from .escalation import Escalation
 from .families import rebuild_call
@@ -200,6 +201,7 @@ def check(
     >>> rlrates.check(plugin_q_pi, mdp, rlrates.Claim(n=-0.5)).status
     'pass'
     """
+    check_arguments(n_grid=n_grid, gammas=gammas, replicates=replicates, executor=executor, target=target, policy=policy)
     call = _validate(estimator, claim, target, norm, seed, executor, time_limit,
                      resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates))
     name, metadata = _describe_source(mdp)
