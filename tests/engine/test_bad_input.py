@@ -245,6 +245,28 @@ def _marker_budget_list() -> None:
     parse_marker((), {"n": -0.5, "budget": ["ci"]}, "test_x.py::test_y")
 
 
+def _load_text(name: str, text: str) -> None:
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / name
+        path.write_text(text, encoding="utf-8")
+        rlrates.load_mdp(path)
+
+
+def _forged_npz() -> None:
+    import io
+    import tempfile
+    import zipfile
+
+    header = io.BytesIO()
+    np.lib.format.write_array_header_1_0(header, {"descr": "<f8", "fortran_order": False, "shape": (2000, 100, 2000)})
+    with tempfile.TemporaryDirectory() as tmp:
+        with zipfile.ZipFile(Path(tmp) / "forged.npz", "w") as archive:
+            archive.writestr("P.npy", header.getvalue())
+        rlrates.load_mdp(Path(tmp) / "forged.npz")
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -342,6 +364,13 @@ CATALOGUE = [
     Case("workers-too-many", _too_many_workers, r"100000 worker processes is more than this machine can run usefully: "
          r"at most \d+ \(4 per CPU on its \d+ CPU\(s\)\)"),
     Case("report-dir-not-writable", _report_dir_under_a_file, r"--rlrates-report: cannot write to the report directory .*occupied/reports"),
+    Case("file-npz-huge", _forged_npz, r"forged.npz: array P.npy has shape \(2000, 100, 2000\), 400,000,000 entries \(2.98 GiB"),
+    Case("file-json-huge", lambda: _load_text("rows.json", '{"R": [' + ", ".join(["[0.0]"] * 20_000) + '], "transitions": []}'),
+         r"rows.json: the P that 'R' implies has shape \(20000, 1, 20000\), 400,000,000 entries"),
+    Case("file-json-deep", lambda: _load_text("deep.json", "[" * 100_000 + "]" * 100_000), r"deep.json: JSON nested too deeply"),
+    Case("file-json-big-number", lambda: _load_text("big.json", '{"R": [[1' + "0" * 400 + ']], "P": [[[1.0]]]}'),
+         r"big.json: 'R' holds a number too large for a float64"),
+    Case("file-npz-is-text", lambda: _load_text("text.npz", "P R info"), r"text.npz: not an .npz archive \(a zip file of P.npy"),
     Case("report-dir-foreign", _report_dir_with(_users_folder),
          r"--rlrates-report: not written by rlrates, so left alone: .*reports/api, .*reports/index.md"),
     Case("report-dir-symlink", _report_dir_with(_linked_folder), r"not written by rlrates, so left alone: .*reports/linked"),
