@@ -267,6 +267,21 @@ def _forged_npz() -> None:
         rlrates.load_mdp(Path(tmp) / "forged.npz")
 
 
+def _identity_without_an_ini_file() -> str:
+    """The stream identity of tests/test_lab.py::test_rate when pytest started in tests/ (rootdir tests/) and no ini exists."""
+    import tempfile
+    from types import SimpleNamespace
+
+    from rlrates.plugin.identity import stream_identity
+
+    with tempfile.TemporaryDirectory() as tmp:
+        (Path(tmp) / ".git").mkdir()
+        path = Path(tmp) / "tests" / "test_lab.py"
+        item = SimpleNamespace(config=SimpleNamespace(inipath=None, rootpath=path.parent), nodeid="test_lab.py::test_rate",
+                               path=path)
+        return f"streams from {stream_identity(item)}"  # type: ignore[arg-type]
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -371,6 +386,7 @@ CATALOGUE = [
     Case("file-json-big-number", lambda: _load_text("big.json", '{"R": [[1' + "0" * 400 + ']], "P": [[[1.0]]]}'),
          r"big.json: 'R' holds a number too large for a float64"),
     Case("file-npz-is-text", lambda: _load_text("text.npz", "P R info"), r"text.npz: not an .npz archive \(a zip file of P.npy"),
+    Case("streams-start-directory", _identity_without_an_ini_file, r"^streams from tests/test_lab.py::test_rate$"),
     Case("report-dir-foreign", _report_dir_with(_users_folder),
          r"--rlrates-report: not written by rlrates, so left alone: .*reports/api, .*reports/index.md"),
     Case("report-dir-symlink", _report_dir_with(_linked_folder), r"not written by rlrates, so left alone: .*reports/linked"),

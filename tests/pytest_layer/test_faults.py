@@ -411,3 +411,27 @@ def _running(pid: int) -> bool:
     except ProcessLookupError:
         return False
     return True
+
+
+# --------------------------------------------------------------------------- the start directory
+
+
+def test_without_an_ini_file_the_numbers_do_not_depend_on_the_start_directory(pytester: pytest.Pytester) -> None:
+    """No ini file: pytest's rootdir (so the node id) follows the start directory; the streams must not."""
+    import subprocess
+    import sys
+
+    lab = pytester.path / "lab"
+    (lab / "tests").mkdir(parents=True)
+    (lab / "tests" / "test_lab.py").write_text(HEADER.split("from estimators")[0] + ESTIMATORS + TESTS["a"])
+    command = [sys.executable, "-m", "pytest", "-p", "no:cacheprovider", "-p", "no:hypothesispytest"]
+    inner = subprocess.run([*command, "test_lab.py::test_a", "--junitxml=../inner.xml"], cwd=lab / "tests",
+                           capture_output=True, text=True, timeout=120)
+    outer = subprocess.run([*command, "tests/test_lab.py::test_a", "--junitxml=outer.xml"], cwd=lab,
+                           capture_output=True, text=True, timeout=120)
+    assert inner.returncode == outer.returncode == 0, inner.stdout + outer.stdout
+    assert "rootdir: " + str(lab / "tests") in inner.stdout and "rootdir: " + str(lab) in outer.stdout  # two node ids
+    one, two = (json.loads(_properties(lab / name)["test_a"]) for name in ("inner.xml", "outer.xml"))
+    assert (one.pop("test"), two.pop("test")) == ("test_lab.py::test_a", "tests/test_lab.py::test_a")
+    one.pop("seconds"), two.pop("seconds")
+    assert one["fits"] and one == two  # the same fitted exponents and bounds, to the last bit

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 import pytest
 
 from ..vocabulary import PROPERTY_NAME
+from .identity import stream_identity
 from .marker import MARKER, item_spec
 from .settings import BUDGET_OPTION, SEED_OPTION, WORKERS_OPTION
 
@@ -133,7 +134,7 @@ class RatesRunner:
                 budget=budget or spec.budget or settings.budget,
                 seed=settings.seed,
                 executor=self._session.executor(),
-                context=nodeid,
+                context=stream_identity(self._item),
                 reproducer=self.reproducer,
                 **check_options,
             )
