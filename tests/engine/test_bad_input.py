@@ -282,6 +282,31 @@ def _identity_without_an_ini_file() -> str:
         return f"streams from {stream_identity(item)}"  # type: ignore[arg-type]
 
 
+def _marker_policy_word() -> None:
+    from rlrates.plugin.marker import parse_marker
+
+    parse_marker((), {"n": -0.5, "policy": "greedy"}, "test_x.py::test_y")
+
+
+def _demo_negative_seed() -> str:
+    import contextlib
+    import io
+
+    from rlrates.__main__ import main
+
+    errors = io.StringIO()
+    with contextlib.redirect_stderr(errors), pytest.raises(SystemExit) as raised:
+        main(["demo", "--seed", "-1"])
+    return f"exit {raised.value.code}: {errors.getvalue()}"
+
+
+def _gym_table_too_large() -> None:
+    from types import SimpleNamespace
+
+    table = {s: {a: [(1.0, s, 0.0, False)] for a in range(4)} for s in range(40_000)}
+    rlrates.from_gymnasium(SimpleNamespace(P=table))
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -386,6 +411,9 @@ CATALOGUE = [
     Case("file-json-big-number", lambda: _load_text("big.json", '{"R": [[1' + "0" * 400 + ']], "P": [[[1.0]]]}'),
          r"big.json: 'R' holds a number too large for a float64"),
     Case("file-npz-is-text", lambda: _load_text("text.npz", "P R info"), r"text.npz: not an .npz archive \(a zip file of P.npy"),
+    Case("marker-policy-word", _marker_policy_word, r"test_x.py::test_y: `policy` must be an \(S, A\) array .* got 'greedy'"),
+    Case("demo-negative-seed", _demo_negative_seed, r"exit 2: (.|\n)*argument --seed: the master seed must be an integer >= 0, got '-1'"),
+    Case("gym-too-large", _gym_table_too_large, r"a dense P of shape \(40001, 4, 40001\) has 6,400,320,004 entries \(47.7 GiB"),
     Case("streams-start-directory", _identity_without_an_ini_file, r"^streams from tests/test_lab.py::test_rate$"),
     Case("report-dir-foreign", _report_dir_with(_users_folder),
          r"--rlrates-report: not written by rlrates, so left alone: .*reports/api, .*reports/index.md"),

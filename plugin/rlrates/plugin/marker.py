@@ -115,7 +115,23 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
             members = tuple(custom_members(kwargs["mdps"], where="`mdps`"))
     except SuiteError as exc:
         raise _bad(where, str(exc)) from None
+    _check_policy(kwargs.get("policy"), where)
     return MarkerSpec(claim=claim, target=target, budget=budget, members=members, policy=kwargs.get("policy"))
+
+
+def _check_policy(policy: Any, where: str) -> None:
+    """A marker policy must be numbers shaped (S,) or (S, A); its fit to each MDP is checked when the test runs."""
+    if policy is None:
+        return
+    import numpy as np
+
+    try:
+        ndim = np.asarray(policy, dtype=float).ndim
+    except (TypeError, ValueError):
+        ndim = -1
+    if ndim not in (1, 2):
+        raise _bad(where, f"`policy` must be an (S, A) array of action probabilities or an (S,) array of actions, "
+                          f"got {policy!r}")
 
 
 def merge_specs(specs: Iterable[MarkerSpec]) -> MarkerSpec:
