@@ -307,6 +307,20 @@ def _gym_table_too_large() -> None:
     rlrates.from_gymnasium(SimpleNamespace(P=table))
 
 
+def _marker_without_fixture() -> str:
+    import warnings
+    from types import SimpleNamespace
+
+    from rlrates.plugin import pytest_runtest_setup
+
+    item = SimpleNamespace(nodeid="test_x.py::test_y", fixturenames=["request"],
+                           get_closest_marker=lambda name: object() if name == "rlrates" else None)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        pytest_runtest_setup(item)  # type: ignore[arg-type]
+    return "; ".join(f"{type(w.message).__name__}: {w.message}" for w in caught)
+
+
 def _saved_report(tmp: Path) -> Path:
     from rlrates.report import write_check
 
@@ -411,6 +425,8 @@ CATALOGUE = [
     Case("file-json-big-number", lambda: _load_text("big.json", '{"R": [[1' + "0" * 400 + ']], "P": [[[1.0]]]}'),
          r"big.json: 'R' holds a number too large for a float64"),
     Case("file-npz-is-text", lambda: _load_text("text.npz", "P R info"), r"text.npz: not an .npz archive \(a zip file of P.npy"),
+    Case("marker-without-fixture", _marker_without_fixture,
+         r"^MarkerUnusedWarning: @pytest.mark.rlrates on test_x.py::test_y, which uses neither the `rlrates` nor"),
     Case("marker-policy-word", _marker_policy_word, r"test_x.py::test_y: `policy` must be an \(S, A\) array .* got 'greedy'"),
     Case("demo-negative-seed", _demo_negative_seed, r"exit 2: (.|\n)*argument --seed: the master seed must be an integer >= 0, got '-1'"),
     Case("gym-too-large", _gym_table_too_large, r"a dense P of shape \(40001, 4, 40001\) has 6,400,320,004 entries \(47.7 GiB"),

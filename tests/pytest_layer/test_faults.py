@@ -435,3 +435,15 @@ def test_without_an_ini_file_the_numbers_do_not_depend_on_the_start_directory(py
     assert (one.pop("test"), two.pop("test")) == ("test_lab.py::test_a", "tests/test_lab.py::test_a")
     one.pop("seconds"), two.pop("seconds")
     assert one["fits"] and one == two  # the same fitted exponents and bounds, to the last bit
+
+
+def test_a_marker_on_a_test_that_checks_nothing_warns(project: pytest.Pytester) -> None:
+    project.makepyfile(test_inner=HEADER + '''
+@pytest.mark.rlrates(n=-0.5)
+def test_forgot_the_fixture():
+    plug_in  # the claim above is never checked
+''' + TESTS["b"])
+    result = project.runpytest_subprocess()
+    result.assert_outcomes(passed=2, warnings=1)
+    result.stdout.fnmatch_lines(["*MarkerUnusedWarning: @pytest.mark.rlrates on test_inner.py::test_forgot_the_fixture, "
+                                 "which uses neither the `rlrates` nor the `rlrates_mdp` fixture*"])
