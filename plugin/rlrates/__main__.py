@@ -85,11 +85,21 @@ def _report(args: argparse.Namespace) -> int:
     return 0
 
 
+def _seed(text: str) -> int:
+    try:
+        seed = int(text)
+    except ValueError:
+        seed = -1
+    if seed < 0:
+        raise argparse.ArgumentTypeError(f"the master seed must be an integer >= 0, got {text!r}")
+    return seed
+
+
 def main(argv: Sequence[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m rlrates", description="pytest-rlrates command line")
     commands = parser.add_subparsers(dest="command", required=True)
     demo = commands.add_parser("demo", help="check a correct and a broken estimator on a Garnet MDP")
-    demo.add_argument("--seed", type=int, default=0, help="master seed (default 0)")
+    demo.add_argument("--seed", type=_seed, default=0, help="master seed, an integer >= 0 (default 0)")
     report = commands.add_parser("report", help="rebuild the figures and index of a report directory from its saved files")
     report.add_argument("directory", help="the report directory (holds one folder per check)")
     report.add_argument("--figure-width", default=None, metavar="WIDTH",

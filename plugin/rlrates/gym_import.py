@@ -126,6 +126,19 @@ def _number(value: Any, what: str, where: str, label: str) -> float:
     return number
 
 
+def _refuse_too_large(states: int, actions: int, label: str) -> None:
+    """Refuse, before allocating, a table whose dense P would exceed :data:`rlrates.storage.MAX_ENTRIES`."""
+    from .storage import MAX_ENTRIES
+
+    entries = states * actions * states
+    if entries > MAX_ENTRIES:
+        raise ValueError(
+            f"environment {label}: a dense P of shape ({states}, {actions}, {states}) has {entries:,} entries "
+            f"({entries * 8 / 2**30:.3g} GiB as float64), more than the {MAX_ENTRIES:,} a tabular MDP may hold here; "
+            "use a smaller environment (tabular checks need the whole kernel in memory)"
+        )
+
+
 def from_gymnasium(env: Any, *, name: str | None = None, rescale: bool = True) -> TabularMDP:
     """The tabular MDP of a discrete environment with a transition table ``P`` (see the module notes).
 
@@ -155,6 +168,7 @@ def from_gymnasium(env: Any, *, name: str | None = None, rescale: bool = True) -
         if n is not None and n != count:
             raise ValueError(f"environment {label}: `{which}` has n={n} but `P` lists {count} {size}")
 
+    _refuse_too_large(states + 1, actions, label)
     P = np.zeros((states + 1, actions, states + 1))
     R = np.zeros((states + 1, actions))
     terminal_transitions = 0

@@ -47,7 +47,7 @@ def determinism_probe(estimator: Any, truth: Truth, kernel: SupportKernel, n: in
     try:
         first = _as_array(estimator(batch, problem))
         second = _as_array(estimator(batch, problem))
-    except Exception:  # the sweep reports the estimator's own failure, naming its cell
+    except (Exception, SystemExit, GeneratorExit):  # the sweep reports the estimator's own failure, naming its cell
         return None
     if first is None or second is None or first.shape != second.shape:
         return None

@@ -23,6 +23,7 @@ from typing import Any
 
 import pandas as pd
 
+from .arguments import check_arguments
 from .claims import Claim
 from .escalation import Escalation
 from .estimator_origin import estimator_expression, estimator_origin
@@ -226,6 +227,7 @@ def check(
     >>> rlrates.check(plugin_q_pi, mdp, rlrates.Claim(n=-0.5)).status
     'pass'
     """
+    check_arguments(n_grid=n_grid, gammas=gammas, replicates=replicates, executor=executor, target=target, policy=policy)
     call = _validate(estimator, claim, target, norm, seed, executor, time_limit,
                      resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates,
                                     zero_level=zero_level))
@@ -241,7 +243,7 @@ def check(
         truths[gamma] = solve_truth(built, gamma, call.target, _policy_for(policy, built))
     kernels = _kernels(truths)
     plan = SweepPlan(call.estimator, truths, kernels, call.seed, context, call.norm, call.time_limit)
-    probe_notes = _probe(call, truths, kernels)
+    probe_notes = _probe(call, truths, kernels, executor)
     passes = _run_passes(plan, executor, call, truths)
     if reproducer is None:
         extras = {"norm": norm if norm != "sup" else None, "n_grid": n_grid, "gammas": gammas,
@@ -304,14 +306,28 @@ def _warn_design(call: _Call, own_grid: bool) -> None:
         )
 
 
-def _probe(call: _Call, truths: dict[float, Truth], kernels: dict[float, SupportKernel]) -> list[str]:
-    """Warn (and note) when the estimator is not a function of its batch or the MDP cannot test a rate."""
+def _probe(call: _Call, truths: dict[float, Truth], kernels: dict[float, SupportKernel],
+           executor: Executor | None) -> list[str]:
+    """Warn (and note) when the estimator is not a function of its batch or the MDP cannot test a rate.
+
+    With a process or cluster executor the probe runs there too, so an estimator that
+    kills its process takes down a worker (reported by the sweep), never the session.
+    """
     notes: list[str] = []
     if call.target != "model":
         deterministic = {deterministic_mdp(truth.mdp) for truth in truths.values()} - {None}
         notes.extend(sorted(text for text in deterministic if text))
     gamma = min(truths)
-    drift = determinism_probe(call.estimator, truths[gamma], kernels[gamma], call.design.n_grid[0], call.seed)
+    args = (call.estimator, truths[gamma], kernels[gamma], call.design.n_grid[0], call.seed)
+    if executor is None or isinstance(executor, ThreadPoolExecutor):
+        drift = determinism_probe(*args)
+    else:
+        try:
+            drift = executor.submit(determinism_probe, *args).result()
+        except KeyboardInterrupt:
+            raise
+        except BaseException:  # a worker lost to the probe: the sweep reports the estimator's failure by cell
+            drift = None
     if drift:
         notes.append(drift)
     for note in notes:

@@ -150,7 +150,9 @@ class CellFailure:
         if self.kind == "raised":
             return f"the estimator raised at {where}: {self.message}"
         if self.kind == "interrupted":
-            return f"interrupted (KeyboardInterrupt) at {where}; the rows finished before it are kept"
+            return f"interrupted ({self.message or 'KeyboardInterrupt'}) at {where}; the rows finished before it are kept"
+        if self.kind == "crashed":
+            return f"the cell at {where} never finished: {self.message}; the rows finished before it are kept"
         return f"invalid estimate at {where}: {self.message}"
 
 

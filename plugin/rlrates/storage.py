@@ -29,6 +29,13 @@ The file extension picks the format (case-insensitive); anything else is refused
     ``P`` are non-zero, and the dense form otherwise. Python's JSON writes floats
     with ``repr``, which reads back to the same double, so the fingerprint survives.
 
+Size limits: an MDP file may describe at most :data:`MAX_ENTRIES` entries of
+``P`` (S * A * S; 10**8, 800 MB as float64). The declared shapes of an ``.npz``
+are read from the archive's array headers, and the S and A of a ``.json`` from
+its ``R``, before anything large is allocated; a file over the limit is refused
+naming the file and the size. JSON nesting deeper than Python's parser allows and
+numbers beyond float64 are refused the same way.
+
 Metadata must be JSON data (numpy scalars and arrays are converted to plain
 numbers and lists); tuples come back as lists. Every problem with a file,
 including the validation errors of :class:`~rlrates.mdp.TabularMDP`, is a
@@ -49,7 +56,10 @@ from numpy.typing import NDArray
 
 from .mdp import TabularMDP
 
-__all__ = ["save_mdp", "load_mdp", "FORMAT", "VERSION"]
+__all__ = ["save_mdp", "load_mdp", "FORMAT", "VERSION", "MAX_ENTRIES"]
+
+#: The largest number of array entries (S * A * S for P) an MDP file may describe: 10**8, 800 MB as float64.
+MAX_ENTRIES = 10**8
 
 #: The ``"format"`` tag written into every file.
 FORMAT = "rlrates-mdp"
@@ -157,7 +167,46 @@ def _check_header(header: object, source: Path, where: str) -> dict[str, Any]:
     return {"name": name, "metadata": metadata}
 
 
+def _too_large(source: Path, what: str, shape: tuple[int, ...]) -> ValueError:
+    entries = int(np.prod(shape, dtype=object))
+    return ValueError(
+        f"{source}: {what} has shape {shape}, {entries:,} entries ({entries * 8 / 2**30:.3g} GiB as float64), more "
+        f"than the {MAX_ENTRIES:,} entries an MDP file may hold; nothing was loaded"
+    )
+
+
+def _check_archive(source: Path) -> None:
+    """Refuse a file that is not a zip archive, and arrays whose declared size is over the limit, before loading."""
+    with source.open("rb") as stream:
+        if stream.read(6) == b"\x93NUMPY":
+            raise ValueError(f"{source}: not an .npz archive (it holds a single .npy array)")
+    if not zipfile.is_zipfile(source):
+        raise ValueError(f"{source}: not an .npz archive (a zip file of P.npy, R.npy and info.npy); was it saved "
+                         "with rlrates.save_mdp?")
+    from numpy.lib import format as npy
+
+    readers = {(1, 0): npy.read_array_header_1_0, (2, 0): npy.read_array_header_2_0}
+    try:
+        with zipfile.ZipFile(source) as archive:
+            for member in archive.infolist():
+                with archive.open(member) as stream:
+                    version = npy.read_magic(stream)
+                    if version not in readers:
+                        raise ValueError(f"{source}: array {member.filename} has .npy format version {version}, "
+                                         "which rlrates does not read")
+                    shape, _, _ = readers[version](stream)
+                if int(np.prod(shape, dtype=object)) > MAX_ENTRIES:
+                    raise _too_large(source, f"array {member.filename}", tuple(shape))
+    except (OSError, zipfile.BadZipFile, EOFError) as exc:
+        raise ValueError(f"{source}: not a readable .npz archive: {type(exc).__name__}: {exc}") from None
+    except ValueError as exc:
+        if str(exc).startswith(str(source)):
+            raise
+        raise ValueError(f"{source}: an array header in the archive cannot be read: {exc}") from None
+
+
 def _read_npz(source: Path) -> tuple[NDArray[Any], NDArray[Any], dict[str, Any]]:
+    _check_archive(source)
     try:
         loaded = np.load(source, allow_pickle=False)
         if not isinstance(loaded, NpzFile):
@@ -200,6 +249,10 @@ def _read_json(source: Path) -> tuple[NDArray[Any], NDArray[Any], dict[str, Any]
         raise ValueError(f"{source}: not valid JSON: {exc}") from None
     except UnicodeDecodeError as exc:
         raise ValueError(f"{source}: not UTF-8 text: {exc}") from None
+    except RecursionError:
+        raise ValueError(f"{source}: JSON nested too deeply to read (an MDP file needs three levels for P)") from None
+    except ValueError as exc:  # e.g. an integer literal longer than Python's digit limit
+        raise ValueError(f"{source}: a number in the JSON cannot be read: {exc}") from None
     header = _check_header(document, source, "the document")
     unknown = sorted(set(document) - _JSON_KEYS)
     if unknown:
@@ -210,6 +263,8 @@ def _read_json(source: Path) -> tuple[NDArray[Any], NDArray[Any], dict[str, Any]
     if "R" not in document:
         raise ValueError(f"{source}: missing key 'R' (the (S, A) rewards, a list of S lists of A numbers)")
     R = _numeric(document["R"], source, "R", 2, "a list of S lists of A numbers")
+    if R.shape[0] * R.shape[1] * R.shape[0] > MAX_ENTRIES:
+        raise _too_large(source, "the P that 'R' implies", (R.shape[0], R.shape[1], R.shape[0]))
     has_dense, has_sparse = "P" in document, "transitions" in document
     if has_dense == has_sparse:
         problem = "both" if has_dense else "neither"
@@ -229,6 +284,8 @@ def _numeric(value: object, source: Path, key: str, ndim: int, layout: str) -> N
         raise ValueError(f"{source}: '{key}' must be {layout}, got {type(value).__name__}")
     try:
         array = np.array(value, dtype=np.float64)
+    except OverflowError:
+        raise ValueError(f"{source}: '{key}' holds a number too large for a float64 (beyond about 1.8e308)") from None
     except (TypeError, ValueError):
         raise ValueError(f"{source}: '{key}' must be {layout} (equal lengths, numbers only)") from None
     if array.ndim != ndim:
@@ -273,5 +330,8 @@ def _sparse_transitions(entries: object, shape: tuple[int, ...], source: Path) -
                 f"{source}: {where} repeats (s, a, s_next) = {key} of entry {seen[key]}; list each once"
             )
         seen[key] = index
-        P[key] = float(prob)
+        try:
+            P[key] = float(prob)
+        except OverflowError:
+            raise ValueError(f"{source}: {where}: `prob` is too large for a float64") from None
     return P

@@ -7,9 +7,12 @@ drawn in one vectorised call from the block's own stream
 :func:`rlrates.sampling.block_seed`, so the numbers do not depend on execution
 order or on the executor.
 
-An estimator that raises, or returns something invalid, does not stop the
-session: the cell records a :class:`CellFailure` naming (gamma, n, replicate)
-with the estimator's own traceback, and everything computed so far is kept.
+An estimator that raises (even ``SystemExit`` or ``GeneratorExit``), or returns
+something invalid, does not stop the session: the cell records a
+:class:`CellFailure` naming (gamma, n, replicate) with the estimator's own
+traceback, and everything computed so far is kept. A cell the executor loses (a
+worker process that dies, a killed cluster worker) is a ``"crashed"`` failure
+naming that cell, with the rows of the cells finished before it.
 """
 
 from __future__ import annotations
@@ -17,7 +20,8 @@ from __future__ import annotations
 import time
 import traceback
 from collections.abc import Iterable, Iterator, Mapping
-from concurrent.futures import Executor, Future
+from concurrent.futures import BrokenExecutor, CancelledError, Executor, Future
+from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
@@ -103,10 +107,26 @@ class CellOutcome:
 
 
 def run_cell(task: CellTask) -> CellOutcome:
-    """Run the replicates of one cell; stop at the first failure, keeping earlier rows."""
+    """Run the replicates of one cell; stop at the first failure, keeping earlier rows.
+
+    An interrupt (Ctrl-C, or SIGTERM in a pytest session) anywhere in the cell, while
+    sampling, in the estimator or while scoring, keeps the rows finished before it.
+    """
+    outcome = CellOutcome(task.truth.gamma, task.n, [])
+    try:
+        _run_replicates(task, outcome)
+    except KeyboardInterrupt as exc:  # keep what is done; rate_check re-raises after recording it
+        outcome.failure = _interrupted(task, task.start + len(outcome.rows), exc)
+    return outcome
+
+
+def _interrupted(task: CellTask, replicate: int, exc: BaseException) -> CellFailure:
+    return CellFailure(task.truth.gamma, task.n, replicate, "interrupted", type(exc).__name__, "")
+
+
+def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
     truth = task.truth
     problem = truth.problem()
-    outcome = CellOutcome(truth.gamma, task.n, [])
     kernel = task.kernel
     if kernel is None:
         kernel = mdp_kernel(truth.mdp)
@@ -117,15 +137,12 @@ def run_cell(task: CellTask) -> CellOutcome:
         started = time.perf_counter()
         try:
             estimate = task.estimator(batch, problem)
-        except KeyboardInterrupt:  # keep what is done; rate_check re-raises after recording it
-            outcome.failure = CellFailure(truth.gamma, task.n, replicate, "interrupted", "KeyboardInterrupt", "")
-            return outcome
-        except Exception as exc:  # the estimator's own bug: record it, keep the session alive
+        except (Exception, SystemExit, GeneratorExit) as exc:  # the estimator's own bug: record it, keep the session alive
             outcome.failure = CellFailure(
                 truth.gamma, task.n, replicate, "raised", f"{type(exc).__name__}: {exc}",
                 "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)),
             )
-            return outcome
+            return
         seconds = time.perf_counter() - started
         problem_text = _call_problem(estimate, previous, seconds, task.time_limit)
         if problem_text is None:
@@ -135,10 +152,9 @@ def run_cell(task: CellTask) -> CellOutcome:
                 problem_text = str(exc)
         if problem_text is not None:
             outcome.failure = CellFailure(truth.gamma, task.n, replicate, "invalid", problem_text, "")
-            return outcome
+            return
         previous = estimate
         outcome.rows.append((replicate, estimate_error(valid, truth, task.norm), seconds))
-    return outcome
 
 
 def _call_problem(estimate: object, previous: object, seconds: float, time_limit: float | None) -> str | None:
@@ -163,15 +179,72 @@ def _outcomes(tasks: list[CellTask], executor: Executor | None) -> Iterator[Cell
         return
     # largest cells first (n samples x replicates), so that no long cell starts last and keeps
     # one worker busy alone; results are still read in plan order, so tables do not change
-    futures: list[Future[CellOutcome]] = [None] * len(tasks)  # type: ignore[list-item]
-    for index in sorted(range(len(tasks)), key=lambda i: -tasks[i].n * (tasks[i].stop - tasks[i].start)):
-        futures[index] = executor.submit(run_cell, tasks[index])
+    order = sorted(range(len(tasks)), key=lambda i: -tasks[i].n * (tasks[i].stop - tasks[i].start))
+    slots: list[Future[CellOutcome] | None] = [None] * len(tasks)
     try:
-        for future in futures:
-            yield future.result()
+        for index in order:
+            try:
+                slots[index] = executor.submit(run_cell, tasks[index])
+            except BrokenExecutor as exc:  # broken before this cell could even be sent
+                yield _lost(tasks[index], exc)
+                return
+        futures = [future for future in slots if future is not None]
+        for index, (task, future) in enumerate(zip(tasks, futures)):
+            try:
+                outcome = future.result()
+            except KeyboardInterrupt:  # keep the cells already back from the workers, in order; run_sweep names the next
+                for finished in futures[index:]:
+                    if not finished.done() or finished.cancelled() or finished.exception() is not None:
+                        break
+                    yield finished.result()
+                raise
+            except CancelledError:
+                raise
+            except BrokenProcessPool:  # a dead worker breaks every cell in flight: find the one that killed it
+                yield from _one_by_one(tasks[index:])
+                return
+            except BaseException as exc:  # the executor lost the cell: its worker died, or the cluster failed
+                outcome = _lost(task, exc)
+            yield outcome  # outside the try: closing the generator here must not count as a lost cell
+            if outcome.failure is not None and outcome.failure.kind == "crashed":
+                return
     finally:
-        for future in futures:
-            future.cancel()
+        for pending in slots:
+            if pending is not None:
+                pending.cancel()
+
+
+def _one_by_one(tasks: list[CellTask]) -> Iterator[CellOutcome]:
+    """Rerun the cells a broken pool lost, in order, each alone in a fresh one-worker pool, up to the one that dies.
+
+    Streams are seeded per cell, so a rerun gives the rows the lost run would have
+    given; the first cell whose worker dies again is the one named.
+    """
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=1) as alone:
+        for task in tasks:
+            try:
+                outcome = alone.submit(run_cell, task).result()
+            except BrokenExecutor as exc:
+                yield _lost(task, exc, "; it died again when the cell was rerun alone")
+                return
+            yield outcome
+            if outcome.failure is not None:
+                return
+
+
+def _lost(task: CellTask, exc: BaseException, confirmed: str = "") -> CellOutcome:
+    """The outcome of a cell the executor could not run to the end (no rows: its replicates are unaccounted for)."""
+    if isinstance(exc, BrokenExecutor):
+        why = ("the worker process running it died (os._exit, a crash or the out-of-memory killer"
+               f"{confirmed}) and the process pool broke ({type(exc).__name__})")
+    else:
+        why = f"the executor failed while running it: {type(exc).__name__}: {exc}"
+    message = f"replicates {task.start}..{task.stop - 1} of this cell were lost: {why}"
+    detail = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+    return CellOutcome(task.truth.gamma, task.n, [], CellFailure(task.truth.gamma, task.n, task.start, "crashed",
+                                                                 message, detail))
 
 
 def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None) -> tuple[pd.DataFrame, CellFailure | None]:
@@ -182,12 +255,20 @@ def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None) -> tu
     task_list = list(tasks)
     records: list[tuple[float, float, int, int, float, float]] = []
     failure: CellFailure | None = None
-    for outcome in _outcomes(task_list, executor):
-        horizon = 1.0 / (1.0 - outcome.gamma)
-        records.extend((outcome.gamma, horizon, outcome.n, r, e, s) for r, e, s in outcome.rows)
-        if outcome.failure is not None:
-            failure = outcome.failure
-            break
+    done = 0
+    try:
+        for outcome in _outcomes(task_list, executor):
+            horizon = 1.0 / (1.0 - outcome.gamma)
+            records.extend((outcome.gamma, horizon, outcome.n, r, e, s) for r, e, s in outcome.rows)
+            done += 1
+            if outcome.failure is not None:
+                failure = outcome.failure
+                break
+    except KeyboardInterrupt as exc:  # while waiting for a worker, or between cells: the finished cells are kept
+        if done < len(task_list):
+            failure = _interrupted(task_list[done], task_list[done].start, exc)
+        else:
+            raise
     return rows_to_table(records), failure
 
 

@@ -42,8 +42,8 @@ SUBTEST_NAMES: tuple[SubTestName, ...] = get_args(SubTestName)
 Need = Literal["replicates", "larger_n", "nothing"]
 NEEDS: tuple[Need, ...] = get_args(Need)
 
-#: Why an estimator call gave no usable error.
-FailureKind = Literal["raised", "invalid", "interrupted"]
+#: Why an estimator call gave no usable error ("crashed": the executor lost the cell, e.g. its worker process died).
+FailureKind = Literal["raised", "invalid", "interrupted", "crashed"]
 FAILURE_KINDS: tuple[FailureKind, ...] = get_args(FailureKind)
 
 #: What the estimator estimates.

@@ -77,6 +77,33 @@ def _slow(batch: Any, problem: Any) -> np.ndarray:
     return reference.plugin_q_pi(batch, problem)
 
 
+def _exits(batch: Any, problem: Any) -> np.ndarray:
+    if batch.n == 256:
+        raise SystemExit("estimator called sys.exit")
+    return reference.plugin_q_pi(batch, problem)
+
+
+def _generator_exit(batch: Any, problem: Any) -> np.ndarray:
+    if batch.n == 256:
+        raise GeneratorExit
+    return reference.plugin_q_pi(batch, problem)
+
+
+def _kills_its_process(batch: Any, problem: Any) -> np.ndarray:
+    if batch.n == 256:
+        import os
+
+        os._exit(3)
+    return reference.plugin_q_pi(batch, problem)
+
+
+def _worker_dies() -> str:
+    from concurrent.futures import ProcessPoolExecutor
+
+    with ProcessPoolExecutor(max_workers=2) as pool:
+        return _run(_kills_its_process, executor=pool)
+
+
 _SHARED = np.zeros((6, 2))
 
 
@@ -103,6 +130,212 @@ def _report_dir_under_a_file() -> None:
             prepare_report_dir(blocker / "reports", controller=True)
         except pytest.UsageError as exc:
             raise ValueError(str(exc)) from None
+
+
+def _report_dir_with(make: Callable[[Path], None]) -> Callable[[], None]:
+    """Prepare a report directory after ``make`` put something of a user's (or another session's) into it."""
+    def trigger() -> None:
+        import tempfile
+
+        from rlrates.plugin.session import prepare_report_dir
+
+        with tempfile.TemporaryDirectory() as tmp:
+            make(Path(tmp))
+            try:
+                prepare_report_dir(Path(tmp) / "reports", controller=True)
+            except pytest.UsageError as exc:
+                raise ValueError(str(exc)) from None
+
+    return trigger
+
+
+def _users_folder(tmp: Path) -> None:
+    (tmp / "reports" / "api").mkdir(parents=True)
+    (tmp / "reports" / "api" / "check.json").write_text("{}")
+    (tmp / "reports" / "index.md").write_text("# my docs")
+
+
+def _linked_folder(tmp: Path) -> None:
+    (tmp / "reports").mkdir()
+    (tmp / "reports" / "linked").symlink_to(tmp, target_is_directory=True)
+
+
+def _live_lock(tmp: Path) -> None:
+    import os
+
+    (tmp / "reports").mkdir()
+    (tmp / "reports" / ".rlrates-lock").write_text(f"{os.getppid()} another-session\n")
+
+
+def _hand_written_index() -> None:
+    import tempfile
+
+    from rlrates.report import write_index
+
+    with tempfile.TemporaryDirectory() as tmp:
+        _saved_report(Path(tmp))
+        (Path(tmp) / "index.md").write_text("# my own index")
+        write_index(tmp)
+
+
+def _disk_full() -> str:
+    """ENOSPC injected into the file moves of a session's report writer: a warning, and the summary names the check."""
+    import errno
+    import os
+    import tempfile
+    import warnings
+
+    from rlrates.plugin.records import CheckRecord
+    from rlrates.plugin.session import RatesSession
+    from rlrates.plugin.settings import RatesSettings
+    from rlrates.report import ReportWarning
+
+    def no_space(source: str, target: str) -> None:
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    result = rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **SMALL)
+    with tempfile.TemporaryDirectory() as tmp, pytest.MonkeyPatch.context() as patch:
+        session = RatesSession(RatesSettings(report_dir=Path(tmp)))
+        patch.setattr(os, "replace", no_space)
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            session.write_report(result, "tests/test_x.py::test_full")
+        session.records.append(CheckRecord.from_result(result, "tests/test_x.py::test_full"))
+        lines = session.report_lines()
+    assert [w.category for w in caught] == [ReportWarning]
+    return "\n".join([str(caught[0].message), *lines])
+
+
+def _too_many_workers() -> None:
+    import argparse
+
+    from rlrates.plugin.settings import _parse_workers
+
+    try:
+        _parse_workers("100000")
+    except argparse.ArgumentTypeError as exc:
+        raise ValueError(str(exc)) from None
+
+
+def _interrupted_while_sampling() -> str:
+    from rlrates import sweep
+
+    real = sweep.draw_block
+
+    def interrupted(kernel: Any, n: int, *args: Any) -> Any:
+        if n >= 256:
+            raise KeyboardInterrupt
+        return real(kernel, n, *args)
+
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(sweep, "draw_block", interrupted)
+        try:
+            rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **SMALL)
+        except rlrates.CheckInterrupted as exc:
+            return f"{exc} ({len(exc.result.table)} rows kept)"
+    raise AssertionError("the check was not interrupted")
+
+
+def _sigterm() -> str:
+    import os
+    import signal
+
+    from rlrates.plugin.session import Terminated, _on_sigterm
+
+    previous = signal.getsignal(signal.SIGTERM)
+    try:
+        _on_sigterm(os.getpid())(signal.SIGTERM, None)
+    except Terminated as exc:
+        return f"{type(exc).__name__}: {exc}; then {signal.getsignal(signal.SIGTERM)!r}"
+    finally:
+        signal.signal(signal.SIGTERM, previous)
+    raise AssertionError("no Terminated")
+
+
+def _check_with(**options: Any) -> Callable[[], object]:
+    return lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **{**SMALL, **options})
+
+
+def _marker_budget_list() -> None:
+    from rlrates.plugin.marker import parse_marker
+
+    parse_marker((), {"n": -0.5, "budget": ["ci"]}, "test_x.py::test_y")
+
+
+def _load_text(name: str, text: str) -> None:
+    import tempfile
+
+    with tempfile.TemporaryDirectory() as tmp:
+        path = Path(tmp) / name
+        path.write_text(text, encoding="utf-8")
+        rlrates.load_mdp(path)
+
+
+def _forged_npz() -> None:
+    import io
+    import tempfile
+    import zipfile
+
+    header = io.BytesIO()
+    np.lib.format.write_array_header_1_0(header, {"descr": "<f8", "fortran_order": False, "shape": (2000, 100, 2000)})
+    with tempfile.TemporaryDirectory() as tmp:
+        with zipfile.ZipFile(Path(tmp) / "forged.npz", "w") as archive:
+            archive.writestr("P.npy", header.getvalue())
+        rlrates.load_mdp(Path(tmp) / "forged.npz")
+
+
+def _identity_without_an_ini_file() -> str:
+    """The stream identity of tests/test_lab.py::test_rate when pytest started in tests/ (rootdir tests/) and no ini exists."""
+    import tempfile
+    from types import SimpleNamespace
+
+    from rlrates.plugin.identity import stream_identity
+
+    with tempfile.TemporaryDirectory() as tmp:
+        (Path(tmp) / ".git").mkdir()
+        path = Path(tmp) / "tests" / "test_lab.py"
+        item = SimpleNamespace(config=SimpleNamespace(inipath=None, rootpath=path.parent), nodeid="test_lab.py::test_rate",
+                               path=path)
+        return f"streams from {stream_identity(item)}"  # type: ignore[arg-type]
+
+
+def _marker_policy_word() -> None:
+    from rlrates.plugin.marker import parse_marker
+
+    parse_marker((), {"n": -0.5, "policy": "greedy"}, "test_x.py::test_y")
+
+
+def _demo_negative_seed() -> str:
+    import contextlib
+    import io
+
+    from rlrates.__main__ import main
+
+    errors = io.StringIO()
+    with contextlib.redirect_stderr(errors), pytest.raises(SystemExit) as raised:
+        main(["demo", "--seed", "-1"])
+    return f"exit {raised.value.code}: {errors.getvalue()}"
+
+
+def _gym_table_too_large() -> None:
+    from types import SimpleNamespace
+
+    table = {s: {a: [(1.0, s, 0.0, False)] for a in range(4)} for s in range(40_000)}
+    rlrates.from_gymnasium(SimpleNamespace(P=table))
+
+
+def _marker_without_fixture() -> str:
+    import warnings
+    from types import SimpleNamespace
+
+    from rlrates.plugin import pytest_runtest_setup
+
+    item = SimpleNamespace(nodeid="test_x.py::test_y", fixturenames=["request"],
+                           get_closest_marker=lambda name: object() if name == "rlrates" else None)
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        pytest_runtest_setup(item)  # type: ignore[arg-type]
+    return "; ".join(f"{type(w.message).__name__}: {w.message}" for w in caught)
 
 
 def _saved_report(tmp: Path) -> Path:
@@ -182,6 +415,17 @@ CATALOGUE = [
     Case("grid-too-short", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, n_grid=(64, 128)), r"at least three distinct values to fit a slope, got \(64, 128\)"),
     Case("grid-non-integer", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, n_grid=(64, 128.5, 256)), r"positive integers, got 128.5"),
     Case("grid-zero", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, n_grid=(0, 64, 128)), r"positive integers, got 0"),
+    Case("replicates-fraction", _check_with(replicates=4.9), r"`replicates` must be a whole number .* got float 4.9"),
+    Case("replicates-string", _check_with(replicates="10"), r"`replicates` must be a whole number .* got str '10'"),
+    Case("replicates-nan", _check_with(replicates=float("nan")), r"`replicates` must be a whole number .* got float nan"),
+    Case("gammas-number", _check_with(gammas=0.9), r"`gammas` must be a sequence such as \(0.5, 0.9\), got float 0.9"),
+    Case("gammas-string", _check_with(gammas="0.5"), r"`gammas` must be a sequence such as \(0.5, 0.9\), got str '0.5'"),
+    Case("grid-number", _check_with(n_grid=128), r"`n_grid` must be a sequence such as \(128, 256, 512\), got int 128"),
+    Case("grid-huge", _check_with(n_grid=(2**62, 2**63, 2**64)), r"`n_grid` values must lie in 1 .. 2\*\*63 - 1 .* got 9223372036854775808"),
+    Case("executor-not-executor", _check_with(executor=object()), r"`executor` must be a concurrent.futures.Executor .* got object"),
+    Case("policy-unused", _check_with(target="q_star", policy=np.full((6, 2), 0.5)),
+         r"`policy` is the evaluation policy of target 'q_pi' and is not used with target 'q_star'"),
+    Case("marker-budget-list", _marker_budget_list, r"test_x.py::test_y: unknown `budget` \['ci'\]; choose one of ci, appendix"),
     Case("claim-empty", lambda: rlrates.Claim(n=None, horizon=None), r"at least one factor"),
     Case("claim-non-numeric", lambda: rlrates.Claim(n="-1/2"), r"`n` exponent must be a number or None, got '-1/2'"),
     Case("claim-positive", lambda: rlrates.Claim(n=0.5), r"`n` exponent must be negative .* got 0.5"),
@@ -196,13 +440,41 @@ CATALOGUE = [
     Case("return-model-rows", _returns(lambda p: np.full((6, 2, 6), 0.2), "model"), r"model's row \(s=0, a=0\) sums to 1.2"),
     Case("return-model-sparse", _sparse_model_returns_dense, r"returned ndarray; expected a scipy.sparse \(S\*A, S\) = \(12, 6\) transition estimate"),
     Case("estimator-raises", lambda: _run(_raises), r"raised at gamma=0.5, n=256, replicate=0: KeyError: 'missing successor table'(.|\n)*_raises"),
+    Case("estimator-system-exit", lambda: _run(_exits), r"raised at gamma=0.5, n=256, replicate=0: SystemExit: estimator called sys.exit"),
+    Case("estimator-generator-exit", lambda: _run(_generator_exit), r"raised at gamma=0.5, n=256, replicate=0: GeneratorExit"),
+    Case("worker-died", _worker_dies, r"the cell at gamma=0.5, n=256, replicate=0 never finished: replicates 0..3 of this cell were lost: the worker process running it died"),
     Case("estimator-mutates", lambda: _run(_mutates), r"raised at gamma=0.5, n=128, replicate=0: ValueError: assignment destination is read-only"),
     Case("estimator-too-slow", lambda: _run(_slow, time_limit=0.005), r"at gamma=0.5, n=128, replicate=0: the call took .* over the per-call time limit of 0.005 s"),
     Case("estimator-same-object", lambda: _run(_same_object), r"replicate=1: the estimator returned the same array object"),
+    Case("interrupt-outside-estimator", _interrupted_while_sampling,
+         r"interrupted \(KeyboardInterrupt\) at gamma=0.5, n=256, replicate=0; the rows finished before it are kept \(4 rows kept\)"),
+    Case("sigterm", _sigterm, r"Terminated: SIGTERM; then <Handlers.SIG_DFL: 0>"),
     Case("family-not-mdp", lambda: rlrates.check(reference.plugin_q_pi, lambda g: "mdp", CLAIM, **SMALL), r"returned str for gamma=0.5, not a TabularMDP"),
     Case("time-limit", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, time_limit=-1), r"`time_limit` must be a positive number of seconds, got -1"),
     Case("estimator-not-picklable", _process_pool_with_a_lambda, r"cannot be pickled, so it cannot be sent to the ProcessPoolExecutor.*module-level function"),
+    Case("workers-too-many", _too_many_workers, r"100000 worker processes is more than this machine can run usefully: "
+         r"at most \d+ \(4 per CPU on its \d+ CPU\(s\)\)"),
     Case("report-dir-not-writable", _report_dir_under_a_file, r"--rlrates-report: cannot write to the report directory .*occupied/reports"),
+    Case("file-npz-huge", _forged_npz, r"forged.npz: array P.npy has shape \(2000, 100, 2000\), 400,000,000 entries \(2.98 GiB"),
+    Case("file-json-huge", lambda: _load_text("rows.json", '{"R": [' + ", ".join(["[0.0]"] * 20_000) + '], "transitions": []}'),
+         r"rows.json: the P that 'R' implies has shape \(20000, 1, 20000\), 400,000,000 entries"),
+    Case("file-json-deep", lambda: _load_text("deep.json", "[" * 100_000 + "]" * 100_000), r"deep.json: JSON nested too deeply"),
+    Case("file-json-big-number", lambda: _load_text("big.json", '{"R": [[1' + "0" * 400 + ']], "P": [[[1.0]]]}'),
+         r"big.json: 'R' holds a number too large for a float64"),
+    Case("file-npz-is-text", lambda: _load_text("text.npz", "P R info"), r"text.npz: not an .npz archive \(a zip file of P.npy"),
+    Case("marker-without-fixture", _marker_without_fixture,
+         r"^MarkerUnusedWarning: @pytest.mark.rlrates on test_x.py::test_y, which uses neither the `rlrates` nor"),
+    Case("marker-policy-word", _marker_policy_word, r"test_x.py::test_y: `policy` must be an \(S, A\) array .* got 'greedy'"),
+    Case("demo-negative-seed", _demo_negative_seed, r"exit 2: (.|\n)*argument --seed: the master seed must be an integer >= 0, got '-1'"),
+    Case("gym-too-large", _gym_table_too_large, r"a dense P of shape \(40001, 4, 40001\) has 6,400,320,004 entries \(47.7 GiB"),
+    Case("streams-start-directory", _identity_without_an_ini_file, r"^streams from tests/test_lab.py::test_rate$"),
+    Case("report-dir-foreign", _report_dir_with(_users_folder),
+         r"--rlrates-report: not written by rlrates, so left alone: .*reports/api, .*reports/index.md"),
+    Case("report-dir-symlink", _report_dir_with(_linked_folder), r"not written by rlrates, so left alone: .*reports/linked"),
+    Case("report-dir-locked", _report_dir_with(_live_lock), r"in use by another rlrates session \(pid \d+, lock file"),
+    Case("report-index-hand-written", _hand_written_index, r"index.md; refusing to overwrite index.md"),
+    Case("report-disk-full", _disk_full, r"the report of tests/test_x.py::test_full was not written to .*: No space left on device; "
+         r"the test keeps its verdict\n(.|\n)*1 report\(s\) missing \(could not be written\): tests/test_x.py::test_full"),
     Case("report-json-corrupt", _corrupt_report(_truncate_json), r"check.json: not valid JSON \(line \d+, column \d+"),
     Case("report-csv-edited", _corrupt_report(_drop_error_column), r"errors.csv: .*error"),
     Case("label-empty", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, label=" ", **SMALL),

@@ -3,7 +3,7 @@ and an estimator that cannot travel to another process is refused up front with 
 
 from __future__ import annotations
 
-from concurrent.futures import ProcessPoolExecutor, ThreadPoolExecutor
+from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -110,3 +110,77 @@ def test_a_sparse_mdp_in_a_process_pool_matches_serial() -> None:
         pooled = rlrates.check(reference.plugin_q_pi, held, CLAIM, seed=5, executor=pool)
     pd.testing.assert_frame_equal(_numbers(alone), _numbers(pooled), check_exact=True)
     assert pooled.status == alone.status == "pass"
+
+
+def _dies_at_512(batch: Any, problem: Any) -> np.ndarray:
+    """A worker-killing bug: the process exits at n = 512 without raising anything."""
+    if batch.n >= 512:
+        import os
+
+        os._exit(3)
+    return reference.plugin_q_pi(batch, problem)
+
+
+def test_a_worker_that_dies_is_an_error_naming_the_cell_with_the_rows_before_it(garnet: rlrates.TabularMDP,
+                                                                                 serial: rlrates.CheckResult) -> None:
+    """Common practice: a lost process is reported where it happened, and the finished work survives."""
+    with ProcessPoolExecutor(max_workers=2) as pool:
+        result = rlrates.check(_dies_at_512, garnet, CLAIM, seed=3, executor=pool)
+    assert result.status == "error"
+    failure = result.failure
+    assert failure is not None and failure.kind == "crashed"
+    assert (failure.gamma, failure.n, failure.replicate) == (min(result.budget.gammas), 512, 0)
+    assert "worker process running it died" in result.message and "gamma=0.5, n=512" in result.message
+    # the cells finished before it are kept, and equal the serial run's rows for those cells
+    kept = _numbers(result)
+    assert len(kept) > 0 and set(kept["n"]) <= {128, 256}
+    expected = _numbers(serial).merge(kept[["gamma", "n", "replicate"]], on=["gamma", "n", "replicate"])
+    pd.testing.assert_frame_equal(kept.reset_index(drop=True), expected, check_exact=True)
+
+
+
+# --------------------------------------------------------------------------- interrupts outside the estimator
+# (common practice: an interrupt keeps the work finished before it)
+
+
+def test_an_interrupt_while_sampling_keeps_the_finished_rows(monkeypatch: pytest.MonkeyPatch, garnet: rlrates.TabularMDP,
+                                                              serial: rlrates.CheckResult) -> None:
+    from rlrates import sweep
+
+    real = sweep.draw_block
+
+    def interrupted_at_512(kernel: Any, n: int, *args: Any) -> Any:
+        if n >= 512:
+            raise KeyboardInterrupt
+        return real(kernel, n, *args)
+
+    monkeypatch.setattr(sweep, "draw_block", interrupted_at_512)
+    with pytest.raises(rlrates.CheckInterrupted) as raised:
+        rlrates.check(reference.plugin_q_pi, garnet, CLAIM, seed=3)
+    result = raised.value.result
+    assert result.failure is not None and (result.failure.kind, result.failure.n) == ("interrupted", 512)
+    kept = _numbers(result)
+    assert len(kept) > 0 and set(kept["n"]) <= {128, 256}
+    expected = _numbers(serial).merge(kept[["gamma", "n", "replicate"]], on=["gamma", "n", "replicate"])
+    pd.testing.assert_frame_equal(kept.reset_index(drop=True), expected, check_exact=True)
+
+
+class _InterruptedWhileWaiting(Executor):
+    """An executor whose cells at n >= 512 are 'interrupted' while the caller waits for them (Ctrl-C in the main process)."""
+
+    def submit(self, fn: Any, /, *args: Any, **kwargs: Any) -> Future[Any]:
+        future: Future[Any] = Future()
+        if args[0].n >= 512:
+            future.set_exception(KeyboardInterrupt())
+        else:
+            future.set_result(fn(*args, **kwargs))
+        return future
+
+
+def test_an_interrupt_while_waiting_for_workers_keeps_the_finished_cells(garnet: rlrates.TabularMDP) -> None:
+    with pytest.raises(rlrates.CheckInterrupted) as raised:
+        rlrates.check(reference.plugin_q_pi, garnet, CLAIM, seed=3, executor=_InterruptedWhileWaiting())
+    result = raised.value.result
+    assert result.failure is not None and (result.failure.kind, result.failure.n, result.failure.replicate) == (
+        "interrupted", 512, 0)
+    assert len(result.table) > 0 and set(result.table["n"]) <= {128, 256}

@@ -50,7 +50,8 @@ def test_folder_names_are_safe_readable_and_distinct() -> None:
 
 def test_check_folder_holds_tables_and_figures(session: Path) -> None:
     folder = session / check_folder_name(PASS_ID)
-    assert sorted(p.name for p in folder.iterdir()) == ["check.json", "errors.csv", "figure.pdf", "figure.png"]
+    assert sorted(p.name for p in folder.iterdir()) == [".rlrates-files", "check.json", "errors.csv", "figure.pdf", "figure.png"]
+    assert (folder / ".rlrates-files").read_text().splitlines() == ["check.json", "errors.csv", "figure.pdf", "figure.png"]
     assert (folder / "figure.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
     assert (folder / "figure.pdf").read_bytes()[:5] == b"%PDF-"
 
@@ -171,7 +172,7 @@ def test_erroring_check_keeps_its_rows_and_the_failure(session: Path, erroring: 
 
 
 def test_no_temporary_files_are_left(session: Path) -> None:
-    allowed = {"check.json", "errors.csv", "figure.png", "figure.pdf", "index.md", "index.tex"}
+    allowed = {"check.json", "errors.csv", "figure.png", "figure.pdf", "index.md", "index.tex", ".rlrates-files"}
     names = {p.name for p in session.rglob("*") if p.is_file()}
     assert names == allowed
 
@@ -186,7 +187,7 @@ def test_an_interrupted_write_keeps_the_previous_files(monkeypatch: pytest.Monke
     monkeypatch.setattr(os, "replace", full_disk)
     with pytest.raises(OSError, match="No space left"):
         write_check(failing, tables_only.parent, PASS_ID, figures=False)
-    assert {p.name for p in tables_only.iterdir()} == set(before)
+    assert {p.name for p in tables_only.iterdir()} == set(before) | {".rlrates-files"}
     assert {name: (tables_only / name).read_bytes() for name in before} == before
 
 
@@ -198,12 +199,12 @@ def test_without_matplotlib_tables_are_written_with_one_line(monkeypatch: pytest
     monkeypatch.setitem(sys.modules, "matplotlib", None)
     folder = tmp_path / check_folder_name(PASS_ID)
     folder.mkdir()
-    (folder / "figure.png").write_bytes(b"stale figure of an older run")
+    report.files.write_text(folder / "figure.png", "stale figure of an older run")  # written by the plugin
     with pytest.warns(ReportWarning) as caught:
         assert write_check(passing, tmp_path, PASS_ID) == folder
     assert [str(w.message) for w in caught] == [report.FIGURES_SKIPPED]
     assert report.FIGURES_SKIPPED == "figures skipped: install pytest-rlrates[plot] (matplotlib) to get them"
-    assert sorted(p.name for p in folder.iterdir()) == ["check.json", "errors.csv"]  # the stale figure is gone
+    assert sorted(p.name for p in folder.iterdir()) == [".rlrates-files", "check.json", "errors.csv"]  # the stale figure is gone
     with pytest.warns(ReportWarning) as caught:
         written = rebuild(tmp_path)
     assert len(caught) == 1 and sorted(p.name for p in written) == ["index.md", "index.tex"]
@@ -271,3 +272,68 @@ def test_corrupt_reports_raise_a_report_error_naming_the_file(tables_only: Path,
 def test_a_clean_copy_of_the_csv_reads_back(tables_only: Path) -> None:
     """The control for the corruption cases: the untouched folder reads without complaint."""
     assert len(read_check(tables_only).errors) > 0
+
+
+# --------------------------------------------------------------------------- whose files (common practice: a tool
+# only removes what it can show it wrote, and never follows a symbolic link out of its directory)
+
+
+def test_a_hand_written_file_is_never_overwritten(tmp_path: Path, passing: CheckResult) -> None:
+    (tmp_path / "index.md").write_text("# my own notes\n")
+    folder = tmp_path / folder_name(PASS_ID)
+    folder.mkdir()
+    (folder / "check.json").write_text("{}")  # someone's file where a check would go
+    with pytest.raises(report.files.ForeignFiles, match=r"check\.json.*refusing to overwrite check\.json"):
+        write_check(passing, tmp_path, PASS_ID, figures=False)
+    assert (folder / "check.json").read_text() == "{}"
+    with pytest.raises(report.files.ForeignFiles, match=r"index\.md.*refusing to overwrite index\.md"):
+        report.files.write_text(tmp_path / "index.md", "replaced")
+    assert (tmp_path / "index.md").read_text() == "# my own notes\n"
+
+
+def test_a_symlinked_check_folder_is_not_written_through(tmp_path: Path, passing: CheckResult) -> None:
+    elsewhere = tmp_path / "elsewhere"
+    elsewhere.mkdir()
+    (tmp_path / "report").mkdir()
+    (tmp_path / "report" / folder_name(PASS_ID)).symlink_to(elsewhere, target_is_directory=True)
+    with pytest.raises(report.files.ForeignFiles, match="symbolic link"):
+        write_check(passing, tmp_path / "report", PASS_ID, figures=False)
+    assert list(elsewhere.iterdir()) == []
+
+
+def test_clear_own_removes_only_what_the_plugin_wrote(tmp_path: Path, passing: CheckResult) -> None:
+    write_check(passing, tmp_path, PASS_ID, figures=False)
+    rlrates.report.write_index(tmp_path)
+    removed = report.files.clear_own(tmp_path)
+    assert sorted(p.name for p in removed) == ["check.json", "errors.csv", "index.md", "index.tex"]
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("intruder", ["top-level file", "file in a check folder", "folder with a check.json",
+                                      "hand-written index", "symlink"])
+def test_clear_own_refuses_a_directory_with_foreign_files_and_removes_nothing(tmp_path: Path, passing: CheckResult,
+                                                                              intruder: str) -> None:
+    folder = write_check(passing, tmp_path, PASS_ID, figures=False)
+    outside = tmp_path.parent / f"{tmp_path.name}-outside"
+    outside.mkdir(exist_ok=True)
+    (outside / "keep.txt").write_text("mine")
+    foreign = {
+        "top-level file": tmp_path / "NOTES.txt",
+        "file in a check folder": folder / "NOTES.txt",
+        "folder with a check.json": tmp_path / "api" / "check.json",
+        "hand-written index": tmp_path / "index.md",
+        "symlink": tmp_path / "linked",
+    }[intruder]
+    if intruder == "symlink":
+        foreign.symlink_to(outside, target_is_directory=True)
+    else:
+        foreign.parent.mkdir(exist_ok=True)
+        foreign.write_text("a user's file")
+    shown = foreign.parent if intruder == "folder with a check.json" else foreign
+    before = sorted(p for p in tmp_path.rglob("*"))
+    with pytest.raises(report.files.ForeignFiles) as raised:
+        report.files.clear_own(tmp_path)
+    assert raised.value.paths == [shown] and str(shown) in str(raised.value)
+    assert sorted(p for p in tmp_path.rglob("*")) == before
+    assert (outside / "keep.txt").read_text() == "mine"
+

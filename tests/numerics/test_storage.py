@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 from typing import Any
 
@@ -193,3 +194,66 @@ def test_metadata_that_is_not_json_is_refused_before_writing(tmp_path: Path) -> 
         assert not (tmp_path / f"odd{suffix}").exists()
     with pytest.raises(TypeError, match=r"`mdp` must be a TabularMDP, got dict"):
         rlrates.save_mdp({"P": HAND_P}, tmp_path / "x.json")  # type: ignore[arg-type]
+
+
+# --------------------------------------------------------------------------- files that would take gigabytes
+# (common practice: read the declared sizes first, as the .npy header format documents them, and refuse before allocating)
+
+
+def _forged_npz(path: Path, shape: tuple[int, ...]) -> Path:
+    """An .npz whose P.npy header declares ``shape`` but holds no data (a few hundred bytes on disk)."""
+    import io
+    import zipfile
+
+    header = io.BytesIO()
+    np.lib.format.write_array_header_1_0(header, {"descr": "<f8", "fortran_order": False, "shape": shape})
+    with zipfile.ZipFile(path, "w") as archive:
+        archive.writestr("P.npy", header.getvalue())
+        for key, value in (("R", np.array(HAND_R)), ("info", GOOD_INFO)):
+            buffer = io.BytesIO()
+            np.save(buffer, value)
+            archive.writestr(f"{key}.npy", buffer.getvalue())
+    return path
+
+
+@pytest.mark.parametrize("shape", [(2000, 100, 2000), (10**6, 10**6, 10**6)], ids=["3-GB", "466-TiB"])
+def test_an_npz_declaring_a_huge_array_is_refused_before_loading(tmp_path: Path, shape: tuple[int, ...]) -> None:
+    path = _forged_npz(tmp_path / "forged.npz", shape)
+    assert path.stat().st_size < 2000
+    with pytest.raises(ValueError, match=rf"forged\.npz: array P\.npy has shape \({shape[0]}, {shape[1]}, {shape[2]}\), "
+                                         r"[\d,]+ entries .*more than the 100,000,000 entries an MDP file may hold"):
+        rlrates.load_mdp(path)
+
+
+def test_a_json_whose_rewards_imply_a_huge_kernel_is_refused(tmp_path: Path) -> None:
+    path = tmp_path / "rows.json"
+    path.write_text('{"R": [' + ", ".join(["[0.0]"] * 200_000) + '], "transitions": []}', encoding="utf-8")
+    with pytest.raises(ValueError, match=r"rows\.json: the P that 'R' implies has shape \(200000, 1, 200000\), "
+                                         r"40,000,000,000 entries"):
+        rlrates.load_mdp(path)
+
+
+@pytest.mark.parametrize(
+    ("text", "match"),
+    [
+        ("[" * 100_000 + "]" * 100_000, r"deep\.json: JSON nested too deeply"),
+        ('{"R": [[1' + "0" * 400 + ']], "P": [[[1.0]]]}', r"deep\.json: 'R' holds a number too large for a float64"),
+        ('{"R": [[1' + "0" * 5000 + ']], "P": [[[1.0]]]}', r"deep\.json: a number in the JSON cannot be read"),
+        ('{"R": [[0.0]], "transitions": [[0, 0, 0, 1' + "0" * 400 + "]]}", r"deep\.json: 'transitions' entry 0 .*too large"),
+    ],
+    ids=["nesting", "10**400", "digit-limit", "10**400-prob"],
+)
+def test_json_nesting_and_number_sizes_are_value_errors_naming_the_file(tmp_path: Path, text: str, match: str) -> None:
+    path = tmp_path / "deep.json"
+    path.write_text(text, encoding="utf-8")
+    with pytest.raises(ValueError, match=match):
+        rlrates.load_mdp(path)
+
+
+def test_a_text_file_named_npz_gets_no_advice_to_allow_pickling(tmp_path: Path) -> None:
+    path = tmp_path / "text.npz"
+    path.write_text("P R info\n", encoding="utf-8")
+    with pytest.raises(ValueError) as raised:
+        rlrates.load_mdp(path)
+    assert "pickle" not in str(raised.value)
+    assert re.search(r"text\.npz: not an \.npz archive \(a zip file of P\.npy, R\.npy and info\.npy\)", str(raised.value))

@@ -47,6 +47,10 @@ __all__ = [
 MDP_FIXTURE = "rlrates_mdp"
 
 
+class MarkerUnusedWarning(pytest.PytestWarning):
+    """A test carries the ``rlrates`` marker but never checks anything (it uses neither rlrates fixture)."""
+
+
 # --------------------------------------------------------------------------- options and session
 
 
@@ -92,16 +96,8 @@ def pytest_terminal_summary(terminalreporter: Any, exitstatus: int, config: pyte
     if session is None or not session.records:
         return
     if session.settings.report_dir is not None:
-        from ..report import FIGURES_SKIPPED, figures_available, write_index
-
-        written = write_index(session.settings.report_dir)
-        if written:
-            terminalreporter.write_line(
-                f"rlrates report: {len(session.records)} check(s) under {session.settings.report_dir} "
-                f"({', '.join(path.name for path in written)})"
-            )
-        if not figures_available():
-            terminalreporter.write_line(f"rlrates report: {FIGURES_SKIPPED}")
+        for line in session.report_lines():
+            terminalreporter.write_line(line)
     from .records import format_summary
 
     lines = format_summary(session.records)
@@ -152,6 +148,17 @@ def pytest_itemcollected(item: pytest.Item) -> None:
         item.stash[ITEM_SPEC] = session_of(item.config).markers.spec(item)
     except MarkerError:
         pass  # only a mark of a pytest.param can get here; the fixture fails the test with the error
+
+
+def pytest_runtest_setup(item: pytest.Item) -> None:
+    """Warn (as the test starts, where ``-W error`` makes it the test's error) about a marker nothing reads."""
+    if item.get_closest_marker(MARKER) is not None and not {"rlrates", MDP_FIXTURE} & set(getattr(item, "fixturenames", ())):
+        import warnings
+
+        warnings.warn(MarkerUnusedWarning(
+            f"@pytest.mark.{MARKER} on {item.nodeid}, which uses neither the `rlrates` nor the `{MDP_FIXTURE}` "
+            "fixture: the marked claim is never checked, and the test passes on its own"
+        ))
 
 
 # --------------------------------------------------------------------------- fixtures

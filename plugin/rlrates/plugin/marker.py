@@ -106,7 +106,7 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
         except ValueError as exc:
             raise _bad(where, str(exc)) from None
     budget = kwargs.get("budget")
-    if budget is not None and not isinstance(budget, Budget) and budget not in BUDGETS:
+    if budget is not None and not isinstance(budget, Budget) and (not isinstance(budget, str) or budget not in BUDGETS):
         raise _bad(where, f"unknown `budget` {budget!r}; choose one of {', '.join(BUDGETS)} or pass an rlrates.Budget")
     label = kwargs.get("label")
     if label is not None and (not isinstance(label, str) or not label.strip()):

@@ -17,6 +17,7 @@ from typing import TYPE_CHECKING, Any
 import pytest
 
 from ..vocabulary import PROPERTY_NAME
+from .identity import stream_identity
 from .marker import MARKER, item_spec
 from .settings import BUDGET_OPTION, SEED_OPTION, WORKERS_OPTION
 
@@ -112,12 +113,10 @@ class RatesRunner:
         self.results.append(result)
         settings = self._session.settings
         if settings.report_dir is not None:
-            from ..report import figures_available, write_check
-
             nodeid = self._item.nodeid
             test_id = nodeid if len(self.results) == 1 else f"{nodeid}#{len(self.results)}"
-            write_check(result, settings.report_dir, test_id, figures=figures_available(),
-                        expected=expected_failure(self._item), figure_width=settings.figure_width)
+            self._session.write_report(result, test_id, expected=expected_failure(self._item),
+                                       figure_width=settings.figure_width)
 
     def _refuse_session_owned(self, check_options: dict[str, Any]) -> None:
         __tracebackhide__ = True
@@ -169,7 +168,7 @@ class RatesRunner:
                 budget=budget or spec.budget or settings.budget,
                 seed=settings.seed,
                 executor=self._session.executor(),
-                context=nodeid,
+                context=stream_identity(self._item),
                 reproducer=self.reproducer,
                 label=check_label(self._item, label or spec.label, len(self.results) + 1),
                 **check_options,

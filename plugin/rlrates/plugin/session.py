@@ -11,6 +11,8 @@ the standard library (and the tiny vocabulary).
 from __future__ import annotations
 
 import os
+import warnings
+from contextlib import suppress
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -24,10 +26,48 @@ from .settings import REPORT_OPTION, RatesSettings, resolve_settings
 if TYPE_CHECKING:  # pragma: no cover
     from concurrent.futures import Executor
 
+    from ..result import CheckResult
     from ..suite import SuiteMember
     from .records import CheckRecord
 
-__all__ = ["RatesSession", "start_session", "end_session", "session_of", "session_or_none", "session_settings", "prepare_report_dir"]
+__all__ = ["Terminated", "RatesSession", "start_session", "end_session", "session_of", "session_or_none", "session_settings", "prepare_report_dir"]
+
+
+class Terminated(KeyboardInterrupt):
+    """SIGTERM, raised in the session's main process so that it stops as on Ctrl-C.
+
+    The check in flight keeps its finished rows and writes its report, pytest
+    writes its JUnit file and summary, and the worker pool is shut down rather
+    than left orphaned.
+    """
+
+
+def _on_sigterm(owner: int) -> Any:
+    """A SIGTERM handler for process ``owner``; forked pool workers that inherit it die as SIGTERM says."""
+    import signal
+
+    def handler(signum: int, frame: Any) -> None:
+        signal.signal(signal.SIGTERM, signal.SIG_DFL)  # a second SIGTERM ends the process at once
+        if os.getpid() != owner:
+            os.kill(os.getpid(), signal.SIGTERM)
+            return
+        raise Terminated("SIGTERM")
+
+    return handler
+
+
+def _install_sigterm_handler() -> Any:
+    """Install the handler when SIGTERM has its default action (never replace someone else's); return it."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return None
+    if signal.getsignal(signal.SIGTERM) is not signal.SIG_DFL:
+        return None
+    handler = _on_sigterm(os.getpid())
+    signal.signal(signal.SIGTERM, handler)
+    return handler
 
 
 @dataclass(eq=False)  # hashed by identity: pytest puts registered plugins in sets
@@ -44,11 +84,16 @@ class RatesSession:
     built: dict[str, Any] = field(default_factory=dict)
     _seen: dict[str, int] = field(default_factory=dict)
     _executor: Executor | None = None
+    _lock: Any = None  # the report directory's ReportLock, held by the controller
+    _sigterm: Any = None  # the SIGTERM handler this session installed
 
     def executor(self) -> Executor | None:
-        """The session's process pool, created on first use when workers > 1."""
+        """The session's process pool, created on first use when workers > 1, and rebuilt when a worker died."""
         if self.settings.workers <= 1:
             return None
+        if self._executor is not None and not _usable(self._executor):
+            self._executor.shutdown(wait=False, cancel_futures=True)
+            self._executor = None
         if self._executor is None:
             from concurrent.futures import ProcessPoolExecutor
 
@@ -63,10 +108,64 @@ class RatesSession:
             self.built[member.name] = member.build()
         return self.built[member.name]
 
+    def write_report(self, result: CheckResult, label: str, *, expected: Any = None, figure_width: Any = None) -> None:
+        """Write one check's report folder; one that cannot be written (a full disk) is a warning, not a failure.
+
+        The test keeps its verdict; the terminal summary lists the reports that are missing.
+        """
+        from ..report import ReportError, ReportWarning, figures_available, write_check
+
+        assert self.settings.report_dir is not None
+        try:
+            write_check(result, self.settings.report_dir, label, figures=figures_available(), expected=expected,
+                        figure_width=figure_width)
+        except (OSError, ReportError) as exc:
+            text = (f"rlrates: the report of {label} was not written to {self.settings.report_dir}: "
+                    f"{getattr(exc, 'strerror', None) or exc}; the test keeps its verdict")
+            with suppress(ReportWarning):  # even under -W error: the verdict is the test's, not the disk's
+                warnings.warn(text, ReportWarning, stacklevel=4)
+
+    def report_lines(self) -> list[str]:
+        """The terminal summary's lines about the report directory: the index written, the reports missing."""
+        from ..report import FIGURES_SKIPPED, RECORD_FILE, figures_available, folder_name, write_index
+
+        directory = self.settings.report_dir
+        assert directory is not None
+        lines = []
+        try:
+            written = write_index(directory)
+        except (OSError, ValueError) as exc:
+            lines.append(f"rlrates report: index not written under {directory}: {getattr(exc, 'strerror', None) or exc}")
+        else:
+            if written:
+                lines.append(f"rlrates report: {len(self.records)} check(s) under {directory} "
+                             f"({', '.join(path.name for path in written)})")
+        counts: dict[str, int] = {}
+        missing = []
+        for record in self.records:
+            counts[record.test] = counts.get(record.test, 0) + 1
+            label = record.test if counts[record.test] == 1 else f"{record.test}#{counts[record.test]}"
+            if not (directory / folder_name(label) / RECORD_FILE).is_file():
+                missing.append(label)
+        if missing:
+            lines.append(f"rlrates report: {len(missing)} report(s) missing (could not be written): {', '.join(missing)}")
+        if not figures_available():
+            lines.append(f"rlrates report: {FIGURES_SKIPPED}")
+        return lines
+
     def close(self) -> None:
         if self._executor is not None:
             self._executor.shutdown(wait=True, cancel_futures=True)
             self._executor = None
+        if self._lock is not None:
+            self._lock.release()
+            self._lock = None
+        if self._sigterm is not None:
+            import signal
+
+            if signal.getsignal(signal.SIGTERM) is self._sigterm:
+                signal.signal(signal.SIGTERM, signal.SIG_DFL)
+            self._sigterm = None
 
     def pytest_runtest_logreport(self, report: pytest.TestReport) -> None:
         texts = [value for name, value in report.user_properties if name == PROPERTY_NAME]
@@ -86,8 +185,24 @@ class RatesSession:
 _SESSION = pytest.StashKey[RatesSession]()
 
 
-def prepare_report_dir(directory: Path, controller: bool) -> None:
-    """Make sure the report directory is writable; on the controller, clear earlier sessions' checks."""
+def _usable(executor: Executor) -> bool:
+    """Whether ``executor`` still takes work: a pool whose worker died refuses every submit with BrokenExecutor."""
+    from concurrent.futures import BrokenExecutor
+
+    try:
+        executor.submit(os.getpid)
+    except (BrokenExecutor, RuntimeError):  # RuntimeError: shut down
+        return False
+    return True
+
+
+def prepare_report_dir(directory: Path, controller: bool) -> Any:
+    """Make sure the report directory is writable; on the controller, lock it and clear earlier sessions' checks.
+
+    Returns the controller's lock (``None`` on a pytest-xdist worker). Only what
+    the plugin wrote is removed; a directory holding anything else, or locked
+    by another live session, is a usage error naming the files or the pid.
+    """
     try:
         directory.mkdir(parents=True, exist_ok=True)
         probe = directory / f".rlrates-write-test-{os.getpid()}"
@@ -98,21 +213,29 @@ def prepare_report_dir(directory: Path, controller: bool) -> None:
             f"{REPORT_OPTION}: cannot write to the report directory {directory}: {exc.strerror or exc}"
         ) from None
     if not controller:
-        return
-    import shutil
+        return None
+    from ..report.files import ReportError, clear_own
+    from ..report.lock import lock_report_dir
 
-    for old in directory.iterdir():  # only folders this plugin wrote: they hold a check.json
-        if old.is_dir() and (old / "check.json").is_file():
-            shutil.rmtree(old)
-    for name in ("index.md", "index.tex"):
-        (directory / name).unlink(missing_ok=True)
+    try:
+        lock = lock_report_dir(directory)
+    except ReportError as exc:
+        raise pytest.UsageError(f"{REPORT_OPTION}: {exc}") from None
+    try:
+        clear_own(directory)
+    except (ReportError, OSError) as exc:
+        lock.release()
+        raise pytest.UsageError(f"{REPORT_OPTION}: {exc}") from None
+    return lock
 
 
 def start_session(config: pytest.Config) -> RatesSession:
     """Resolve the settings, prepare the report directory, keep the session in the stash and register it."""
     session = RatesSession(resolve_settings(config))
     if session.settings.report_dir is not None:
-        prepare_report_dir(session.settings.report_dir, controller=not hasattr(config, "workerinput"))
+        session._lock = prepare_report_dir(session.settings.report_dir, controller=not hasattr(config, "workerinput"))
+    if not hasattr(config, "workerinput"):  # pytest-xdist workers are stopped by their controller
+        session._sigterm = _install_sigterm_handler()
     config.stash[_SESSION] = session
     config.pluginmanager.register(session, "rlrates-session")
     return session

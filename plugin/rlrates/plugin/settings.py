@@ -21,7 +21,8 @@ import pytest
 __all__ = [
     "BUDGET_OPTION", "SEED_OPTION", "REPORT_OPTION", "WORKERS_OPTION", "INCONCLUSIVE_OPTION", "SUITE_OPTION",
     "FIGURE_WIDTH_OPTION",
-    "INCONCLUSIVE_CHOICES", "BUDGET_NAMES", "DEFAULT_SEED", "RANDOM_SEED", "WORKER_SEED_KEY",
+    "INCONCLUSIVE_CHOICES", "BUDGET_NAMES", "DEFAULT_SEED", "RANDOM_SEED", "WORKER_SEED_KEY", "WORKERS_PER_CPU",
+    "workers_limit",
     "RatesSettings", "add_options", "resolve_settings",
 ]
 
@@ -39,6 +40,15 @@ DEFAULT_SEED = 0
 RANDOM_SEED = "random"
 #: The key under which the controller hands its master seed to pytest-xdist workers.
 WORKER_SEED_KEY = "rlrates_master_seed"
+#: ``--rlrates-workers`` may be at most this many times the machine's CPU count.
+WORKERS_PER_CPU = 4
+
+
+def workers_limit() -> int:
+    """The largest accepted ``--rlrates-workers``: ``WORKERS_PER_CPU`` times ``os.cpu_count()`` (4 when unknown)."""
+    import os
+
+    return WORKERS_PER_CPU * (os.cpu_count() or 1)
 
 
 # --------------------------------------------------------------------------- option values
@@ -73,6 +83,11 @@ def _parse_workers(text: str) -> int:
         raise argparse.ArgumentTypeError(f"the number of worker processes must be an integer >= 1, got {text!r}") from None
     if workers < 1:
         raise argparse.ArgumentTypeError(f"the number of worker processes must be an integer >= 1, got {text!r}")
+    if workers > workers_limit():
+        raise argparse.ArgumentTypeError(
+            f"{workers} worker processes is more than this machine can run usefully: at most {workers_limit()} "
+            f"({WORKERS_PER_CPU} per CPU on its {workers_limit() // WORKERS_PER_CPU} CPU(s)), got {text!r}"
+        )
     return workers
 
 
@@ -126,7 +141,7 @@ def add_options(parser: pytest.Parser) -> None:
     group.addoption(
         WORKERS_OPTION, dest="rlrates_workers", type=_parse_workers, default=None, metavar="N",
         help="spread each check's sweep over N worker processes; results do not depend on N "
-        "(default 1; ini key rlrates_workers).",
+        f"(default 1, at most {WORKERS_PER_CPU} per CPU; ini key rlrates_workers).",
     )
     group.addoption(
         INCONCLUSIVE_OPTION, dest="rlrates_inconclusive", type=_parse_inconclusive, default=None,

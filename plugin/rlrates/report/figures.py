@@ -20,7 +20,6 @@ registry to leak. matplotlib is optional and imported only through
 from __future__ import annotations
 
 from collections.abc import Mapping
-from contextlib import suppress
 from pathlib import Path
 from types import ModuleType
 from typing import TYPE_CHECKING, Any
@@ -29,7 +28,7 @@ import pandas as pd
 
 from .axes import STACK_BELOW, add_legend
 from .figure_data import cell_points
-from .files import FIGURE_FILES, write_atomic
+from .files import FIGURE_FILES, remove_own, write_atomic
 from .panels import Style, panel_horizon, panel_n
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -182,8 +181,7 @@ def draw_figures(folder: Path, table: pd.DataFrame, record: Mapping[str, Any],
     figure = build_figure(table, record, width)
     if figure is None:
         for name in FIGURE_FILES:
-            with suppress(FileNotFoundError):
-                (folder / name).unlink()
+            remove_own(folder / name)  # a stale figure of an earlier run, never someone else's file
         return []
     written = []
     for name in FIGURE_FILES:
