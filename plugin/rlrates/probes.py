@@ -10,6 +10,8 @@ check turns the sentences into :class:`rlrates.RatesWarning`).
 
 from __future__ import annotations
 
+from collections.abc import Mapping
+from concurrent.futures import Executor, ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
@@ -20,7 +22,7 @@ from .result import CellFailure
 from .sampling import SupportKernel, draw_block
 from .targets import Truth
 
-__all__ = ["determinism_probe", "deterministic_mdp", "constant_replicates"]
+__all__ = ["determinism_probe", "deterministic_mdp", "run_probes", "constant_replicates"]
 
 #: Spawn-key word of the probe's own stream (kept apart from every sweep stream).
 _PROBE_KEY = 0x70726F62
@@ -74,6 +76,34 @@ def deterministic_mdp(mdp: TabularMDP) -> str | None:
         "counts sees the exact model at every n, so the rate is untested here; use a stochastic MDP "
         "(for example one with slip) to test it"
     )
+
+
+def run_probes(estimator: Any, target: str, truths: Mapping[float, Truth], kernels: Mapping[float, SupportKernel],
+               n: int, seed: int, executor: Executor | None) -> list[str]:
+    """The sentences of the pre-sweep probes: a deterministic MDP, an estimator that is not a function of its batch.
+
+    With a process or cluster executor the determinism probe runs there, so an
+    estimator that kills its process takes down a worker (which the sweep then
+    reports by cell), never the session.
+    """
+    notes: list[str] = []
+    if target != "model":
+        deterministic = {deterministic_mdp(truth.mdp) for truth in truths.values()} - {None}
+        notes.extend(sorted(text for text in deterministic if text))
+    gamma = min(truths)
+    args = (estimator, truths[gamma], kernels[gamma], n, seed)
+    if executor is None or isinstance(executor, ThreadPoolExecutor):
+        drift = determinism_probe(*args)
+    else:
+        try:
+            drift = executor.submit(determinism_probe, *args).result()
+        except KeyboardInterrupt:
+            raise
+        except BaseException:  # a worker lost to the probe: the sweep reports the estimator's failure by cell
+            drift = None
+    if drift:
+        notes.append(drift)
+    return notes
 
 
 def constant_replicates(summary: pd.DataFrame, table: pd.DataFrame, target: str) -> CellFailure | None:

@@ -31,7 +31,7 @@ from .families import rebuild_call
 from .fitting import summarise_cells
 from .mdp import TabularMDP
 from .messages import format_message
-from .probes import constant_replicates, determinism_probe, deterministic_mdp
+from .probes import constant_replicates, run_probes
 from .budgets import Budget, resolve_budget
 from .result import Block, CellFailure, CheckInterrupted, CheckResult, Evidence, MDPDescription, RunInfo
 from .sampling import SupportKernel, mdp_kernel
@@ -308,28 +308,8 @@ def _warn_design(call: _Call, own_grid: bool) -> None:
 
 def _probe(call: _Call, truths: dict[float, Truth], kernels: dict[float, SupportKernel],
            executor: Executor | None) -> list[str]:
-    """Warn (and note) when the estimator is not a function of its batch or the MDP cannot test a rate.
-
-    With a process or cluster executor the probe runs there too, so an estimator that
-    kills its process takes down a worker (reported by the sweep), never the session.
-    """
-    notes: list[str] = []
-    if call.target != "model":
-        deterministic = {deterministic_mdp(truth.mdp) for truth in truths.values()} - {None}
-        notes.extend(sorted(text for text in deterministic if text))
-    gamma = min(truths)
-    args = (call.estimator, truths[gamma], kernels[gamma], call.design.n_grid[0], call.seed)
-    if executor is None or isinstance(executor, ThreadPoolExecutor):
-        drift = determinism_probe(*args)
-    else:
-        try:
-            drift = executor.submit(determinism_probe, *args).result()
-        except KeyboardInterrupt:
-            raise
-        except BaseException:  # a worker lost to the probe: the sweep reports the estimator's failure by cell
-            drift = None
-    if drift:
-        notes.append(drift)
+    """Warn (and note) when the estimator is not a function of its batch or the MDP cannot test a rate."""
+    notes = run_probes(call.estimator, call.target, truths, kernels, call.design.n_grid[0], call.seed, executor)
     for note in notes:
         warnings.warn(note, RatesWarning, stacklevel=3)
     return notes
