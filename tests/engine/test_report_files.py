@@ -280,7 +280,7 @@ def test_a_clean_copy_of_the_csv_reads_back(tables_only: Path) -> None:
 
 def test_a_hand_written_file_is_never_overwritten(tmp_path: Path, passing: CheckResult) -> None:
     (tmp_path / "index.md").write_text("# my own notes\n")
-    folder = tmp_path / folder_name(PASS_ID)
+    folder = tmp_path / check_folder_name(PASS_ID)
     folder.mkdir()
     (folder / "check.json").write_text("{}")  # someone's file where a check would go
     with pytest.raises(report.files.ForeignFiles, match=r"check\.json.*refusing to overwrite check\.json"):
@@ -295,7 +295,7 @@ def test_a_symlinked_check_folder_is_not_written_through(tmp_path: Path, passing
     elsewhere = tmp_path / "elsewhere"
     elsewhere.mkdir()
     (tmp_path / "report").mkdir()
-    (tmp_path / "report" / folder_name(PASS_ID)).symlink_to(elsewhere, target_is_directory=True)
+    (tmp_path / "report" / check_folder_name(PASS_ID)).symlink_to(elsewhere, target_is_directory=True)
     with pytest.raises(report.files.ForeignFiles, match="symbolic link"):
         write_check(passing, tmp_path / "report", PASS_ID, figures=False)
     assert list(elsewhere.iterdir()) == []

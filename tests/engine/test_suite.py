@@ -126,8 +126,9 @@ def _fit(factor: str, exponent: float, low: float, high: float, claimed: float, 
 
 
 def _record(test: str, status: str, fits: tuple[Fit, ...], fired: tuple[str, ...] = ()) -> CheckRecord:
-    return CheckRecord(test=test, status=status, target="q_pi", mdp="chain-S10-slip0.1", claim="error <~ n^-0.5",
-                       fits=fits, fired=fired, seconds=0.25, seed=5, budget="ci", passes=1, calls=240)
+    return CheckRecord(test=test, label=test.rsplit("::", 1)[-1], status=status, target="q_pi",
+                       mdp="chain-S10-slip0.1", claim="error <~ n^-0.5", fits=fits, fired=fired, seconds=0.25, seed=5,
+                       budget="ci", passes=1, calls=240, rerun=f"pytest {test}", problem="")
 
 
 def test_record_from_a_result_survives_json_with_nan_as_null() -> None:
@@ -136,8 +137,9 @@ def test_record_from_a_result_survives_json_with_nan_as_null() -> None:
     fits = (_fit("n", -0.51, -0.56, -0.47, -0.5, "ok"), _fit("horizon", math.nan, math.nan, math.nan, 2.0, "unclear"))
     result = SimpleNamespace(  # the attributes CheckRecord.from_result reads
         status="pass", target="q_pi", mdp=SimpleNamespace(name="grid"), fired=("floor",), seed=3,
-        run=SimpleNamespace(elapsed=1.5, passes=2), claim=rlrates.Claim(n=-0.5, horizon=2.0),
-        budget=BUDGETS["ci"], table=pd.DataFrame({"error": [0.1] * 7}), factors=fits,
+        run=SimpleNamespace(elapsed=1.5, passes=2, label=""), claim=rlrates.Claim(n=-0.5, horizon=2.0),
+        budget=BUDGETS["ci"], table=pd.DataFrame({"error": [0.1] * 7}), factors=fits, estimator_calls=7,
+        failure=None,
     )
     record = CheckRecord.from_result(result, "t.py::t")  # type: ignore[arg-type]
     text = record.to_json()
@@ -162,15 +164,14 @@ def test_summary_lists_each_check_sorted_with_fits_and_a_tally() -> None:
         _record("t.py::test_b", "fail", (bad, flat), ("floor", "rate")),
         _record("t.py::test_a", "pass", (ok,)),
     ])
-    assert lines == [
-        "verdict             seconds  target  mdp                test",
-        "PASS                   0.25  q_pi    chain-S10-slip0.1  t.py::test_a",
-        "                             n -0.516 in [-0.565, -0.466], claimed <= -0.5: ok",
-        "FAIL (floor, rate)     0.25  q_pi    chain-S10-slip0.1  t.py::test_b",
-        "                             n +0.013 in [-0.044, +0.048], claimed <= -0.5: violated",
-        "                             H not measurable, claimed <= +2: unclear",
-        "2 check(s): 1 pass, 1 fail; 0.50 s in checks",
-    ]
+    # grouped by verdict, failures first, one line per check in words, a rerun line under a failure
+    assert lines[0] == "failed (1):"
+    assert lines[1].startswith("  test_b: q_pi on chain-S10-slip0.1 (floor, rate fired): ")
+    assert "tested limit" in lines[1]
+    assert lines[2] == "      rerun alone: pytest t.py::test_b"
+    assert lines[3] == "passed (1):" and lines[4].startswith("  test_a: q_pi on chain-S10-slip0.1: ")
+    assert lines[5].startswith("2 rate check(s) in all: 1 pass, 1 fail")
+    assert not any("seconds" in line for line in lines)  # no timing column
     assert format_summary([]) is None
 
 
