@@ -159,7 +159,7 @@ def _advice(fit: Fit, replicates: int) -> tuple[str, bool]:
         return f"the {fit.symbol}-exponent could not be measured: no budget of this design settles it", False
     if fit.high <= limit:
         return (f"{interval} is inside the tested limit {limit:+.3f}, but a sub-test is undecided (see the notes); "
-                "larger n would settle it"), True
+                "more replicates or larger n would settle it"), True
     distance = abs(limit - fit.exponent)
     # the bound that must move: the pass-side one when the estimate is inside the limit, else the fire-side one
     z = ((fit.high - fit.exponent) if fit.exponent < limit else (fit.exponent - fit.low)) / fit.se

@@ -127,7 +127,7 @@ class RatesSession:
 
     def report_lines(self) -> list[str]:
         """The terminal summary's lines about the report directory: the index written, the reports missing."""
-        from ..report import FIGURES_SKIPPED, RECORD_FILE, figures_available, folder_name, write_index
+        from ..report import FIGURES_SKIPPED, RECORD_FILE, check_folder_name, figures_available, write_index
 
         directory = self.settings.report_dir
         assert directory is not None
@@ -145,7 +145,8 @@ class RatesSession:
         for record in self.records:
             counts[record.test] = counts.get(record.test, 0) + 1
             label = record.test if counts[record.test] == 1 else f"{record.test}#{counts[record.test]}"
-            if not (directory / folder_name(label) / RECORD_FILE).is_file():
+            own_label = record.label if record.label != record.test.rsplit("::", 1)[-1] else None
+            if not (directory / check_folder_name(label, own_label) / RECORD_FILE).is_file():
                 missing.append(label)
         if missing:
             lines.append(f"rlrates report: {len(missing)} report(s) missing (could not be written): {', '.join(missing)}")
