@@ -244,6 +244,9 @@ def check(
     kernels = _kernels(truths)
     plan = SweepPlan(call.estimator, truths, kernels, call.seed, context, call.norm, call.time_limit)
     probe_notes = _probe(call, truths, kernels, executor)
+    if call.target == "q_pi" and policy is None:  # recorded in the notes, so check.json says which policy ran
+        probe_notes.append("evaluation policy: random stochastic rows seeded by the MDP's fingerprint "
+                           "(rlrates.targets.default_policy)")
     passes = _run_passes(plan, executor, call, truths)
     if reproducer is None:
         extras = {"norm": norm if norm != "sup" else None, "n_grid": n_grid, "gammas": gammas,

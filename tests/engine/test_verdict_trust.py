@@ -228,3 +228,10 @@ def test_one_cached_estimate_per_n_is_an_error(garnet: rlrates.TabularMDP) -> No
     result = rlrates.check(zoo.PerNCache(), garnet, SIM_LEMMA, seed=0)
     assert result.status == "error"
     assert "the estimator does not depend on its batch (a cache keyed on n" in result.message
+
+
+def test_the_default_policy_is_recorded_in_the_notes_and_the_record(garnet: rlrates.TabularMDP) -> None:
+    result = rlrates.check(reference.plugin_q_pi, garnet, SIM_LEMMA, seed=0)
+    assert any("seeded by the MDP's fingerprint (rlrates.targets.default_policy)" in note for note in result.notes)
+    given = rlrates.check(reference.plugin_q_pi, garnet, SIM_LEMMA, seed=0, policy=rlrates.uniform_policy(garnet))
+    assert not any("default_policy" in note for note in given.notes)
