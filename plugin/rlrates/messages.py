@@ -69,10 +69,9 @@ def format_message(result: CheckResult) -> str:
                 f"lower {low:.2%}, upper {high:.2%} one-sided" for low, high in sorted(levels)))
         for fit in result.factors:
             if fit.measured and math.isfinite(fit.detectable):
-                lines.append(f"power:     would have caught {fit.symbol}^{fit.detectable:+.2f} or steeper growth "
-                             f"with 95% probability" if fit.factor == "horizon" else
-                             f"power:     would have caught {fit.symbol}^{fit.detectable:+.2f} or slower decay "
-                             f"with 95% probability")
+                worse = "steeper growth" if fit.factor == "horizon" else "slower decay"
+                lines.append(f"power:     would have caught {fit.symbol}^{fit.detectable:+.2f} or {worse} "
+                             "with 95% probability")
         for reason in result.reasons:
             lines.append(f"why:       {reason}")
         if result.status == "pass" and not result.reasons:

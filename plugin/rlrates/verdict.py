@@ -197,7 +197,7 @@ def _combine(tests: list[SubTest], fits: list[Fit], slopes: pd.DataFrame, cells:
         if undecided:
             reasons.append(f"undecided sub-test(s): {', '.join(undecided)}")
         for fit in unclear:
-            if fit.verdict == "unclear" and not (math.isfinite(fit.low) and math.isfinite(fit.high)):
+            if not (math.isfinite(fit.low) and math.isfinite(fit.high)):
                 reasons.append(f"the {fit.symbol}-exponent has no finite bounds (errors that overflow, or are not "
                                "numbers): a claim is never passed on such evidence")
         settles = []
