@@ -55,7 +55,7 @@ def format_message(result: CheckResult) -> str:
         lines.append(f"why:       {result.failure.describe()}")
         lines.append(f"           {len(result.table)} replicate(s) finished before it and are kept in the table")
         if result.failure.traceback:
-            lines.append("estimator traceback:")
+            lines.append("executor traceback:" if result.failure.kind == "crashed" else "estimator traceback:")
             lines.extend("    " + line for line in result.failure.traceback.rstrip().splitlines())
     else:
         lines.append("fitted:    factor    exponent [one-sided bounds]   tested limit (claim + tolerance)  verdict")

@@ -242,7 +242,10 @@ def _lost(task: CellTask, exc: BaseException, confirmed: str = "") -> CellOutcom
     else:
         why = f"the executor failed while running it: {type(exc).__name__}: {exc}"
     message = f"replicates {task.start}..{task.stop - 1} of this cell were lost: {why}"
-    detail = "".join(traceback.format_exception(type(exc), exc, exc.__traceback__))
+    # a dead worker leaves no Python traceback of its own; the one at hand is the pool's
+    # plumbing, which would only bury the cell's name, so none is shown
+    detail = "" if isinstance(exc, BrokenExecutor) else "".join(
+        traceback.format_exception(type(exc), exc, exc.__traceback__))
     return CellOutcome(task.truth.gamma, task.n, [], CellFailure(task.truth.gamma, task.n, task.start, "crashed",
                                                                  message, detail))
 

@@ -276,7 +276,9 @@ def test_a_dead_worker_is_an_error_naming_its_cell_and_the_next_check_gets_a_new
     result = project.runpytest_subprocess("--rlrates-workers=2", "--rlrates-report=out")
     result.assert_outcomes(passed=1, failed=1)
     output = result.stdout.str()
-    assert "BrokenProcessPool" not in output.split("short test summary")[-1]
+    # the pool's own plumbing is not shown as if it were the estimator's traceback (with or
+    # without pytest's untruncated CI summary)
+    assert "Traceback" not in output and "concurrent/futures" not in output, output
     result.stdout.fnmatch_lines(["*the cell at gamma=0.5, n=512, replicate=0 never finished*worker process running it died*"])
     folders = _check_folders(project.path / "out")
     record = json.loads((folders["test_inner.py::test_dies"] / "check.json").read_text())
