@@ -39,6 +39,7 @@ class Budget:
     n_tolerance: slack on the n-exponent (pooled and per discount) before "rate too slow" fires.
     floor_tolerance: slack on each discount's upper-grid slope before "error floor" fires.
     horizon_tolerance: slack on the H-exponent before "horizon growth too steep" fires.
+    coverage_tolerance: slack on the C-exponent (logged data) before "coverage dependence too steep" fires.
     zero_level: absolute error at or below which an error counts as zero (default 0: only
         floating-point zero, relative to the value scale, counts). Set it to the stopping
         tolerance of an iterative solver when that floor is acceptable.
@@ -65,6 +66,7 @@ class Budget:
     n_tolerance: float = 0.08
     floor_tolerance: float = 0.25
     horizon_tolerance: float = 0.3
+    coverage_tolerance: float = 0.3
     zero_level: float = 0.0
     min_n_per_horizon: float = 8.0
     saturation: float = 0.5
@@ -95,7 +97,7 @@ class Budget:
         for level in ("alpha", "pass_alpha"):
             if not 0.0 < float(getattr(self, level)) < 0.5:
                 raise ValueError(f"`{level}` must lie in (0, 0.5), got {getattr(self, level)!r}")
-        for name in ("n_tolerance", "floor_tolerance", "horizon_tolerance", "zero_level", "saturation",
+        for name in ("n_tolerance", "floor_tolerance", "horizon_tolerance", "coverage_tolerance", "zero_level", "saturation",
                      "min_n_per_horizon", "policy_resolution"):
             value = getattr(self, name)
             if isinstance(value, bool) or not isinstance(value, (int, float)) or not 0.0 <= float(value) < float("inf"):
@@ -140,6 +142,7 @@ BUDGETS: dict[str, Budget] = {
         alpha=0.005,
         n_tolerance=0.05,
         horizon_tolerance=0.2,
+        coverage_tolerance=0.2,
     ),
 }
 

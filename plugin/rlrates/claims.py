@@ -3,6 +3,9 @@
 ``Claim(n=-0.5, horizon=2.0)`` reads "error <~ C n^-0.5 H^2": the error falls at
 least as fast as n^-1/2 in the number n of samples per state-action pair, and
 grows at most like H^2 in the effective horizon H = 1 / (1 - gamma).
+``Claim(n=-0.5, coverage=0.5)`` reads "error <~ n^-1/2 C^1/2" for logged data, C
+being the concentrability coefficient of the data distribution (the largest ratio
+of the target policy's occupancy to the data's, over state-action pairs).
 """
 
 from __future__ import annotations
@@ -39,20 +42,28 @@ class Claim:
     horizon:
         Claimed exponent of H = 1/(1 - gamma), e.g. 2.0 (simulation lemma) or 1.5
         (variance-aware plug-in analyses). ``None`` leaves H-growth untested.
+    coverage:
+        Claimed exponent of the concentrability coefficient C (logged data only:
+        ``data="transitions"`` or ``"trajectories"``), e.g. 0.5 for "error <~
+        sqrt(C / n)". The check sweeps behaviour policies of graded coverage and
+        fits the C-exponent at fixed n. ``None`` leaves it untested.
     """
 
     n: float | None = -0.5
     horizon: float | None = None
+    coverage: float | None = None
 
     def __post_init__(self) -> None:
         n = _exponent(self.n, "n")
         horizon = _exponent(self.horizon, "horizon")
-        if n is None and horizon is None:
-            raise ValueError("a Claim needs at least one factor: give an `n` exponent, a `horizon` exponent, or both")
+        coverage = _exponent(self.coverage, "coverage")
+        if n is None and horizon is None and coverage is None:
+            raise ValueError("a Claim needs at least one factor: give an `n`, a `horizon` or a `coverage` exponent")
         if n is not None and n >= 0:
             raise ValueError(f"`n` exponent must be negative (error falling with more samples), got {n:g}")
         object.__setattr__(self, "n", n)
         object.__setattr__(self, "horizon", horizon)
+        object.__setattr__(self, "coverage", coverage)
 
     def describe(self) -> str:
         """Human-readable form, e.g. ``error <~ n^-0.5 * H^2``."""
@@ -61,8 +72,11 @@ class Claim:
             parts.append(f"n^{self.n:g}")
         if self.horizon is not None:
             parts.append(f"H^{self.horizon:g}")
+        if self.coverage is not None:
+            parts.append(f"C^{self.coverage:g}")
         return "error <~ " + " * ".join(parts)
 
     def as_call(self) -> str:
         """Python source that rebuilds this claim."""
-        return f"rlrates.Claim(n={self.n!r}, horizon={self.horizon!r})"
+        extra = f", coverage={self.coverage!r}" if self.coverage is not None else ""
+        return f"rlrates.Claim(n={self.n!r}, horizon={self.horizon!r}{extra})"

@@ -21,7 +21,8 @@ import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import special
 
-__all__ = ["Slope", "fit_slope", "fit_cells", "pooled_slope", "summarise_cells", "DiscountFit", "fit_discounts", "HorizonFit", "fit_horizon"]
+__all__ = ["Slope", "fit_slope", "fit_cells", "pooled_slope", "summarise_cells", "DiscountFit", "fit_discounts",
+           "HorizonFit", "fit_horizon", "CoverageFit", "fit_coverage"]
 
 
 @dataclass(frozen=True)
@@ -172,6 +173,51 @@ def fit_horizon(cells: pd.DataFrame, gammas: list[float]) -> HorizonFit:
     return HorizonFit(pooled_slope(slopes), tuple(common), tuple(measured), left_out)
 
 
+@dataclass(frozen=True)
+class CoverageFit:
+    """The C-exponent pooled over every (discount, n) at which every behaviour level has a usable, non-zero cell.
+
+    ``coverage`` maps each level to its concentrability coefficient (at the first
+    discount fitted); ``points`` lists the (gamma, n) pairs the fit pooled.
+    """
+
+    slope: Slope | None
+    points: tuple[tuple[float, int], ...]
+    coverage: dict[int, float]
+    left_out: dict[int, str]
+
+
+def fit_coverage(cells: pd.DataFrame) -> CoverageFit:
+    """The C-exponent: per (gamma, n), the least-squares slope of log mean error on log C over the behaviour levels.
+
+    ``cells`` are the usable cells of every level (columns gamma, behaviour, C, n,
+    zero, log_mean, log_var, replicates). Slopes at different (gamma, n) use
+    disjoint cells, so their mean has the variance of a mean of independent slopes.
+    """
+    levels = sorted(int(b) for b in cells["behaviour"].unique()) if len(cells) else []
+    coverage = {int(b): float(c) for b, c in cells.drop_duplicates("behaviour")[["behaviour", "C"]].to_numpy()}
+    positive = cells[~cells["zero"]]
+    left_out = {level: "zero error or no usable cell at every n" for level in levels
+                if not len(positive[positive["behaviour"] == level])}
+    measured = [level for level in levels if level not in left_out]
+    if len(measured) < 2:
+        return CoverageFit(None, (), coverage, left_out)
+    kept = positive[positive["behaviour"].isin(measured)]
+    counts = kept.groupby(["gamma", "n"])["behaviour"].nunique()
+    common = sorted((float(g), int(n)) for g, n in counts[counts == len(measured)].index)
+    if not common:
+        return CoverageFit(None, (), coverage, left_out)
+    slopes = []
+    for gamma, n in common:
+        at = kept[(kept["gamma"] == gamma) & (kept["n"] == n)].sort_values("C")
+        if at["C"].nunique() < 2:
+            continue
+        slopes.append(fit_cells(at, "C"))
+    if not slopes:
+        return CoverageFit(None, (), coverage, left_out)
+    return CoverageFit(pooled_slope(slopes), tuple(common), coverage, left_out)
+
+
 def summarise_cells(table: pd.DataFrame, zero_tolerance: dict[float, float] | None = None,
                     exact_tolerance: dict[float, float] | None = None) -> pd.DataFrame:
     """Per (gamma, n): replicates, mean, median and sd of the error, log mean and its delta-method variance.
@@ -183,7 +229,8 @@ def summarise_cells(table: pd.DataFrame, zero_tolerance: dict[float, float] | No
     all slightly wrong is not zero. ``constant`` marks non-zero cells whose
     replicates all gave the same error.
     """
-    grouped = table.groupby(["gamma", "n"], sort=True)["error"]
+    keys = ["gamma", "behaviour", "C", "n"] if "behaviour" in table.columns else ["gamma", "n"]
+    grouped = table.groupby(keys, sort=True)["error"]
     summary = grouped.agg(replicates="count", mean="mean", median="median", sd="std", high="max",
                           low="min").reset_index()
     summary["sd"] = summary["sd"].fillna(0.0)

@@ -44,9 +44,20 @@ def mean_error_grid(table: pd.DataFrame) -> pd.DataFrame:
     """Mean error per n (rows) and gamma (columns)."""
     if not len(table):
         return pd.DataFrame()
+    if "behaviour" in table.columns and table["behaviour"].nunique() > 1:  # a coverage sweep: one column per C
+        grid = table.pivot_table(index="n", columns=["gamma", "C"], values="error", aggfunc="mean")
+        grid.columns = [f"gamma={pair[0]:g} C={pair[1]:.3g}" for pair in list(grid.columns)]
+        return grid
     grid = table.pivot_table(index="n", columns="gamma", values="error", aggfunc="mean")
     grid.columns = [f"gamma={g:g}" for g in grid.columns]
     return grid
+
+
+_ASSUMED = {
+    "generative": "generative model",
+    "transitions": "i.i.d. logged transitions from an exactly known occupancy",
+    "trajectories": "logged episodes of a fixed length from a known initial distribution",
+}
 
 
 def format_message(result: CheckResult) -> str:
@@ -69,7 +80,7 @@ def format_message(result: CheckResult) -> str:
                 f"lower {low:.2%}, upper {high:.2%} one-sided" for low, high in sorted(levels)))
         for fit in result.factors:
             if fit.measured and math.isfinite(fit.detectable):
-                worse = "steeper growth" if fit.factor == "horizon" else "slower decay"
+                worse = "slower decay" if fit.factor == "n" else "steeper growth"
                 lines.append(f"power:     would have caught {fit.symbol}^{fit.detectable:+.2f} or {worse} "
                              "with 95% probability")
         for reason in result.reasons:
@@ -95,6 +106,6 @@ def format_message(result: CheckResult) -> str:
         f"budget:   {result.budget.name}, {result.run.passes} pass(es), {result.estimator_calls} estimator calls, "
         f"{result.run.elapsed:.2f} s ({result.run.estimator_seconds:.2f} s in the estimator)"
     )
-    lines.append("evidence under idealised assumptions (generative model, known rewards), not a proof")
+    lines.append(f"evidence under idealised assumptions ({_ASSUMED[result.data_regime]}, known rewards), not a proof")
     lines.append(f"reproduce: {result.run.reproducer}")
     return "\n".join(lines)

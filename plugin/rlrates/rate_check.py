@@ -21,28 +21,26 @@ from concurrent.futures import Executor, ThreadPoolExecutor
 from dataclasses import dataclass
 from typing import Any
 
-import pandas as pd
-
 from .arguments import check_arguments
 from .claims import Claim
-from .escalation import Escalation
 from .estimator_origin import estimator_expression, estimator_origin
 from .families import rebuild_call
-from .fitting import summarise_cells
 from .mdp import TabularMDP
 from .messages import format_message
-from .probes import constant_replicates, run_probes
+from .passes import Passes, ground_truth_unchanged, run_passes
+from .probes import run_probes
 from .budgets import Budget, resolve_budget
-from .result import Block, CellFailure, CheckInterrupted, CheckResult, Evidence, MDPDescription, RunInfo
+from .regimes import COVERAGE_LEVELS, logged_n_grid, logged_notes, plan_logged, regime_design, validate_data
+from .result import CheckInterrupted, CheckResult, Evidence, MDPDescription, RunInfo
 from .sampling import SupportKernel, mdp_kernel
-from .sweep import Estimator, SweepPlan, blocks_of, run_sweep
-from .targets import Truth, solve_truth, validate_norm, validate_target, zero_levels
-from .verdict import Decision, decide
+from .sweep import Estimator, SweepPlan
+from .targets import Truth, solve_truth, validate_norm, validate_target
 from .vocabulary import Status
 
 __all__ = ["check", "CheckResult", "CheckInterrupted", "RatesWarning"]
 
 MDPSource = TabularMDP | Callable[[float], TabularMDP]
+
 
 
 class RatesWarning(UserWarning):
@@ -113,18 +111,7 @@ class _Call:
     seed: int
     design: Budget
     time_limit: float | None
-
-
-@dataclass(frozen=True)
-class _Passes:
-    """What the passes of a check produced."""
-
-    table: pd.DataFrame
-    decision: Decision
-    failure: CellFailure | None
-    passes: int
-    blocks: tuple[Block, ...]
-    state: Escalation
+    data: str = "generative"
 
 
 def check(
@@ -146,6 +133,9 @@ def check(
     time_limit: float | None = None,
     zero_level: float | None = None,
     label: str | None = None,
+    data: str = "generative",
+    behaviour: Any = None,
+    episode_length: int | None = None,
 ) -> CheckResult:
     """Check that ``estimator``'s error on ``mdp`` falls and grows as ``claim`` says.
 
@@ -202,6 +192,18 @@ def check(
     label : str, optional
         A short name for the check in reports (index rows, figure files); the
         pytest layer defaults it to the test function's name.
+    data : {"generative", "transitions", "trajectories"}, default "generative"
+        Where the samples come from (:mod:`rlrates.regimes`): n next states for
+        every pair, or n logged transitions of a behaviour policy, i.i.d. from its
+        discounted occupancy or in whole episodes. For logged data n counts
+        transitions in all (the default grid is the budget's times S A), the
+        targets are "q_pi" and "value", and ``batch`` is an
+        :class:`rlrates.logged.LoggedBatch`.
+    behaviour : array_like or callable, optional
+        Logged data: the (S, A) behaviour policy (or ``mdp -> policy``); default a
+        seeded random stochastic one (:func:`rlrates.occupancy.default_behaviour`).
+    episode_length : int, optional
+        Trajectories: steps per episode (default the smallest power of two at least 2 H).
 
     Returns
     -------
@@ -228,9 +230,13 @@ def check(
     'pass'
     """
     check_arguments(n_grid=n_grid, gammas=gammas, replicates=replicates, executor=executor, target=target, policy=policy)
+    regime = validate_data(data, target, behaviour, episode_length,
+                           isinstance(claim, Claim) and claim.coverage is not None)
     call = _validate(estimator, claim, target, norm, seed, executor, time_limit,
                      resolve_budget(budget, n_grid=n_grid, gammas=gammas, replicates=replicates,
                                     zero_level=zero_level))
+    call = dataclasses.replace(call, data=regime, design=regime_design(call.design, call.target, regime, call.claim,
+                                                                      replicates is not None, gammas is not None))
     if label is not None and (not isinstance(label, str) or not label.strip()):
         raise TypeError(f"`label` must be a non-empty string, got {label!r}")
     call = _model_over_n_only(call, mdp, gammas is not None)
@@ -242,16 +248,23 @@ def check(
         built = _mdp_for(mdp, gamma)
         truths[gamma] = solve_truth(built, gamma, call.target, _policy_for(policy, built))
     kernels = _kernels(truths)
-    plan = SweepPlan(call.estimator, truths, kernels, call.seed, context, call.norm, call.time_limit)
-    probe_notes = _probe(call, truths, kernels, executor)
+    if regime != "generative":
+        call, plan, probe_notes = _logged_plan(call, truths, kernels, context, behaviour, episode_length,
+                                               n_grid is not None)
+    else:
+        plan = SweepPlan(call.estimator, truths, kernels, call.seed, context, call.norm, call.time_limit)
+        probe_notes = _probe(call, truths, kernels, executor)
     if call.target == "q_pi" and policy is None:  # recorded in the notes, so check.json says which policy ran
         probe_notes.append("evaluation policy: random stochastic rows seeded by the MDP's fingerprint "
                            "(rlrates.targets.default_policy)")
-    passes = _run_passes(plan, executor, call, truths)
+    passes = run_passes(plan, executor, call.claim, call.design, call.target, truths)
+    passes = ground_truth_unchanged(passes, truths)
     if reproducer is None:
         extras = {"norm": norm if norm != "sup" else None, "n_grid": n_grid, "gammas": gammas,
                   "replicates": replicates, "context": context or None, "time_limit": time_limit,
-                  "zero_level": zero_level}
+                  "zero_level": zero_level, "data": regime if regime != "generative" else None,
+                  "behaviour": "<the behaviour given>" if behaviour is not None else None,
+                  "episode_length": episode_length}
         mdp_call = rebuild_call(metadata) or f"<the MDP {name!r}: not rebuildable from its metadata, build it as before>"
         reproducer = _reproducer(call, mdp_call, policy is not None, extras)
     run = RunInfo(passes.passes, time.perf_counter() - started,
@@ -263,6 +276,18 @@ def check(
     if passes.failure is not None and passes.failure.kind == "interrupted":
         raise CheckInterrupted(result)
     return result
+
+
+def _logged_plan(call: _Call, truths: dict[float, Truth], kernels: dict[float, SupportKernel], context: str,
+                 behaviour: Any, episode_length: int | None, own_grid: bool) -> tuple[_Call, SweepPlan, list[str]]:
+    """A logged-data check's design, its (discount, behaviour) settings and the notes that describe its data."""
+    if not own_grid:  # n counts transitions: the budget's samples per pair times S A
+        grid = logged_n_grid(call.design.n_grid, next(iter(truths.values())).mdp)
+        call = dataclasses.replace(call, design=dataclasses.replace(call.design, n_grid=grid))
+    settings, samplers = plan_logged(truths, kernels, call.data, behaviour, episode_length,
+                                     COVERAGE_LEVELS if call.claim.coverage is not None else 1)
+    plan = SweepPlan(call.estimator, settings, samplers, call.seed, context, call.norm, call.time_limit)
+    return call, plan, logged_notes(settings, behaviour is None)
 
 
 def _validate(estimator: object, claim: object, target: object, norm: object, seed: object,
@@ -327,38 +352,6 @@ def _kernels(truths: dict[float, Truth]) -> dict[float, SupportKernel]:
     return {gamma: by_fingerprint[truth.mdp.fingerprint] for gamma, truth in truths.items()}
 
 
-def _run_passes(plan: SweepPlan, executor: Executor | None, call: _Call, truths: dict[float, Truth]) -> _Passes:
-    """Run passes until the verdict is decided, a cell fails, or the escalation allowance is spent."""
-    design = call.design
-    zero_tolerance, exact_tolerance = zero_levels(truths, call.target, design)
-    scale = {g: t.scale for g, t in truths.items()}
-    state, step = Escalation.start(design)
-    tables: list[pd.DataFrame] = []
-    blocks: list[Block] = []
-    decision = Decision(status="ambiguous")
-    passes = 0
-    while True:
-        passes += 1
-        pending = plan.tasks(step.n_values, step.start, step.stop)
-        blocks.extend(blocks_of(pending))
-        part, failure = run_sweep(pending, executor)
-        tables.append(part)
-        table = pd.concat(tables, ignore_index=True)
-        if failure is not None:
-            break
-        summary = summarise_cells(table, zero_tolerance, exact_tolerance)
-        failure = constant_replicates(summary, table, call.target)
-        if failure is not None:
-            break
-        decision = decide(summary, call.claim, design, scale, window=len(design.n_grid))
-        escalated = state.next(decision.need) if decision.status == "ambiguous" else None
-        if escalated is None:
-            break
-        state, step = escalated
-    table = table.sort_values(["gamma", "n", "replicate"], ignore_index=True)
-    return _Passes(table, decision, failure, passes, tuple(blocks), state)
-
-
 def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str, Any]) -> str:
     """The Python that reproduces the check: ``import rlrates; import module; rlrates.check(module.name, ...)``."""
     imported, name = estimator_expression(call.estimator)
@@ -372,7 +365,7 @@ def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str
     )
 
 
-def _assemble(call: _Call, passes: _Passes, run: RunInfo, mdp: MDPDescription,
+def _assemble(call: _Call, passes: Passes, run: RunInfo, mdp: MDPDescription,
               probe_notes: list[str]) -> CheckResult:
     """The frozen result, with its message rendered once."""
     decision = passes.decision
@@ -395,5 +388,6 @@ def _assemble(call: _Call, passes: _Passes, run: RunInfo, mdp: MDPDescription,
         mdp=mdp, run=run, evidence=Evidence(passes.table, decision.cells, decision.slopes),
         factors=() if passes.failure is not None else decision.fits,
         fired=decision.fired, reasons=decision.reasons, notes=tuple(notes), failure=passes.failure,
+        data_regime=call.data,
     )
     return dataclasses.replace(result, message=format_message(result))

@@ -30,7 +30,7 @@ __all__ = [
     "CheckResult", "CheckInterrupted", "fits_frame",
 ]
 
-_FACTOR_SYMBOLS = {"n": "n", "horizon": "H"}
+_FACTOR_SYMBOLS = {"n": "n", "horizon": "H", "coverage": "C"}
 
 
 def _number_or_nan(value: Any) -> float:
@@ -73,7 +73,7 @@ class Fit:
 
     @property
     def symbol(self) -> str:
-        """``n`` or ``H``."""
+        """``n``, ``H`` or ``C``."""
         return _FACTOR_SYMBOLS[self.factor]
 
     @property
@@ -144,9 +144,12 @@ class CellFailure:
     kind: FailureKind
     message: str
     traceback: str
+    behaviour: int | None = None  # the behaviour level of a logged-data cell
 
     def describe(self) -> str:
         where = f"gamma={self.gamma:g}, n={self.n}, replicate={self.replicate}"
+        if self.behaviour is not None:
+            where += f", behaviour={self.behaviour}"
         if self.kind == "raised":
             return f"the estimator raised at {where}: {self.message}"
         if self.kind == "interrupted":
@@ -228,6 +231,7 @@ class CheckResult:
     notes: tuple[str, ...] = ()
     failure: CellFailure | None = None
     message: str = ""
+    data_regime: str = "generative"  # where the samples came from: "generative", "transitions" or "trajectories"
 
     @property
     def passed(self) -> bool:

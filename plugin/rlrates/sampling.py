@@ -26,6 +26,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from .mdp import TabularMDP
+from .targets import frozen
 
 __all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stream_context", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel", "sparse_support_kernel"]
 
@@ -233,8 +234,8 @@ class _BlockDraw:
                 view = kernel.sparse_counts(self.drawn[replicate])
                 view.data.setflags(write=False)
             else:
-                view = kernel.dense_counts(self.drawn[replicate]).reshape(kernel.states, kernel.actions, kernel.states)
-                view.setflags(write=False)
+                view = frozen(kernel.dense_counts(self.drawn[replicate]).reshape(kernel.states, kernel.actions,
+                                                                                 kernel.states), copy=False)
             self._view = (replicate, view)
         return self._view[1]
 
@@ -289,9 +290,7 @@ class Batch:
         if self._next_states is None:
             ordered = self._block.successors(self._replicate)
             shuffled = np.random.default_rng(_child(self._seed, *self._path, 1)).permuted(ordered, axis=1)
-            shuffled = shuffled.reshape(self.states, self.actions, self._n)
-            shuffled.setflags(write=False)
-            self._next_states = shuffled
+            self._next_states = frozen(shuffled.reshape(self.states, self.actions, self._n), copy=False)
         return self._next_states
 
     @property

@@ -12,10 +12,13 @@
   ``claim.n + n_tolerance`` (the error falls too slowly), unless no floor fired
   and that curve is still bending toward steeper slopes (a burn-in: ask for
   larger n instead).
-* :func:`coverage_test`: every discount had at least three asymptotic points,
+* :func:`reach_test`: every discount had at least three asymptotic points,
   so the n-claim was tested at every discount.
 * :func:`horizon_test`: the H-exponent is confidently above
   ``claim.horizon + horizon_tolerance``.
+* :func:`coverage_test` (logged data): the C-exponent, fitted over behaviour
+  policies of graded coverage, is confidently above
+  ``claim.coverage + coverage_tolerance``.
 
 Each sub-test fires ("violated") when its fire-side bound, at level
 ``1 - levels.fire``, clears its limit; it is "ok" only when its pass-side bound,
@@ -31,10 +34,10 @@ import numpy as np
 import pandas as pd
 
 from .budgets import Budget
-from .fitting import DiscountFit, HorizonFit, Slope, fit_cells, pooled_slope
+from .fitting import CoverageFit, DiscountFit, HorizonFit, Slope, fit_cells, pooled_slope
 from .vocabulary import Need, SubTestName, SubTestVerdict
 
-__all__ = ["Levels", "SubTest", "stall_test", "floor_test", "rate_test", "coverage_test", "horizon_test",
+__all__ = ["Levels", "SubTest", "stall_test", "floor_test", "rate_test", "reach_test", "horizon_test", "coverage_test",
            "short_discounts"]
 
 
@@ -172,18 +175,18 @@ def short_discounts(slopes: pd.DataFrame) -> list[float]:
     return [float(g) for g in slopes.loc[slopes["state"] == "too few asymptotic points", "gamma"]]
 
 
-def coverage_test(slopes: pd.DataFrame) -> SubTest:
+def reach_test(slopes: pd.DataFrame) -> SubTest:
     """Was the n-claim tested at every discount?"""
     short = short_discounts(slopes)
     if short:
-        return SubTest("coverage", "unclear", need="larger_n", note=(
+        return SubTest("reach", "unclear", need="larger_n", note=(
             "fewer than 3 asymptotic points at gamma=" + ", ".join(f"{g:g}" for g in short)
             + ": the n-claim is untested there"
         ))
     if len(slopes) and not (slopes["state"] == "fitted").any():
-        return SubTest("coverage", "ok",
+        return SubTest("reach", "ok",
                        note="errors vanish at the largest n for every discount: faster than any power of n")
-    return SubTest("coverage", "ok")
+    return SubTest("reach", "ok")
 
 
 def _horizon_note(fit: HorizonFit) -> str:
@@ -195,6 +198,31 @@ def _horizon_note(fit: HorizonFit) -> str:
     for gamma, why in fit.left_out.items():
         parts.append(f"gamma={gamma:g} left out of the H-fit: {why}")
     return "; ".join(parts)
+
+
+def coverage_test(fit: CoverageFit, claim_c: float, budget: Budget, levels: Levels) -> SubTest:
+    """Does the error grow faster in the concentrability C than claimed? (:func:`rlrates.fitting.fit_coverage`)."""
+    shown = ", ".join(f"C={c:.3g}" for _, c in sorted(fit.coverage.items()))
+    note = f"behaviours of graded coverage: {shown}" if shown else ""
+    if fit.left_out:
+        note += "; left out of the C-fit: " + ", ".join(f"behaviour {b} ({why})" for b, why in sorted(fit.left_out.items()))
+    slope = fit.slope
+    if slope is None:
+        return SubTest("coverage", "unclear", need="larger_n", note=(
+            note + "; the C-exponent is not measurable: no (discount, n) has a usable non-zero error at two "
+            "behaviour levels").lstrip("; "))
+    if not slope.finite:
+        return SubTest("coverage", "unclear", need="nothing", note=note, reason=(
+            "the C-exponent has no finite estimate or bound (errors overflow or are not numbers): untested"))
+    limit = claim_c + budget.coverage_tolerance
+    if slope.lower(levels.fire) > limit:
+        return SubTest("coverage", "violated", note=note, reason=(
+            f"coverage dependence too steep: the error grows like C^{slope.estimate:.2f} (lower bound "
+            f"{slope.lower(levels.fire):.2f}) over behaviours with {shown}; the tested limit is C^{limit:g} "
+            f"(claim {claim_c:g} + tolerance {budget.coverage_tolerance:g})"))
+    if slope.upper(levels.passing) > limit:
+        return SubTest("coverage", "unclear", note=note, need="replicates")
+    return SubTest("coverage", "ok", note=note)
 
 
 def horizon_test(fit: HorizonFit, claim_h: float, budget: Budget, levels: Levels) -> SubTest:

@@ -29,6 +29,7 @@ import numpy as np
 import pandas as pd
 
 from .result import Block, CellFailure
+from .logged import LoggedKernel, draw_logged_block
 from .sampling import Batch, SupportKernel, block_seed, draw_block, mdp_kernel, stream_context
 from .targets import EstimateError, Problem, Truth, estimate_error, validate_estimate
 from .vocabulary import ERROR_COLUMNS
@@ -57,7 +58,7 @@ class CellTask:
     master_seed: int
     context: str
     norm: str = "sup"
-    kernel: SupportKernel | None = field(default=None, repr=False)
+    kernel: SupportKernel | LoggedKernel | None = field(default=None, repr=False)
     time_limit: float | None = None
 
 
@@ -68,12 +69,16 @@ class SweepPlan:
     A block's counts are (replicates, S, A, S) int64: large MDPs split a cell's
     replicates into several blocks so that one block stays under
     ``BLOCK_ELEMENTS`` (the split is part of the design, so it is the same for
-    every executor and recorded in the result's blocks).
+    every executor and recorded in the result's blocks). A logged-data block holds
+    three (replicates, n) arrays, so its cells split by n instead.
+
+    ``truths`` and ``kernels`` share their keys: the discount for the generative
+    model, (discount, behaviour level) for logged data.
     """
 
     estimator: Estimator
-    truths: Mapping[float, Truth]
-    kernels: Mapping[float, SupportKernel]
+    truths: Mapping[Any, Truth]
+    kernels: Mapping[Any, SupportKernel | LoggedKernel]
     master_seed: int
     context: str
     norm: str = "sup"
@@ -82,14 +87,17 @@ class SweepPlan:
     def tasks(self, n_values: Iterable[int], start: int, stop: int) -> list[CellTask]:
         """The cell tasks for every discount and every n in ``n_values``, replicates ``start .. stop - 1``."""
         planned = []
-        for gamma, truth in self.truths.items():
+        for key, truth in self.truths.items():
             mdp = truth.mdp
-            size = max(1, BLOCK_ELEMENTS // (mdp.states * mdp.actions * mdp.states))
+            context = stream_context(self.context, mdp.fingerprint)
+            if truth.data is not None:  # each behaviour level of a logged regime has streams of its own
+                context = f"{context}|{truth.data.regime}|{truth.data.level}"
             for n in n_values:
+                per_block = 3 * n if truth.data is not None else mdp.states * mdp.actions * mdp.states
+                size = max(1, BLOCK_ELEMENTS // per_block)
                 for low in range(start, stop, size):
                     planned.append(CellTask(self.estimator, truth, n, low, min(low + size, stop), self.master_seed,
-                                            stream_context(self.context, mdp.fingerprint), self.norm,
-                                            self.kernels[gamma], self.time_limit))
+                                            context, self.norm, self.kernels[key], self.time_limit))
         return planned
 
 
@@ -104,6 +112,7 @@ class CellOutcome:
     n: int
     rows: list[tuple[int, float, float]]  # (replicate, error, seconds)
     failure: CellFailure | None = None
+    level: int = 0  # the behaviour level (logged data)
 
 
 def run_cell(task: CellTask) -> CellOutcome:
@@ -112,7 +121,7 @@ def run_cell(task: CellTask) -> CellOutcome:
     An interrupt (Ctrl-C, or SIGTERM in a pytest session) anywhere in the cell, while
     sampling, in the estimator or while scoring, keeps the rows finished before it.
     """
-    outcome = CellOutcome(task.truth.gamma, task.n, [])
+    outcome = CellOutcome(task.truth.gamma, task.n, [], level=task.truth.level)
     try:
         _run_replicates(task, outcome)
     except KeyboardInterrupt as exc:  # keep what is done; rate_check re-raises after recording it
@@ -121,7 +130,12 @@ def run_cell(task: CellTask) -> CellOutcome:
 
 
 def _interrupted(task: CellTask, replicate: int, exc: BaseException) -> CellFailure:
-    return CellFailure(task.truth.gamma, task.n, replicate, "interrupted", type(exc).__name__, "")
+    return CellFailure(task.truth.gamma, task.n, replicate, "interrupted", type(exc).__name__, "",
+                       _behaviour(task.truth))
+
+
+def _behaviour(truth: Truth) -> int | None:
+    return None if truth.data is None else truth.data.level
 
 
 def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
@@ -131,7 +145,10 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
     if kernel is None:
         kernel = mdp_kernel(truth.mdp)
     seed = block_seed(task.master_seed, task.context, truth.gamma, task.n, task.start, task.stop)
-    batches = draw_block(kernel, task.n, task.stop - task.start, seed)
+    if isinstance(kernel, LoggedKernel):
+        batches: list[Any] = draw_logged_block(kernel, task.n, task.stop - task.start, seed)
+    else:
+        batches = draw_block(kernel, task.n, task.stop - task.start, seed)
     previous: object = None
     for replicate, batch in zip(range(task.start, task.stop), batches):
         started = time.perf_counter()
@@ -140,7 +157,7 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
         except (Exception, SystemExit, GeneratorExit) as exc:  # the estimator's own bug: record it, keep the session alive
             outcome.failure = CellFailure(
                 truth.gamma, task.n, replicate, "raised", f"{type(exc).__name__}: {exc}",
-                "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)),
+                "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)), _behaviour(truth),
             )
             return
         seconds = time.perf_counter() - started
@@ -151,7 +168,8 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
             except EstimateError as exc:
                 problem_text = str(exc)
         if problem_text is not None:
-            outcome.failure = CellFailure(truth.gamma, task.n, replicate, "invalid", problem_text, "")
+            outcome.failure = CellFailure(truth.gamma, task.n, replicate, "invalid", problem_text, "",
+                                          _behaviour(truth))
             return
         previous = estimate
         outcome.rows.append((replicate, estimate_error(valid, truth, task.norm), seconds))
@@ -247,22 +265,26 @@ def _lost(task: CellTask, exc: BaseException, confirmed: str = "") -> CellOutcom
     detail = "" if isinstance(exc, BrokenExecutor) else "".join(
         traceback.format_exception(type(exc), exc, exc.__traceback__))
     return CellOutcome(task.truth.gamma, task.n, [], CellFailure(task.truth.gamma, task.n, task.start, "crashed",
-                                                                 message, detail))
+                                                                 message, detail, _behaviour(task.truth)),
+                       task.truth.level)
 
 
-def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None) -> tuple[pd.DataFrame, CellFailure | None]:
+def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None,
+              coverage: Mapping[tuple[float, int], float] | None = None) -> tuple[pd.DataFrame, CellFailure | None]:
     """Run all tasks; return the tidy table and the first failure (if any).
 
     On a failure the remaining tasks are cancelled; rows already computed are kept.
+    ``coverage`` maps (gamma, behaviour level) to C for logged data: the table then
+    has the columns ``behaviour`` and ``C`` too.
     """
     task_list = list(tasks)
-    records: list[tuple[float, float, int, int, float, float]] = []
+    records: list[tuple[float, float, int, int, float, float, int]] = []
     failure: CellFailure | None = None
     done = 0
     try:
         for outcome in _outcomes(task_list, executor):
             horizon = 1.0 / (1.0 - outcome.gamma)
-            records.extend((outcome.gamma, horizon, outcome.n, r, e, s) for r, e, s in outcome.rows)
+            records.extend((outcome.gamma, horizon, outcome.n, r, e, s, outcome.level) for r, e, s in outcome.rows)
             done += 1
             if outcome.failure is not None:
                 failure = outcome.failure
@@ -272,10 +294,16 @@ def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None) -> tu
             failure = _interrupted(task_list[done], task_list[done].start, exc)
         else:
             raise
-    return rows_to_table(records), failure
+    return rows_to_table(records, coverage), failure
 
 
-def rows_to_table(records: list[tuple[float, float, int, int, float, float]]) -> pd.DataFrame:
-    table = pd.DataFrame.from_records(records, columns=list(ERROR_COLUMNS))
+def rows_to_table(records: list[tuple[float, float, int, int, float, float, int]],
+                  coverage: Mapping[tuple[float, int], float] | None = None) -> pd.DataFrame:
+    table = pd.DataFrame.from_records([r[:6] for r in records], columns=list(ERROR_COLUMNS))
     table = table.astype({"gamma": float, "H": float, "n": np.int64, "replicate": np.int64, "error": float, "seconds": float})
-    return table.sort_values(["gamma", "n", "replicate"], ignore_index=True)
+    if coverage is None:
+        return table.sort_values(["gamma", "n", "replicate"], ignore_index=True)
+    levels = np.array([r[6] for r in records], dtype=np.int64)
+    table["behaviour"] = levels
+    table["C"] = [coverage[(g, int(b))] for g, b in zip(table["gamma"], levels)]
+    return table.sort_values(["gamma", "behaviour", "n", "replicate"], ignore_index=True)

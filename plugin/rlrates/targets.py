@@ -10,6 +10,9 @@ policy     (S,) actions or (S, A)    ``||Q* - Q^{pi_hat}||`` (exact suboptimalit
 model      (S, A, S) kernel          ``max_{s,a} ||P_hat[s,a] - P[s,a]||_1``
            (sparse MDP: scipy.sparse
            (S*A, S) rows)
+value      a float J estimate        ``|J_hat - J(pi)|``, ``J(pi) = sum_s initial(s) V^pi(s)``
+                                     (trajectories: the discounted value of an
+                                     episode of the stated length, exact)
 =========  ========================  ==============================================
 
 The exact answer is solved once per discount (:func:`solve_truth`) and reused for
@@ -25,14 +28,14 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .exact import q_pi, q_star, validate_policy
+from .exact import q_pi, q_star, v_pi, validate_policy
 from .mdp import TabularMDP, is_sparse
 from .vocabulary import NORMS, TARGETS
 
 if TYPE_CHECKING:
     from .budgets import Budget
 
-__all__ = ["TARGETS", "NORMS", "Problem", "Truth", "EstimateError", "default_policy", "solve_truth",
+__all__ = ["TARGETS", "NORMS", "Problem", "Truth", "DataSpec", "frozen", "EstimateError", "default_policy", "solve_truth",
            "validate_estimate", "estimate_error", "zero_levels"]
 
 
@@ -57,7 +60,13 @@ def validate_norm(norm: object) -> str:
 
 @dataclass(frozen=True)
 class Problem:
-    """What the estimator may know besides the samples: never the transition kernel."""
+    """What the estimator may know besides the samples: never the transition kernel.
+
+    Logged data (``data`` "transitions" or "trajectories") add the ``behaviour``
+    policy that collected them (importance weights need it), the ``initial``
+    distribution of the value target and of episodes, and the ``episode_length``
+    of trajectories. All arrays are read-only and cannot be made writable.
+    """
 
     states: int
     actions: int
@@ -65,6 +74,10 @@ class Problem:
     gamma: float
     policy: Array
     target: str
+    data: str = "generative"
+    behaviour: Array | None = None
+    initial: Array | None = None
+    episode_length: int | None = None
 
     @property
     def horizon(self) -> float:
@@ -74,21 +87,57 @@ class Problem:
 
 @dataclass
 class Truth:
-    """The exact answer for one discount, and the scale that errors saturate at."""
+    """The exact answer for one discount (and, for logged data, one behaviour policy), and its error scale.
+
+    ``data`` describes the logged-data regime, None for the generative model.
+    """
 
     mdp: TabularMDP
     gamma: float
     target: str
     policy: Array
-    value: Array  # Q^pi, Q* or P depending on the target
+    value: Array  # Q^pi, Q*, P or J depending on the target
     scale: float
     _policy_cache: dict[bytes, float] = field(default_factory=dict, repr=False)
+    data: "DataSpec | None" = None
 
     def problem(self) -> Problem:
-        rewards = self.mdp.R
-        policy = np.array(self.policy)
-        policy.setflags(write=False)
-        return Problem(self.mdp.states, self.mdp.actions, rewards, self.gamma, policy, self.target)
+        S, A = self.mdp.states, self.mdp.actions
+        if self.data is None:
+            initial = frozen(np.full(S, 1.0 / S)) if self.target == "value" else None
+            return Problem(S, A, frozen(self.mdp.R), self.gamma, frozen(self.policy), self.target, initial=initial)
+        spec = self.data
+        return Problem(S, A, frozen(self.mdp.R), self.gamma, frozen(self.policy), self.target, spec.regime,
+                       frozen(spec.behaviour), frozen(spec.initial), spec.episode_length)
+
+    @property
+    def level(self) -> int:
+        """The behaviour policy's index in the check (0 for the generative model)."""
+        return 0 if self.data is None else self.data.level
+
+
+@dataclass(frozen=True)
+class DataSpec:
+    """A logged-data regime for one (discount, behaviour): the exact data distribution and its coverage."""
+
+    regime: str  # "transitions" or "trajectories"
+    behaviour: Array
+    initial: Array
+    episode_length: int | None
+    distribution: Array  # (S, A): the distribution of a logged pair (s, a)
+    coverage: float  # concentrability: max d^pi / distribution
+    level: int = 0
+
+
+def frozen(array: Any, copy: bool = True) -> Any:
+    """A read-only view of ``array`` (of a copy of it by default) through a read-only buffer.
+
+    Unlike ``setflags(write=False)``, this cannot be undone with
+    ``setflags(write=True)``: the estimator cannot write into the ground truth
+    or into its batch. ``copy=False`` is for arrays made for the purpose.
+    """
+    owned = np.array(array) if copy else np.ascontiguousarray(array)
+    return np.frombuffer(owned.data.toreadonly(), dtype=owned.dtype).reshape(owned.shape)
 
 
 def default_policy(mdp: TabularMDP) -> Array:
@@ -116,6 +165,9 @@ def solve_truth(mdp: TabularMDP, gamma: float, target: str, policy: Any = None) 
         return Truth(mdp, gamma, target, pi, q, value_scale)
     if target == "model":
         return Truth(mdp, gamma, target, pi, mdp.P if mdp.is_sparse else np.asarray(mdp.P), 2.0)
+    if target == "value":  # the generative regime's value: from a uniform initial distribution
+        initial = np.full(mdp.states, 1.0 / mdp.states)
+        return Truth(mdp, gamma, target, pi, np.asarray(float(initial @ v_pi(mdp, gamma, pi))), value_scale)
     raise ValueError(f"unknown `target` {target!r}")
 
 
@@ -153,6 +205,8 @@ def _require_float(estimate: np.ndarray, what: str) -> Array:
 def validate_estimate(estimate: object, truth: Truth) -> Array:
     """Check an estimator's return value for the target; raise :class:`EstimateError` naming the problem."""
     S, A = truth.mdp.states, truth.mdp.actions
+    if truth.target == "value":
+        return _validate_value(estimate)
     if truth.target in ("q_pi", "q_star"):
         what = f"an (S, A) = ({S}, {A}) float array of Q-values"
         array = _require_array(estimate, what)
@@ -185,6 +239,19 @@ def validate_estimate(estimate: object, truth: Truth) -> Array:
     return array
 
 
+def _validate_value(estimate: object) -> Array:
+    """A value estimate: a real number (a float, a numpy floating scalar or a 0-d / one-element float array)."""
+    what = "a float estimate of the value J(pi)"
+    if isinstance(estimate, (bool, np.bool_)) or not isinstance(estimate, (float, int, np.floating, np.integer, np.ndarray)):
+        raise EstimateError(f"the estimator returned {type(estimate).__name__}; return {what}")
+    array = _require_array(np.asarray(estimate), what) if not isinstance(estimate, np.ndarray) else _require_array(estimate, what)
+    if array.size != 1:
+        raise EstimateError(f"the estimator returned shape {array.shape}; return {what}")
+    if array.dtype.kind in "iu":
+        array = array.astype(np.float64)
+    return _require_float(array.reshape(()), "the value")
+
+
 def _validate_sparse_model(estimate: object, S: int, A: int) -> Any:
     """A sparse MDP's model estimate: a scipy.sparse (S*A, S) float array with stochastic rows."""
     what = f"a scipy.sparse (S*A, S) = ({S * A}, {S}) transition estimate (the MDP is sparse)"
@@ -215,6 +282,8 @@ def _require_float_shape(array: np.ndarray, shape: tuple[int, ...], what: str) -
 
 def estimate_error(estimate: Array, truth: Truth, norm: str = "sup") -> float:
     """Error of a validated estimate against the exact answer."""
+    if truth.target == "value":
+        return float(abs(float(estimate) - float(truth.value)))
     if truth.target in ("q_pi", "q_star"):
         diff = np.abs(estimate - truth.value)
         return float(diff.max() if norm == "sup" else diff.mean())

@@ -30,11 +30,11 @@ import numpy as np
 import pandas as pd
 
 from .claims import Claim
-from .fitting import Slope, fit_discounts, fit_horizon, pooled_slope
+from .fitting import Slope, fit_coverage, fit_discounts, fit_horizon, pooled_slope
 from .budgets import Budget
 from .result import Fit
-from .subtests import (Levels, SubTest, coverage_test, floor_test, horizon_test, rate_test, short_discounts,
-                       stall_test)
+from .subtests import (Levels, SubTest, coverage_test, floor_test, horizon_test, rate_test, reach_test,
+                       short_discounts, stall_test)
 from .vocabulary import Factor, FitVerdict, Need, Outcome
 
 __all__ = ["Decision", "decide", "mark_cells", "levels_for"]
@@ -57,9 +57,17 @@ class Decision:
 
 
 def mark_cells(summary: pd.DataFrame, budget: Budget, scale: dict[float, float], window: int) -> pd.DataFrame:
-    """The summary with ``usable`` (asymptotic and not saturated), ``fitted`` (in an n-fit) and ``left_out`` (why not)."""
+    """The summary with ``usable`` (asymptotic and not saturated), ``fitted`` (in an n-fit) and ``left_out`` (why not).
+
+    For logged data (an ``n_eff`` column: n times the smallest probability of a pair
+    the target visits) a cell is pre-asymptotic when its least-visited pair expects
+    fewer than ``min_n_per_horizon`` samples.
+    """
     cells = summary.copy()
-    early = (cells["n"] < budget.min_n_per_horizon * cells["H"]).to_numpy()
+    if "n_eff" in cells.columns:
+        early = (cells["n_eff"] < budget.min_n_per_horizon).to_numpy()
+    else:
+        early = (cells["n"] < budget.min_n_per_horizon * cells["H"]).to_numpy()
     limit = cells["gamma"].map(scale).to_numpy(float) * budget.saturation
     saturated = (~cells["zero"] & (cells["mean"] > limit)).to_numpy()
     usable = ~(early | saturated)
@@ -84,7 +92,7 @@ def mark_cells(summary: pd.DataFrame, budget: Budget, scale: dict[float, float],
 def levels_for(claim: Claim, budget: Budget) -> Levels:
     """The levels each sub-test uses: ``alpha`` split over the claimed factors (n counting twice), both
     ``alpha`` and ``pass_alpha`` split over the planned looks."""
-    active = (claim.n is not None) * 2 + (claim.horizon is not None)
+    active = (claim.n is not None) * 2 + (claim.horizon is not None) + (claim.coverage is not None)
     return Levels(budget.alpha / max(active, 1) / budget.looks, budget.pass_alpha / budget.looks)
 
 
@@ -105,15 +113,21 @@ def _combined(tests: list[SubTest]) -> FitVerdict:
 
 def _exact(claim: Claim, budget: Budget, cells: pd.DataFrame, levels: Levels) -> Decision:
     claimed: list[tuple[Factor, float | None, float]] = [
-        ("n", claim.n, budget.n_tolerance), ("horizon", claim.horizon, budget.horizon_tolerance)]
+        ("n", claim.n, budget.n_tolerance), ("horizon", claim.horizon, budget.horizon_tolerance),
+        ("coverage", claim.coverage, budget.coverage_tolerance)]
     fits = [_fit(factor, None, bound, tolerance, levels, "exact") for factor, bound, tolerance in claimed
             if bound is not None]
     return Decision(status="pass", exact=True, fits=tuple(fits), cells=cells,
                     reasons=("every error is zero to floating-point precision: the estimator is exact here",))
 
 
-def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[float, float], window: int) -> Decision:
-    """Decide one pass. ``window`` is how many of the largest usable n values each n-fit uses."""
+def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[float, float], window: int,
+           graded: pd.DataFrame | None = None) -> Decision:
+    """Decide one pass. ``window`` is how many of the largest usable n values each n-fit uses.
+
+    ``graded`` (logged data with a coverage claim) is the summary of every behaviour
+    level; ``summary`` is that of level 0, the behaviour the n- and H-claims are tested on.
+    """
     cells = mark_cells(summary, budget, scale, window)
     levels = levels_for(claim, budget)
     if bool(summary["zero"].all()):
@@ -127,7 +141,7 @@ def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[floa
         floor = floor_test(per_discount, claim.n, budget, levels)
         n_tests = [stall_test(cells, claim.n, budget, levels, scale), floor,
                    rate_test(per_discount, claim.n, budget, levels, floor.verdict == "violated"),
-                   coverage_test(slopes)]
+                   reach_test(slopes)]
         pooled = pooled_slope([fit.whole for fit in per_discount]) if per_discount else None
         # the pooled slope is tested at half the fire-side level (the other half goes to the per-discount slopes)
         n_levels = Levels(levels.fire / 2, levels.passing)
@@ -141,6 +155,13 @@ def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[floa
         fits.append(_finite_or_unclear(_fit("horizon", horizon_fit.slope, claim.horizon, budget.horizon_tolerance,
                                             levels, horizon.verdict)))
         tests.append(horizon)
+    if claim.coverage is not None and graded is not None:
+        graded_cells = mark_cells(graded, budget, scale, window)
+        coverage_fit = fit_coverage(graded_cells[graded_cells["usable"]])
+        coverage = coverage_test(coverage_fit, claim.coverage, budget, levels)
+        fits.append(_finite_or_unclear(_fit("coverage", coverage_fit.slope, claim.coverage, budget.coverage_tolerance,
+                                            levels, coverage.verdict)))
+        tests.append(coverage)
     return _combine(tests, fits, slopes, cells, budget=budget)
 
 

@@ -14,7 +14,8 @@ from typing import Literal, get_args
 __all__ = [
     "Status", "STATUSES", "Outcome", "FitVerdict", "FIT_VERDICTS", "SubTestVerdict", "SUBTEST_VERDICTS",
     "SubTestName", "SUBTEST_NAMES", "Need", "NEEDS", "FailureKind", "FAILURE_KINDS", "Target", "TARGETS",
-    "Norm", "NORMS", "Factor", "FACTORS", "ERROR_COLUMNS", "PROPERTY_NAME",
+    "Norm", "NORMS", "Factor", "FACTORS", "DataRegime", "DATA_REGIMES", "ERROR_COLUMNS", "LOGGED_COLUMNS",
+    "PROPERTY_NAME",
 ]
 
 #: What a check answers.
@@ -33,9 +34,9 @@ FIT_VERDICTS: tuple[FitVerdict, ...] = get_args(FitVerdict)
 SubTestVerdict = Literal["ok", "violated", "unclear"]
 SUBTEST_VERDICTS: tuple[SubTestVerdict, ...] = get_args(SubTestVerdict)
 
-#: The sub-tests of a verdict ("coverage": every discount had enough asymptotic points;
+#: The sub-tests of a verdict ("reach": every discount had enough asymptotic points;
 #: "stall": the error stays large and does not fall at some discount).
-SubTestName = Literal["rate", "floor", "coverage", "horizon", "stall"]
+SubTestName = Literal["rate", "floor", "reach", "horizon", "stall", "coverage"]
 SUBTEST_NAMES: tuple[SubTestName, ...] = get_args(SubTestName)
 
 #: What more evidence an ambiguous pass asks for ("nothing": no budget would settle it).
@@ -47,16 +48,26 @@ FailureKind = Literal["raised", "invalid", "interrupted", "crashed"]
 FAILURE_KINDS: tuple[FailureKind, ...] = get_args(FailureKind)
 
 #: What the estimator estimates.
-Target = Literal["q_pi", "q_star", "policy", "model"]
+Target = Literal["q_pi", "q_star", "policy", "model", "value"]
 TARGETS: tuple[Target, ...] = get_args(Target)
 
 #: How an error is measured over states and actions.
 Norm = Literal["sup", "mean"]
 NORMS: tuple[Norm, ...] = get_args(Norm)
 
-#: The factors a claim bounds: the sample size n and the effective horizon H.
-Factor = Literal["n", "horizon"]
+#: The factors a claim bounds: the sample size n, the effective horizon H and (logged data) the
+#: concentrability C of the data distribution.
+Factor = Literal["n", "horizon", "coverage"]
 FACTORS: tuple[Factor, ...] = get_args(Factor)
+
+#: Where the samples come from: n next states for every pair (a generative model), n logged
+#: transitions with (s, a) from a behaviour policy's occupancy, or n transitions in whole episodes.
+DataRegime = Literal["generative", "transitions", "trajectories"]
+DATA_REGIMES: tuple[DataRegime, ...] = get_args(DataRegime)
+
+#: The extra columns of a logged-data check's error table: the behaviour policy's index in the
+#: check and the concentrability coefficient C of its data distribution.
+LOGGED_COLUMNS = ("behaviour", "C")
 
 #: The columns of a check's tidy error table (``CheckResult.table``, ``errors.csv``).
 ERROR_COLUMNS = ("gamma", "H", "n", "replicate", "error", "seconds")

@@ -54,7 +54,7 @@ def test_claim_describes_itself() -> None:
 @pytest.mark.parametrize(
     ("kwargs", "match"),
     [
-        ({"target": "value"}, "unknown `target` 'value'"),
+        ({"target": "v_star"}, "unknown `target` 'v_star'"),
         ({"budget": "fast"}, "unknown `budget` 'fast'"),
         ({"norm": "l2"}, "unknown `norm` 'l2'"),
         ({"seed": -1}, "`seed` must be a non-negative integer"),

@@ -16,7 +16,7 @@ from scipy import stats
 import rlrates
 from rlrates.fitting import DiscountFit, HorizonFit, Slope
 from rlrates.budgets import BUDGETS
-from rlrates.subtests import Levels, coverage_test, floor_test, horizon_test, rate_test, short_discounts, stall_test
+from rlrates.subtests import Levels, reach_test, floor_test, horizon_test, rate_test, short_discounts, stall_test
 from rlrates.verdict import decide, levels_for, mark_cells
 
 CI_BUDGET = BUDGETS["ci"]
@@ -103,24 +103,24 @@ def test_floor_test_is_ok_on_steady_slopes_and_unclear_on_wide_ones() -> None:
     assert floor_test([], -0.5, CI_BUDGET, ALPHA).verdict == "ok"
 
 
-# ------------------------------------------------------------------------------------ coverage
+# ------------------------------------------------------------------------------------ reach
 
 
 def _slopes(*states: str) -> pd.DataFrame:
     return pd.DataFrame({"gamma": [0.5, 0.75, 0.9][: len(states)], "state": list(states)})
 
 
-def test_coverage_test_names_the_discounts_without_enough_points() -> None:
-    result = coverage_test(_slopes("fitted", "too few asymptotic points", "fitted"))
+def test_reach_test_names_the_discounts_without_enough_points() -> None:
+    result = reach_test(_slopes("fitted", "too few asymptotic points", "fitted"))
     assert (result.verdict, result.need) == ("unclear", "larger_n")
     assert "gamma=0.75" in result.note
     assert short_discounts(_slopes("fitted", "too few asymptotic points")) == [0.75]
 
 
-def test_coverage_test_notes_errors_that_vanish_everywhere() -> None:
-    result = coverage_test(_slopes("vanished", "vanished"))
+def test_reach_test_notes_errors_that_vanish_everywhere() -> None:
+    result = reach_test(_slopes("vanished", "vanished"))
     assert result.verdict == "ok" and "faster than any power" in result.note
-    assert coverage_test(_slopes("fitted", "vanished")) .note == ""
+    assert reach_test(_slopes("fitted", "vanished")) .note == ""
 
 
 # ------------------------------------------------------------------------------------ horizon
@@ -182,7 +182,7 @@ def test_decide_combines_sub_tests_into_one_decision() -> None:
     claim = rlrates.Claim(n=-0.5, horizon=2.0)
     passing = decide(_summary(-0.5, 1.5), claim, CI_BUDGET, SCALE, window=5)
     assert passing.status == "pass"
-    assert [s.name for s in passing.subtests] == ["stall", "floor", "rate", "coverage", "horizon"]
+    assert [s.name for s in passing.subtests] == ["stall", "floor", "rate", "reach", "horizon"]
     assert [fit.verdict for fit in passing.fits] == ["ok", "ok"]
     assert passing.fits[0].exponent == pytest.approx(-0.5, abs=1e-9)  # an exact power law, fitted exactly
     failing = decide(_summary(-0.1, 3.0, size=1e-4), claim, CI_BUDGET, SCALE, window=5)  # 1e-4 H^3 stays unsaturated

@@ -238,6 +238,7 @@ class Member:
     # budgets in which the member sits inside the indifference zone between the tested limit and the
     # smallest shortfall the budget promises to detect: any verdict but "pass" is right there
     not_pass_in: tuple[str, ...] = ()
+    data: str = "generative"  # the data regime (logged members: see zoo_logged.py)
 
     def expects(self, budget: str) -> str:
         """The verdict this member must get in ``budget``: "pass", "fail" or "not pass"."""

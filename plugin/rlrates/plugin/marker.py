@@ -1,8 +1,8 @@
 """The ``rlrates`` marker: validating and merging its arguments, and reading the markers of a test item.
 
-``@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None,
-suite=None, mdps=None, policy=None, zero_level=None, label=None)``: the claim under test (an
-``rlrates.Claim``, or its exponents ``n=`` / ``horizon=``), defaults for the ``rlrates``
+``@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, coverage=None, target=None, budget=None,
+suite=None, mdps=None, policy=None, zero_level=None, label=None, data=None, behaviour=None)``: the claim under test (an
+``rlrates.Claim``, or its exponents ``n=`` / ``horizon=`` / ``coverage=``), defaults for the ``rlrates``
 fixture (target, budget, policy: an (S, A) array or a callable ``mdp -> policy`` applied to
 each MDP; zero_level: the error that counts as zero), the MDPs of ``rlrates_mdp`` (``suite=``
 narrows the standard suite to member names or tags; ``mdps=`` replaces it with a list or a dict
@@ -36,12 +36,13 @@ __all__ = [
 MARKER = "rlrates"
 #: The marker's line in ``pytest --markers``.
 MARKER_HELP = (
-    "rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None, suite=None, mdps=None, "
-    "policy=None, zero_level=None, label=None): the rate claim under test (an rlrates.Claim, or its exponents "
-    "as n= and horizon=) plus defaults for the `rlrates` fixture (target, budget, policy: an (S, A) array or a "
+    "rlrates(claim=None, *, n=None, horizon=None, coverage=None, target=None, budget=None, suite=None, mdps=None, "
+    "policy=None, zero_level=None, label=None, data=None, behaviour=None): the rate claim under test (an "
+    "rlrates.Claim, or its exponents as n=, horizon= and coverage=) plus defaults for the `rlrates` fixture (target, budget, policy: an (S, A) array or a "
     "callable mdp -> policy, zero_level: the error that counts as zero); suite= narrows the standard "
     "MDP suite of `rlrates_mdp` to member names or tags, mdps= replaces it with your own MDPs "
-    "(a list, or a dict {id: mdp}); label= names the check in reports (default: the test function's name)."
+    "(a list, or a dict {id: mdp}); label= names the check in reports (default: the test function's name); "
+    "data= ('generative', 'transitions' or 'trajectories') and behaviour= (the logging policy) choose logged data."
 )
 
 
@@ -49,7 +50,8 @@ class MarkerError(ValueError):
     """A ``@pytest.mark.rlrates`` argument is unusable; the message names it and the test."""
 
 
-MARKER_KEYWORDS = ("claim", "n", "horizon", "target", "budget", "suite", "mdps", "policy", "zero_level", "label")
+MARKER_KEYWORDS = ("claim", "n", "horizon", "coverage", "target", "budget", "suite", "mdps", "policy", "zero_level",
+                   "label", "data", "behaviour")
 
 
 @dataclass(frozen=True)
@@ -63,6 +65,8 @@ class MarkerSpec:
     policy: Any = None
     zero_level: float | None = None
     label: str | None = None
+    data: str | None = None
+    behaviour: Any = None
 
 
 def _bad(where: str, text: str) -> MarkerError:
@@ -87,14 +91,15 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
     from ..suite import SuiteError, custom_members, select_members
 
     claim = args[0] if args else kwargs.get("claim")
-    exponents = {key: kwargs[key] for key in ("n", "horizon") if key in kwargs}
+    exponents = {key: kwargs[key] for key in ("n", "horizon", "coverage") if key in kwargs}
     if claim is not None and exponents:
         raise _bad(where, f"give either `claim` or the exponents {' and '.join(f'`{k}=`' for k in exponents)}, not both")
     if claim is not None and not isinstance(claim, Claim):
         raise _bad(where, f"`claim` must be an rlrates.Claim, got {claim!r} of type {type(claim).__name__}")
     if exponents:
         try:
-            claim = Claim(n=exponents.get("n"), horizon=exponents.get("horizon"))
+            claim = Claim(n=exponents.get("n", -0.5 if "coverage" in exponents else None),
+                          horizon=exponents.get("horizon"), coverage=exponents.get("coverage"))
         except (TypeError, ValueError) as exc:
             raise _bad(where, f"bad exponent: {exc}") from None
     target = kwargs.get("target")
@@ -108,6 +113,12 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
     budget = kwargs.get("budget")
     if budget is not None and not isinstance(budget, Budget) and (not isinstance(budget, str) or budget not in BUDGETS):
         raise _bad(where, f"unknown `budget` {budget!r}; choose one of {', '.join(BUDGETS)} or pass an rlrates.Budget")
+    data = kwargs.get("data")
+    if data is not None:
+        from ..vocabulary import DATA_REGIMES
+
+        if data not in DATA_REGIMES:
+            raise _bad(where, f"unknown `data` {data!r}; choose one of {', '.join(DATA_REGIMES)}")
     label = kwargs.get("label")
     if label is not None and (not isinstance(label, str) or not label.strip()):
         raise _bad(where, f"`label` must be a non-empty string, got {label!r}")
@@ -125,25 +136,26 @@ def parse_marker(args: tuple[Any, ...], kwargs: Mapping[str, Any], where: str) -
         raise _bad(where, str(exc)) from None
     return MarkerSpec(claim=claim, target=target, budget=budget, members=members,
                       policy=_policy(kwargs.get("policy"), where),
-                      zero_level=_zero_level(kwargs.get("zero_level"), where), label=label)
+                      zero_level=_zero_level(kwargs.get("zero_level"), where), label=label, data=data,
+                      behaviour=_policy(kwargs.get("behaviour"), where, "behaviour"))
 
 
-def _policy(policy: Any, where: str) -> Any:
+def _policy(policy: Any, where: str, name: str = "policy") -> Any:
     """A policy is None, a callable ``mdp -> policy`` (called per MDP by the check), or an array of probabilities."""
     if policy is None or callable(policy):
         return policy
     import numpy as np
 
     if isinstance(policy, (str, bytes, Mapping)):
-        raise _bad(where, f"`policy` must be an (S, A) array of action probabilities, (S,) actions, or a callable "
+        raise _bad(where, f"`{name}` must be an (S, A) array of action probabilities, (S,) actions, or a callable "
                           f"mdp -> policy; got {policy!r}")
     try:
         array = np.asarray(policy, dtype=float)
     except (TypeError, ValueError):
-        raise _bad(where, f"`policy` must be an (S, A) array of action probabilities, (S,) actions, or a callable "
+        raise _bad(where, f"`{name}` must be an (S, A) array of action probabilities, (S,) actions, or a callable "
                           f"mdp -> policy; got {type(policy).__name__}") from None
     if array.ndim not in (1, 2) or not np.isfinite(array).all():
-        raise _bad(where, f"`policy` must be a finite (S,) or (S, A) array, got shape {array.shape}")
+        raise _bad(where, f"`{name}` must be a finite (S,) or (S, A) array, got shape {array.shape}")
     return policy
 
 
@@ -160,7 +172,7 @@ def merge_specs(specs: Iterable[MarkerSpec]) -> MarkerSpec:
     """Combine markers, closest first (function over class over module): the first one that says a thing wins."""
     merged: dict[str, Any] = {}
     for spec in specs:
-        for name in ("claim", "target", "budget", "members", "policy", "zero_level", "label"):
+        for name in ("claim", "target", "budget", "members", "policy", "zero_level", "label", "data", "behaviour"):
             value = getattr(spec, name)
             if value is not None and name not in merged:
                 merged[name] = value

@@ -151,8 +151,9 @@ class RatesRunner:
                 pytrace=False,
             )
         self._refuse_session_owned(check_options)
-        if spec.zero_level is not None:
-            check_options.setdefault("zero_level", spec.zero_level)
+        for name in ("zero_level", "data", "behaviour"):
+            if getattr(spec, name) is not None:
+                check_options.setdefault(name, getattr(spec, name))
         from ..rate_check import check
         from ..result import CheckInterrupted
 

@@ -1,0 +1,203 @@
+"""Logged-data sampling: n transitions from a behaviour policy, i.i.d. or in whole episodes.
+
+``data="transitions"``: n i.i.d. transitions (s, a, s'), the pair (s, a) drawn
+from the data distribution (the behaviour policy's discounted occupancy,
+:func:`rlrates.occupancy.discounted_occupancy`) and s' from P(. | s, a).
+``data="trajectories"``: ``n // L`` episodes of L steps, s_0 from the initial
+distribution, a_t from the behaviour policy, s_{t+1} from P(. | s_t, a_t).
+
+Every draw is an inverse-CDF lookup vectorised over replicates and samples: the
+rows' cumulative probabilities are laid end to end, each shifted by its row
+index, so one ``numpy.searchsorted`` finds the category of every sample at once.
+Trajectories loop over the L steps of an episode only (each step vectorised
+over replicates and episodes), never over samples.
+
+A :class:`LoggedBatch` holds the data as ``states``, ``actions``,
+``next_states`` and ``rewards`` (1-D for transitions, (episodes, L) for
+trajectories) and builds ``counts`` (S, A, S) (scipy.sparse (S*A, S) for a
+sparse MDP) and ``visits`` (S, A) from them when read. All arrays are read-only.
+Pairs the data never visit have zero counts: a consistent estimator must not
+divide by their zero visits (the reference estimators give such a pair a model
+that stays where it is).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from numpy.typing import NDArray
+
+from .sampling import SupportKernel
+from .targets import frozen
+
+__all__ = ["LoggedKernel", "LoggedBatch", "draw_logged_block"]
+
+IntArray = NDArray[np.int64]
+
+
+def _cumulative(probs: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Row-wise cumulative sums, each row shifted by its index and ending exactly at index + 1, flattened."""
+    cum = np.cumsum(probs / probs.sum(axis=1, keepdims=True), axis=1)
+    cum[:, -1] = 1.0
+    return np.asarray((cum + np.arange(cum.shape[0])[:, None]).ravel(), dtype=np.float64)
+
+
+def _pick(rng: np.random.Generator, shifted: NDArray[np.float64], width: int, rows: IntArray) -> IntArray:
+    """One category per entry of ``rows`` (row indices into the shifted cumulative table): column indices."""
+    position = np.searchsorted(shifted, rows + rng.random(rows.shape), side="right")
+    return np.minimum(position - rows * width, width - 1)
+
+
+@dataclass(frozen=True)
+class LoggedKernel:
+    """What a logged-data draw needs, precomputed once per (discount, behaviour): picklable."""
+
+    regime: str
+    next_states: SupportKernel  # the MDP's successors on each row's support
+    pairs: NDArray[np.float64]  # transitions: shifted cumulative of the data distribution over S*A pairs
+    initial: NDArray[np.float64]  # trajectories: shifted cumulative of the initial distribution
+    behaviour: NDArray[np.float64]  # trajectories: shifted cumulative of the behaviour policy's rows
+    length: int
+    rewards: NDArray[np.float64]
+    successors: NDArray[np.float64]  # shifted cumulative of each row's successor probabilities
+
+    @classmethod
+    def build(cls, regime: str, successors: SupportKernel, data: NDArray[np.float64], initial: NDArray[np.float64],
+              behaviour: NDArray[np.float64], length: int, rewards: NDArray[np.float64]) -> "LoggedKernel":
+        return cls(regime, successors, _cumulative(data.reshape(1, -1)), _cumulative(initial.reshape(1, -1)),
+                   _cumulative(behaviour), int(length), rewards, _cumulative(successors.probs))
+
+    @property
+    def states(self) -> int:
+        return self.next_states.states
+
+    @property
+    def actions(self) -> int:
+        return self.next_states.actions
+
+    def episodes(self, n: int) -> int:
+        """Whole episodes in n transitions (trajectories); at least one."""
+        return max(1, n // self.length)
+
+    def shape(self, n: int) -> tuple[int, ...]:
+        """The shape of one batch's data arrays."""
+        return (n,) if self.regime == "transitions" else (self.episodes(n), self.length)
+
+    def sample(self, rng: np.random.Generator, n: int, replicates: int) -> tuple[IntArray, IntArray, IntArray]:
+        """States, actions and next states of ``replicates`` batches, each (replicates, *shape(n))."""
+        S, A = self.states, self.actions
+        support = self.next_states.support
+        width = support.shape[1]
+        successors = self.successors
+        if self.regime == "transitions":
+            pairs = _pick(rng, self.pairs, S * A, np.zeros((replicates, n), dtype=np.int64))
+            nxt = support[pairs, _pick(rng, successors, width, pairs)]
+            return pairs // A, pairs % A, nxt
+        episodes = self.episodes(n)
+        states = np.empty((replicates, episodes, self.length), dtype=np.int64)
+        actions = np.empty_like(states)
+        nxt = np.empty_like(states)
+        current = _pick(rng, self.initial, S, np.zeros((replicates, episodes), dtype=np.int64))
+        for t in range(self.length):  # one vectorised step of every episode of every replicate
+            states[..., t] = current
+            actions[..., t] = _pick(rng, self.behaviour, A, current)
+            pair = current * A + actions[..., t]
+            current = support[pair, _pick(rng, successors, width, pair)]
+            nxt[..., t] = current
+        return states, actions, nxt
+
+
+class LoggedBatch:
+    """One logged dataset: n transitions (s, a, s') of a behaviour policy.
+
+    ``states``, ``actions``, ``next_states`` and ``rewards`` are 1-D (n,) for
+    ``data="transitions"`` and (episodes, L) for ``data="trajectories"`` (row e
+    is episode e, in time order; ``next_states[e, t] == states[e, t + 1]``).
+    ``counts`` and ``visits`` are views of the same data, built when read.
+    """
+
+    def __init__(self, kernel: LoggedKernel, states: IntArray, actions: IntArray, next_states: IntArray) -> None:
+        self._kernel = kernel
+        self._states = frozen(states)
+        self._actions = frozen(actions)
+        self._next = frozen(next_states)
+        self._counts: Any = None
+        self._rewards: np.ndarray | None = None
+
+    @property
+    def data(self) -> str:
+        """``"transitions"`` or ``"trajectories"``."""
+        return self._kernel.regime
+
+    @property
+    def n(self) -> int:
+        """Transitions in the dataset (whole episodes for trajectories)."""
+        return int(self._states.size)
+
+    @property
+    def episodes(self) -> int | None:
+        """Episodes in the dataset (trajectories), None for i.i.d. transitions."""
+        return None if self.data == "transitions" else int(self._states.shape[0])
+
+    @property
+    def episode_length(self) -> int | None:
+        return None if self.data == "transitions" else int(self._states.shape[1])
+
+    @property
+    def states(self) -> IntArray:
+        return self._states
+
+    @property
+    def actions(self) -> IntArray:
+        return self._actions
+
+    @property
+    def next_states(self) -> IntArray:
+        return self._next
+
+    @property
+    def rewards(self) -> NDArray[np.float64]:
+        """The reward of each logged transition, r(s, a) (rewards are known and deterministic)."""
+        if self._rewards is None:
+            self._rewards = frozen(self._kernel.rewards[self._states, self._actions], copy=False)
+        return self._rewards
+
+    @property
+    def sparse(self) -> bool:
+        return self._kernel.next_states.sparse
+
+    @property
+    def counts(self) -> Any:
+        """How often each (s, a, s') was logged: read-only (S, A, S) ints (sparse MDP: scipy.sparse (S*A, S))."""
+        if self._counts is None:
+            S, A = self._kernel.states, self._kernel.actions
+            pairs = (self._states * A + self._actions).ravel()
+            if self.sparse:
+                from scipy import sparse
+
+                counts = sparse.csr_array((np.ones(pairs.size, dtype=np.int64), (pairs, self._next.ravel())),
+                                          shape=(S * A, S))
+                counts.sum_duplicates()
+                counts.data.setflags(write=False)
+            else:
+                counts = frozen(np.bincount(pairs * S + self._next.ravel(), minlength=S * A * S).reshape(S, A, S), copy=False)
+            self._counts = counts
+        return self._counts
+
+    @property
+    def visits(self) -> IntArray:
+        """How often each pair (s, a) was logged, (S, A); zero for the pairs the data never visit."""
+        S, A = self._kernel.states, self._kernel.actions
+        return frozen(np.bincount((self._states * A + self._actions).ravel(), minlength=S * A).reshape(S, A), copy=False)
+
+    def __repr__(self) -> str:
+        shape = "x".join(str(d) for d in self._states.shape)
+        return f"LoggedBatch(data={self.data!r}, n={self.n}, shape={shape})"
+
+
+def draw_logged_block(kernel: LoggedKernel, n: int, replicates: int, seed: np.random.SeedSequence) -> list[LoggedBatch]:
+    """``replicates`` independent logged datasets of n transitions, drawn in one vectorised call."""
+    states, actions, nxt = kernel.sample(np.random.default_rng(seed), int(n), int(replicates))
+    return [LoggedBatch(kernel, states[r], actions[r], nxt[r]) for r in range(replicates)]
