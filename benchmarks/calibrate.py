@@ -2,8 +2,10 @@
 
     python benchmarks/calibrate.py --seeds 300 --slow-seeds 40 --budget ci --workers 2 \
         --markdown docs/calibration.md
+    python benchmarks/calibrate.py --zoo logged --seeds 50 --budget ci --markdown docs/calibration-logged-ci.md
 
-For every zoo member (tests/engine/zoo.py) and master seed it runs one whole check and
+For every zoo member (tests/engine/zoo.py, or with ``--zoo logged`` the logged-data
+zoo of tests/engine/zoo_logged.py) and master seed it runs one whole check and
 tallies pass / fail / inconclusive / error. Printed per member: the share of each
 verdict with Clopper-Pearson 95% intervals (scipy.stats.binomtest), and the mean
 time per check. Summary lines: the false-alarm rate (correct members that
@@ -27,17 +29,20 @@ sys.path.insert(0, str(Path(__file__).resolve().parents[1] / "tests" / "engine")
 
 import rlrates  # noqa: E402
 import zoo  # noqa: E402
+import zoo_logged  # noqa: E402
+
+ZOOS = {"generative": zoo.members, "logged": zoo_logged.logged_members}
 
 
-def _run(job: tuple[int, int, str]) -> tuple[int, str, float]:
-    index, seed, budget = job
-    member = zoo.members()[index]
+def _run(job: tuple[int, int, str, str]) -> tuple[int, str, float]:
+    index, seed, budget, which = job
+    member = ZOOS[which]()[index]
     started = time.perf_counter()
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", rlrates.RatesWarning)
         try:
             status = rlrates.check(member.estimator, member.mdp, member.claim, target=member.target, budget=budget,
-                                   seed=seed).status
+                                   seed=seed, data=member.data).status
         except Exception as exc:  # a crash of the check itself is a finding: tally it, keep calibrating
             print(f"{member.name}, seed {seed}: check raised {type(exc).__name__}: {exc}", file=sys.stderr)
             status = "crash"
@@ -51,10 +56,10 @@ def _interval(k: int, n: int) -> str:
     return f"{k / n:.3f} [{ci.low:.3f}, {ci.high:.3f}]"
 
 
-def calibrate(seeds: int, slow_seeds: int, budget: str, workers: int) -> pd.DataFrame:
-    members = zoo.members()
+def calibrate(seeds: int, slow_seeds: int, budget: str, workers: int, which: str = "generative") -> pd.DataFrame:
+    members = ZOOS[which]()
     jobs = [
-        (i, seed, budget)
+        (i, seed, budget, which)
         for i, member in enumerate(members)
         for seed in range(slow_seeds if member.slow else seeds)
     ]
@@ -76,7 +81,7 @@ def calibrate(seeds: int, slow_seeds: int, budget: str, workers: int) -> pd.Data
             wrong = tallies[i]["pass"] + (tallies[i]["error"] if expected == "fail" else 0)
         rows.append({
             "member": member.name,
-            "target": member.target,
+            "target": member.target if member.data == "generative" else f"{member.target} ({member.data})",
             "expected": expected,
             "checks": count,
             "fails": tallies[i]["fail"],
@@ -98,10 +103,11 @@ def main() -> int:
     parser.add_argument("--slow-seeds", type=int, default=10, help="master seeds per slow (Q-learning) member")
     parser.add_argument("--budget", default="ci", choices=sorted(rlrates.BUDGETS))
     parser.add_argument("--workers", type=int, default=2)
+    parser.add_argument("--zoo", default="generative", choices=sorted(ZOOS), help="which zoo to calibrate")
     parser.add_argument("--markdown", type=Path, help="also write the table as Markdown here")
     args = parser.parse_args()
     started = time.perf_counter()
-    table = calibrate(args.seeds, args.slow_seeds, args.budget, args.workers)
+    table = calibrate(args.seeds, args.slow_seeds, args.budget, args.workers, args.zoo)
     correct = table[table["expected"] == "pass"]
     broken = table[table["expected"] == "fail"]
     zone = table[table["expected"] == "not pass"]
@@ -110,7 +116,7 @@ def main() -> int:
     total = int(table["checks"].sum())
     passes = int((correct["checks"] - correct["fails"] - correct["inconclusives"] - correct["errors"]).sum())
     summary = [
-        f"budget {args.budget}: {total} checks in {time.perf_counter() - started:.0f} s on {args.workers} worker(s)",
+        f"{args.zoo} zoo, budget {args.budget}: {total} checks in {time.perf_counter() - started:.0f} s on {args.workers} worker(s)",
         f"false alarms on correct estimators: {_interval(int(correct['fails'].sum()), int(correct['checks'].sum()))}",
         f"passes of correct estimators: {_interval(passes, int(correct['checks'].sum()))}",
         f"lowest detection rate on broken estimators: {detection.min():.3f} ({weakest})",

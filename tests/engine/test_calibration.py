@@ -41,3 +41,18 @@ def _assert_expected(member: zoo.Member, result: rlrates.CheckResult) -> None:
 def test_slow_zoo_member_gets_its_expected_verdict(member: zoo.Member) -> None:
     result = rlrates.check(member.estimator, member.mdp, member.claim, target=member.target, seed=0)
     _assert_expected(member, result)
+
+
+# --------------------------------------------------------------------------- the logged-data zoo
+# benchmarks/calibrate.py --zoo logged keeps the full table in docs/calibration-logged-ci.md and
+# docs/calibration-logged-appendix.md; here each member runs under one fixed seed.
+
+import zoo_logged  # noqa: E402
+
+LOGGED = zoo_logged.logged_members()
+
+
+@pytest.mark.parametrize("member", LOGGED, ids=[m.name for m in LOGGED])
+def test_logged_zoo_member_gets_its_expected_verdict(member: zoo.Member) -> None:
+    result = rlrates.check(member.estimator, member.mdp, member.claim, target=member.target, data=member.data, seed=0)
+    _assert_expected(member, result)

@@ -159,8 +159,10 @@ def check_record(result: "CheckResult", test_id: str, errors_sha256: str, rows: 
         "fired": list(result.fired),
         "reasons": list(result.reasons),
         "notes": list(result.notes),
-        "claim": {"n": result.claim.n, "horizon": result.claim.horizon, "text": result.claim.describe()},
+        "claim": {"n": result.claim.n, "horizon": result.claim.horizon, "coverage": result.claim.coverage,
+                  "text": result.claim.describe()},
         "target": result.target,
+        "data_regime": result.data_regime,
         "norm": result.norm,
         "fits": [fit.to_dict() for fit in result.factors],
         "bounds": {
