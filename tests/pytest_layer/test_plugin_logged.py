@@ -64,20 +64,3 @@ def test_logged_data_through_the_marker(project: pytest.Pytester) -> None:
     coverage = records["test_inner_logged.py::test_coverage"]
     assert coverage["status"] == "pass" and coverage["claim"]["coverage"] == 0.5
     assert coverage["data_regime"] == "transitions"
-
-
-@pytest.mark.parametrize("argument, message", [
-    ('data="offline"', "unknown `data` 'offline'"),
-    ('behaviour="uniform"', "`behaviour` must be an (S, A) array of action probabilities"),
-])
-def test_a_bad_data_or_behaviour_fails_at_collection(project: pytest.Pytester, argument: str, message: str) -> None:
-    project.makepyfile(test_inner_bad=f"""
-import pytest
-
-@pytest.mark.rlrates(n=-0.5, {argument})
-def test_marked(rlrates):
-    pass
-""")
-    result = project.runpytest("-q", "-p", "no:cacheprovider")
-    result.assert_outcomes(errors=1)
-    assert message in result.stdout.str()

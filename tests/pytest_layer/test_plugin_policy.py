@@ -46,6 +46,8 @@ def test_a_policy_callable_is_applied_to_each_mdp(project: pytest.Pytester) -> N
     ('policy="greedy"', "`policy` must be an (S, A) array of action probabilities, (S,) actions, or a callable"),
     ("policy=[[0.5, float('nan')]]", "`policy` must be a finite (S,) or (S, A) array"),
     ("zero_level=-1", "`zero_level` must be a finite number >= 0"),
+    ('data="offline"', "unknown `data` 'offline'"),
+    ('behaviour="uniform"', "`behaviour` must be an (S, A) array of action probabilities"),
 ])
 def test_a_bad_policy_or_zero_level_fails_at_collection(project: pytest.Pytester, argument: str, message: str) -> None:
     project.makepyfile(test_inner_bad=f"""
