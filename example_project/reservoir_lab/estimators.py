@@ -64,3 +64,25 @@ def chunked_evaluation(batch: Any, problem: Any, chunk: int = 32) -> np.ndarray:
         np.add.at(buffer, (np.arange(states)[:, None, None], np.arange(actions)[None, :, None], block), 1.0)
         used = block.shape[2]
     return _evaluate(buffer / used, problem.rewards, problem.gamma, problem.policy)
+
+
+def logged_records_evaluation(batch: Any, problem: Any) -> np.ndarray:
+    """Q of a proposed rule from the district's logged operating records (certainty equivalence).
+
+    ``batch.counts`` (S, A, S) counts the logged seasons; a (storage, release) pair the
+    records never show keeps the storage where it is in the model (a self-loop), so the
+    estimate stays a valid MDP while the records are thin.
+    """
+    counts = np.asarray(batch.counts, dtype=float)
+    visits = counts.sum(axis=2, keepdims=True)
+    model = counts / np.maximum(visits, 1.0)
+    states = counts.shape[0]
+    unseen = visits[..., 0] == 0
+    model[unseen] = np.eye(states)[np.nonzero(unseen)[0]]
+    return _evaluate(model, problem.rewards, problem.gamma, problem.policy)
+
+
+def logged_rule_value(batch: Any, problem: Any) -> float:
+    """The proposed rule's expected discounted value from a uniform starting storage, from the logged records."""
+    q = logged_records_evaluation(batch, problem)
+    return float(problem.initial @ (problem.policy * q).sum(axis=1))

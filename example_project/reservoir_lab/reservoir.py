@@ -58,3 +58,26 @@ def build() -> rlrates.TabularMDP:
         metadata={"family": "reservoir", "capacity": CAPACITY, "releases": list(RELEASES),
                   "inflow": INFLOW.tolist(), "reward_offset": low, "reward_scale": high - low},
     )
+
+
+def historical_rule() -> np.ndarray:
+    """The district's historical operating rule, as logged: mostly release the demand, hedge when low.
+
+    An (S, A) behaviour policy: at each storage level the operators released 2 units
+    (the demand) with probability 0.55 when they could, otherwise 1 unit, with some
+    0- and 3-unit seasons; every release was tried at every level now and then.
+    """
+    policy = np.full((CAPACITY + 1, len(RELEASES)), 0.05)
+    for storage in range(CAPACITY + 1):
+        policy[storage, 2 if storage >= 2 else 1] += 0.55
+        policy[storage, 1] += 0.2
+    return policy / policy.sum(axis=1, keepdims=True)
+
+
+def proposed_rule() -> np.ndarray:
+    """The rule the lab proposes: release the demand, more when nearly full, less when nearly empty."""
+    policy = np.zeros((CAPACITY + 1, len(RELEASES)))
+    for storage in range(CAPACITY + 1):
+        release = 3 if storage >= CAPACITY - 1 else 2 if storage >= 3 else 1
+        policy[storage, release] = 1.0
+    return policy

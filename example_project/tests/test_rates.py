@@ -6,7 +6,11 @@ Claims (error ~ n^a H^b with n simulated seasons per (storage, release) pair):
   family (Azar, Munos and Kappen 2013);
 - planning in the learned model: policy suboptimality n^-1/2;
 - synchronous Q-learning with a rescaled linear step: n^-1/2 H^2 up to logs
-  (Li, Cai, Chen, Wei and Chi 2021).
+  (Li, Cai, Chen, Wei and Chi 2021);
+- off-policy evaluation of a proposed rule from the logged operating records (n logged
+  seasons in all): n^-1/2, and no worse than sqrt(C) in the records' concentrability C
+  (certainty equivalence under concentrability, common practice; bounds of this shape,
+  with a distribution-shift term in place of C, are in Duan, Jia and Wang 2020).
 """
 
 from __future__ import annotations
@@ -50,3 +54,22 @@ def test_synchronous_q_learning(rlrates, mdp):
 @pytest.mark.rlrates(n=-0.5, horizon=2.0, target="q_pi")
 def test_chunked_evaluation_regression(rlrates):
     rlrates(estimators.chunked_evaluation, RESERVOIR)
+
+
+# Logged operating records: the district's seasons under its historical rule, used to evaluate
+# the proposed rule off-policy. n counts logged seasons in all; the claim adds how the error grows
+# with the concentrability C of the records (how much more the proposed rule visits a pair than the
+# records do): error ~ sqrt(C / n) for certainty equivalence under concentrability.
+
+
+@pytest.mark.rlrates(n=-0.5, data="trajectories", behaviour=reservoir.historical_rule(),
+                     policy=reservoir.proposed_rule())
+def test_proposed_rule_from_the_logged_records(rlrates):
+    rlrates(estimators.logged_records_evaluation, RESERVOIR)
+
+
+@pytest.mark.rlrates(n=-0.5, coverage=0.5, target="value", data="transitions",
+                     behaviour=reservoir.historical_rule(), policy=reservoir.proposed_rule())
+def test_logged_value_degrades_no_faster_than_sqrt_c(rlrates):
+    result = rlrates(estimators.logged_rule_value, RESERVOIR)
+    assert result.fit("coverage").measured

@@ -69,8 +69,8 @@ def check_arguments(*, n_grid: object = None, gammas: object = None, replicates:
         _gammas(gammas)
     if executor is not None:
         _executor(executor)
-    if policy is not None and target != "q_pi":
+    if policy is not None and target not in ("q_pi", "value"):
         raise ValueError(
-            f"`policy` is the evaluation policy of target 'q_pi' and is not used with target {target!r}; "
-            "leave it out, or use target='q_pi'"
+            f"`policy` is the evaluation policy of targets 'q_pi' and 'value' and is not used with target "
+            f"{target!r}; leave it out, or use target='q_pi'"
         )

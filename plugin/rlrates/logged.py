@@ -6,11 +6,11 @@ from the data distribution (the behaviour policy's discounted occupancy,
 ``data="trajectories"``: ``n // L`` episodes of L steps, s_0 from the initial
 distribution, a_t from the behaviour policy, s_{t+1} from P(. | s_t, a_t).
 
-Every draw is an inverse-CDF lookup vectorised over replicates and samples: the
-rows' cumulative probabilities are laid end to end, each shifted by its row
-index, so one ``numpy.searchsorted`` finds the category of every sample at once.
-Trajectories loop over the L steps of an episode only (each step vectorised
-over replicates and episodes), never over samples.
+Transitions are drawn as multinomial counts (of the pairs, then of each pair's
+successors by the conditional binomial chain of the generative sampler) put in
+a uniformly random order: the law of an i.i.d. sequence, at the cost of one
+permutation. Trajectories loop over the L steps of an episode only, each step
+an inverse-CDF lookup vectorised over replicates and episodes, never over samples.
 
 A :class:`LoggedBatch` holds the data as ``states``, ``actions``,
 ``next_states`` and ``rewards`` (1-D for transitions, (episodes, L) for
@@ -38,16 +38,28 @@ IntArray = NDArray[np.int64]
 
 
 def _cumulative(probs: NDArray[np.float64]) -> NDArray[np.float64]:
-    """Row-wise cumulative sums, each row shifted by its index and ending exactly at index + 1, flattened."""
+    """Row-wise cumulative sums of row-normalised ``probs``, each row ending exactly at 1."""
     cum = np.cumsum(probs / probs.sum(axis=1, keepdims=True), axis=1)
     cum[:, -1] = 1.0
-    return np.asarray((cum + np.arange(cum.shape[0])[:, None]).ravel(), dtype=np.float64)
+    return np.asarray(cum, dtype=np.float64)
 
 
-def _pick(rng: np.random.Generator, shifted: NDArray[np.float64], width: int, rows: IntArray) -> IntArray:
-    """One category per entry of ``rows`` (row indices into the shifted cumulative table): column indices."""
-    position = np.searchsorted(shifted, rows + rng.random(rows.shape), side="right")
-    return np.minimum(position - rows * width, width - 1)
+#: Up to this many categories a lookup compares against every column (fast, memory rows x width);
+#: wider rows use one binary search over all rows laid end to end.
+_NARROW = 16
+
+
+def _pick(rng: np.random.Generator, cumulative: NDArray[np.float64], rows: IntArray) -> IntArray:
+    """One category per entry of ``rows`` (row indices into ``cumulative``): the first column whose
+    cumulative probability exceeds a uniform draw (an inverse-CDF lookup, vectorised over entries)."""
+    u = rng.random(rows.shape)
+    width = cumulative.shape[1]
+    if width <= _NARROW:
+        return np.asarray((u[..., None] >= cumulative[rows]).sum(axis=-1), dtype=np.int64)
+    # row r's cumulative shifted to (r, r + 1]: one searchsorted finds every entry's column
+    shifted = (cumulative + np.arange(cumulative.shape[0])[:, None]).ravel()
+    position = np.searchsorted(shifted, rows + u, side="right")
+    return np.asarray(np.minimum(position - rows * width, width - 1), dtype=np.int64)
 
 
 @dataclass(frozen=True)
@@ -56,18 +68,21 @@ class LoggedKernel:
 
     regime: str
     next_states: SupportKernel  # the MDP's successors on each row's support
-    pairs: NDArray[np.float64]  # transitions: shifted cumulative of the data distribution over S*A pairs
-    initial: NDArray[np.float64]  # trajectories: shifted cumulative of the initial distribution
-    behaviour: NDArray[np.float64]  # trajectories: shifted cumulative of the behaviour policy's rows
+    pair_probs: NDArray[np.float64]  # transitions: the data distribution over the S*A pairs
+    initial: NDArray[np.float64]  # trajectories: cumulative of the initial distribution, (1, S)
+    behaviour: NDArray[np.float64]  # trajectories: cumulative of the behaviour policy's rows, (S, A)
     length: int
     rewards: NDArray[np.float64]
-    successors: NDArray[np.float64]  # shifted cumulative of each row's successor probabilities
+    successors: NDArray[np.float64]  # cumulative of each row's successor probabilities, (S*A, k)
 
     @classmethod
     def build(cls, regime: str, successors: SupportKernel, data: NDArray[np.float64], initial: NDArray[np.float64],
               behaviour: NDArray[np.float64], length: int, rewards: NDArray[np.float64]) -> "LoggedKernel":
-        return cls(regime, successors, _cumulative(data.reshape(1, -1)), _cumulative(initial.reshape(1, -1)),
-                   _cumulative(behaviour), int(length), rewards, _cumulative(successors.probs))
+        pair_probs = np.clip(data.ravel(), 0.0, None)
+        pair_probs = pair_probs / pair_probs.sum()
+        pair_probs[-1] = max(0.0, 1.0 - pair_probs[:-1].sum())  # multinomial needs sum(pvals[:-1]) <= 1
+        return cls(regime, successors, pair_probs, _cumulative(initial.reshape(1, -1)), _cumulative(behaviour),
+                   int(length), rewards, _cumulative(successors.probs))
 
     @property
     def states(self) -> int:
@@ -89,24 +104,40 @@ class LoggedKernel:
         """States, actions and next states of ``replicates`` batches, each (replicates, *shape(n))."""
         S, A = self.states, self.actions
         support = self.next_states.support
-        width = support.shape[1]
-        successors = self.successors
         if self.regime == "transitions":
-            pairs = _pick(rng, self.pairs, S * A, np.zeros((replicates, n), dtype=np.int64))
-            nxt = support[pairs, _pick(rng, successors, width, pairs)]
-            return pairs // A, pairs % A, nxt
+            return self._transitions(rng, n, replicates)
         episodes = self.episodes(n)
         states = np.empty((replicates, episodes, self.length), dtype=np.int64)
         actions = np.empty_like(states)
         nxt = np.empty_like(states)
-        current = _pick(rng, self.initial, S, np.zeros((replicates, episodes), dtype=np.int64))
+        current = _pick(rng, self.initial, np.zeros((replicates, episodes), dtype=np.int64))
         for t in range(self.length):  # one vectorised step of every episode of every replicate
             states[..., t] = current
-            actions[..., t] = _pick(rng, self.behaviour, A, current)
+            actions[..., t] = _pick(rng, self.behaviour, current)
             pair = current * A + actions[..., t]
-            current = support[pair, _pick(rng, successors, width, pair)]
+            current = support[pair, _pick(rng, self.successors, pair)]
             nxt[..., t] = current
         return states, actions, nxt
+
+    def _transitions(self, rng: np.random.Generator, n: int, replicates: int) -> tuple[IntArray, IntArray, IntArray]:
+        """n i.i.d. (s, a, s') per replicate: multinomial counts of the pairs, of each pair's successors
+        (the conditional binomial chain of :class:`rlrates.sampling.SupportKernel`), then a uniformly
+        random order, which together have the law of an i.i.d. sequence."""
+        S, A = self.states, self.actions
+        kernel = self.next_states
+        pairs = rng.multinomial(n, self.pair_probs, size=replicates)  # (R, S*A)
+        left = pairs.copy()
+        width = kernel.support.shape[1]
+        drawn = np.empty((replicates, S * A, width), dtype=np.int64)
+        for j in range(width - 1):  # one binomial call per support column, whatever n
+            drawn[:, :, j] = rng.binomial(left, kernel.conditional[:, j])
+            left -= drawn[:, :, j]
+        drawn[:, :, -1] = left
+        codes = (np.arange(S * A)[:, None] * S + kernel.support).ravel()  # pair * S + successor
+        ordered = np.repeat(np.tile(codes, replicates), drawn.ravel()).reshape(replicates, n)
+        shuffled = rng.permuted(ordered, axis=1)
+        pair, nxt = np.divmod(shuffled, S)
+        return pair // A, pair % A, nxt
 
 
 class LoggedBatch:

@@ -187,6 +187,9 @@ def logged_notes(settings: dict[tuple[float, int], Truth], default_behaviour_use
                           if t.data is not None and t.data.episode_length is not None})
         parts.append("episode length " + ", ".join(str(L) for L in lengths) + " steps, from a uniform initial "
                      "distribution")
+        if next(iter(settings.values())).target == "value":
+            parts.append("the value target is the discounted value of one episode of that length "
+                         "(problem.episode_length), not the infinite-horizon value")
     by_gamma: dict[float, list[str]] = {}
     for (gamma, level), truth in sorted(settings.items()):
         assert truth.data is not None

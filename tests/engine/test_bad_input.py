@@ -424,7 +424,7 @@ CATALOGUE = [
     Case("grid-huge", _check_with(n_grid=(2**62, 2**63, 2**64)), r"`n_grid` values must lie in 1 .. 2\*\*63 - 1 .* got 9223372036854775808"),
     Case("executor-not-executor", _check_with(executor=object()), r"`executor` must be a concurrent.futures.Executor .* got object"),
     Case("policy-unused", _check_with(target="q_star", policy=np.full((6, 2), 0.5)),
-         r"`policy` is the evaluation policy of target 'q_pi' and is not used with target 'q_star'"),
+         r"`policy` is the evaluation policy of targets 'q_pi' and 'value' and is not used with target 'q_star'"),
     Case("marker-budget-list", _marker_budget_list, r"test_x.py::test_y: unknown `budget` \['ci'\]; choose one of ci, appendix"),
     Case("claim-empty", lambda: rlrates.Claim(n=None, horizon=None), r"at least one factor"),
     Case("claim-non-numeric", lambda: rlrates.Claim(n="-1/2"), r"`n` exponent must be a number or None, got '-1/2'"),

@@ -137,3 +137,13 @@ def test_value_target_of_trajectories_is_the_episode_value(garnet: rlrates.Tabul
     assert float(truth.value) == pytest.approx(by_hand, rel=1e-13)
     transitions = logged_truths(solve_truth(garnet, 0.5, "value"), "transitions", None, None, 1)[0]
     assert float(transitions.value) == pytest.approx(initial @ np.einsum("sa,sa->s", policy, q_pi(garnet, 0.5, policy)))
+
+
+def test_wide_rows_sample_by_binary_search_with_the_same_law() -> None:
+    """Rows wider than the comparison lookup's limit (here 24 successors) use the searchsorted path."""
+    dense = rlrates.garnet(states=24, actions=2, branching=24, seed=5)
+    truth, kernel = _setting(dense, "trajectories", length=3)
+    (batch,) = draw_logged_block(kernel, 3 * 30_000, 1, np.random.SeedSequence(13))
+    marginal = occupancy.uniform_initial(dense) @ np.linalg.matrix_power(_kernel(dense, truth.data.behaviour), 2)
+    observed = np.bincount(batch.states[:, 2], minlength=dense.states)
+    assert stats.chisquare(observed, marginal * 30_000).pvalue > 1e-3
