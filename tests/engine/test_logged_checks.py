@@ -133,3 +133,14 @@ def test_an_estimator_that_writes_into_the_mdp_gets_an_error(garnet: rlrates.Tab
 def test_the_reproducer_names_the_regime(garnet: rlrates.TabularMDP, coverage_result: rlrates.CheckResult) -> None:
     assert "data='transitions'" in coverage_result.run.reproducer
     assert "coverage=0.5" in coverage_result.run.reproducer
+
+
+def test_the_readme_logged_example_runs_and_prints_what_it_shows(capsys: pytest.CaptureFixture[str]) -> None:
+    import re
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text()
+    block = next(b for b in re.findall(r"```python\n(.*?)```", readme, flags=re.DOTALL) if "reference_logged" in b)
+    exec(compile(block, "README.md", "exec"), {})
+    shown = re.search(r"# (C .*)$", block, flags=re.MULTILINE)
+    assert shown is not None and capsys.readouterr().out.strip() == shown.group(1)

@@ -253,3 +253,21 @@ def test_cli_draws_in_a_users_style_sheet(copy: Path, tmp_path: Path) -> None:
     assert main(["report", str(copy), "--style", str(sheet)]) == 0
     shapes = {imread(png).shape[:2] for png in copy.rglob("figure.png")}
     assert shapes == {(600, 1000)}  # 3 x 5 in at 200 dpi
+
+
+def test_a_coverage_claim_gets_its_own_exponent_column_in_both_indexes(tmp_path) -> None:
+    """A logged-data check with a coverage claim shows its C-exponent and its regime (common practice: one
+    column per claimed factor); checks without one keep the former columns."""
+    import rlrates
+    from rlrates.reference_logged import logged_plugin_q_pi
+    from rlrates.report.checks import write_check
+    from rlrates.report.index import write_index
+
+    mdp = rlrates.garnet(states=6, actions=2, branching=2, seed=1)
+    result = rlrates.check(logged_plugin_q_pi, mdp, rlrates.Claim(n=-0.5, coverage=0.5), data="transitions",
+                           n_grid=(480, 960, 1920, 3840), replicates=8)
+    write_check(result, tmp_path, "test_x.py::test_cov", figures=False)
+    write_index(tmp_path)
+    markdown = (tmp_path / "index.md").read_text()
+    assert "| C-exponent |" in markdown and "q_pi (transitions)" in markdown and "C^0.5" in markdown
+    assert r"$C$-exponent" in (tmp_path / "index.tex").read_text()

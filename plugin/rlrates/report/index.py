@@ -20,7 +20,7 @@ from urllib.parse import quote
 from ..fit_words import BOUNDS_NOTE, fit_words
 from ..vocabulary import Factor
 from .files import FIGURE_FILES, INDEX_FILES, RECORD_FILE, find_checks, write_text
-from .index_rows import Entry, fit_or_reason, tally, verdict_words
+from .index_rows import CLAIM_SYMBOLS, Entry, fit_or_reason, tally, verdict_words
 from .index_tex import DEFAULT_LATEX_COLUMNS, LATEX_COLUMNS, ROWS_PER_FLOAT, SPANS, index_latex, latex_escape
 from .schema import read_record, record_label
 
@@ -47,8 +47,14 @@ def _md_code(text: str) -> str:
 
 
 def _md_claim(claim: Mapping[str, Any]) -> str:
-    parts = [f"{symbol}^{claim[key]:g}" for key, symbol in (("n", "n"), ("horizon", "H")) if claim[key] is not None]
+    parts = [f"{symbol}^{claim[key]:g}" for key, symbol in CLAIM_SYMBOLS if claim.get(key) is not None]
     return " ".join(parts)
+
+
+def _md_target(record: Mapping[str, Any]) -> str:
+    """The target, with the data regime when the samples were logged data."""
+    regime = record.get("data_regime", "generative")
+    return str(record["target"]) + ("" if regime == "generative" else f" ({regime})")
 
 
 def _md_exponent(record: Mapping[str, Any], factor: Factor) -> str:
@@ -62,14 +68,17 @@ def _md_exponent(record: Mapping[str, Any], factor: Factor) -> str:
 
 def index_markdown(entries: Sequence[Entry]) -> str:
     """A Markdown page: one table row per check, in the order given, with links into each folder."""
+    coverage = any(record["claim"].get("coverage") is not None for _, record in entries)
+    heading = ["check", "test", "target", "MDP", "n-exponent", "H-exponent", *(["C-exponent"] if coverage else []),
+               "claim", "verdict", "files"]
     lines = [
         "# rlrates checks",
         "",
         f"{tally(entries)}. Each exponent cell gives the fit's verdict, the exponent and the limit tested (the "
         f"claim plus its tolerance); {BOUNDS_NOTE}. Each folder's check.json has the full provenance.",
         "",
-        "| check | test | target | MDP | n-exponent | H-exponent | claim | verdict | files |",
-        "|---|---|---|---|---|---|---|---|---|",
+        "| " + " | ".join(heading) + " |",
+        "|" + "---|" * len(heading),
     ]
     png, pdf = FIGURE_FILES
     for folder, record in entries:
@@ -78,10 +87,11 @@ def index_markdown(entries: Sequence[Entry]) -> str:
         cells = [
             _md_cell(record_label(record)),
             _md_code(str(record["test_id"])),
-            _md_cell(str(record["target"])),
+            _md_cell(_md_target(record)),
             _md_cell(str(record["mdp"]["name"])),
             _md_exponent(record, "n"),
             _md_exponent(record, "horizon"),
+            *([_md_exponent(record, "coverage")] if coverage else []),
             _md_cell(_md_claim(record["claim"])),
             _md_cell(verdict_words(record)),
             files,

@@ -46,9 +46,13 @@ def verdict_words(record: Mapping[str, Any]) -> str:
     return status + fired
 
 
+#: The claim's factors and their symbols, in the order every index shows them.
+CLAIM_SYMBOLS = (("n", "n"), ("horizon", "H"), ("coverage", "C"))
+
+
 def fit_or_reason(record: Mapping[str, Any], factor: Factor) -> Fit | str | None:
     """The fit; ``None`` when not claimed; a reason when claimed but not fitted."""
-    if record["claim"][factor] is None:
+    if record["claim"].get(factor) is None:  # records before the coverage factor have no such key
         return None
     fit = record_fit(record, factor)
     if fit is None:

@@ -21,7 +21,7 @@ from typing import Any
 from ..fit_words import percent, signed
 from ..result import Fit
 from ..vocabulary import Factor
-from .index_rows import Entry, fit_or_reason, tally, verdict_words
+from .index_rows import CLAIM_SYMBOLS, Entry, fit_or_reason, tally, verdict_words
 from .schema import record_fit, record_label
 
 __all__ = ["LATEX_COLUMNS", "DEFAULT_LATEX_COLUMNS", "ROWS_PER_FLOAT", "SPANS", "latex_escape", "index_latex"]
@@ -43,10 +43,12 @@ LATEX_COLUMNS: dict[str, tuple[str, float]] = {
     "claim": ("Claim", 0.8),
     "n": (r"$n$-exponent", 1.45),
     "horizon": (r"$H$-exponent", 1.45),
+    "coverage": (r"$C$-exponent", 1.45),
     "verdict": ("Verdict", 1.0),
 }
-#: The default columns (``horizon`` is left out when no check claims an H-exponent).
-DEFAULT_LATEX_COLUMNS = ("check", "mdp", "n", "horizon", "verdict")
+#: The default columns (``horizon`` and ``coverage`` are left out when no check claims that exponent).
+DEFAULT_LATEX_COLUMNS = ("check", "mdp", "n", "horizon", "coverage", "verdict")
+_EXPONENT_KEYS: tuple[Factor, ...] = ("n", "horizon", "coverage")
 #: At most this many rows per float (fewer when rows wrap onto several lines).
 ROWS_PER_FLOAT = 30
 # Float height allowance, for a column of a two-column A4 or letter page with 2 cm margins (the
@@ -87,7 +89,7 @@ def _fixed(value: float) -> str:
 
 
 def _tex_claim(claim: Mapping[str, Any]) -> str:
-    parts = [f"{symbol}^{{{claim[key]:g}}}" for key, symbol in (("n", "n"), ("horizon", "H")) if claim[key] is not None]
+    parts = [f"{symbol}^{{{claim[key]:g}}}" for key, symbol in CLAIM_SYMBOLS if claim.get(key) is not None]
     return "$" + " ".join(parts) + "$"
 
 
@@ -101,7 +103,7 @@ def _levels(fit: Fit) -> tuple[float, float]:
 
 def _shared_levels(entries: Sequence[Entry]) -> tuple[float, float] | None:
     """The bounds' levels when every measured fit of every row has the same ones, else ``None``."""
-    fits = [record_fit(record, factor) for _, record in entries for factor in ("n", "horizon")]
+    fits = [record_fit(record, factor) for _, record in entries for factor in _EXPONENT_KEYS]
     levels = {_levels(fit) for fit in fits if fit is not None and fit.measured}
     return next(iter(levels)) if len(levels) == 1 else None
 
@@ -145,15 +147,16 @@ def _tex_cell(key: str, record: Mapping[str, Any], shared: tuple[float, float] |
         return _breakable(str(record["mdp"]["name"]))
     if key == "claim":
         return _tex_claim(record["claim"])
-    if key in ("n", "horizon"):
-        return _tex_exponent(record, key, shared)  # type: ignore[arg-type]
+    if key in _EXPONENT_KEYS:
+        return _tex_exponent(record, key, shared)
     return latex_escape(verdict_words(record))
 
 
 def _columns(entries: Sequence[Entry], columns: Sequence[str] | None) -> tuple[str, ...]:
     if columns is None:
-        any_h = any(record["claim"]["horizon"] is not None for _, record in entries)
-        return tuple(c for c in DEFAULT_LATEX_COLUMNS if c != "horizon" or any_h)
+        claimed = {key for _, record in entries for key in ("horizon", "coverage")
+                   if record["claim"].get(key) is not None}
+        return tuple(c for c in DEFAULT_LATEX_COLUMNS if c not in ("horizon", "coverage") or c in claimed)
     chosen = tuple(columns)
     unknown = [c for c in chosen if c not in LATEX_COLUMNS]
     if unknown or not chosen:
@@ -179,7 +182,7 @@ def _row_lines(record: Mapping[str, Any], keys: Sequence[str], widths: Sequence[
              "verdict": verdict_words(record)}
     lines = 1
     for key, width in zip(keys, widths):
-        if key in ("n", "horizon"):
+        if key in _EXPONENT_KEYS:
             lines = max(lines, 3)
         elif key in texts:
             per_line = max(1, int((width * points - 6.0) / _CHAR_POINTS))
