@@ -526,7 +526,7 @@ def test_notes_do_not_change_the_fingerprint_and_must_be_strings() -> None:
     (lambda: rlrates.gridworld(400, 400, walls=()), None),
     (lambda: rlrates.deterministic(2_000, 4), 2_000 * 4 * 2_000 * 48 / 2**30),
     (lambda: rlrates.horizon_hard(2_000), 2_002 * 2_000 * 2_002 * 48 / 2**30),
-])
+], ids=["garnet-sparse", "garnet-dense", "chain-auto-sparse", "ring-dense", "gridworld", "deterministic", "horizon-hard"])
 def test_every_family_refuses_before_allocating_what_the_machine_cannot_hold(monkeypatch, build, expected) -> None:  # type: ignore[no-untyped-def]
     from rlrates import costs
 
