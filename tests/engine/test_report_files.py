@@ -228,6 +228,15 @@ def _edit_csv(change: Any) -> Any:
     return edit
 
 
+
+def _first_row(pattern: str, replacement: str) -> Any:
+    """Edit the table's first data row: the regular expression ``pattern`` becomes ``replacement``."""
+    return _edit_csv(lambda text: re.sub("\n" + pattern, "\n" + replacement, text, count=1))
+
+
+def _out_of_range(column: str, value: str, rule: str) -> str:
+    return rf"errors\.csv: line 2, column '{column}': '{value}' is out of range; {rule}"
+
 CORRUPTIONS = {
     "truncated json": (truncate_json, r"check\.json: not valid JSON \(line \d+"),
     "json is a list": (lambda f: (f / "check.json").write_text("[]"), r"check\.json: expected a JSON object"),
@@ -281,18 +290,13 @@ CORRUPTIONS = {
                      r"errors\.csv: line 2, column 'error': '.*' is not a finite number"),
     "fractional n": (_edit_csv(lambda t: t.replace("\n0.5,2,128,", "\n0.5,2,128.5,", 1)),
                      r"errors\.csv: line 2, column 'n'.*integer"),
-    "discount in csv": (_edit_csv(lambda t: t.replace("\n0.5,2,128,", "\n1.5,2,128,", 1)),
-                        r"errors\.csv: line 2, column 'gamma': '1\.5' is out of range; a discount lies in \(0, 1\)"),
-    "horizon in csv": (_edit_csv(lambda t: t.replace("\n0.5,2,128,", "\n0.5,3,128,", 1)),
-                       r"errors\.csv: line 2, column 'H': '3' is out of range; H is the effective horizon"),
-    "n zero in csv": (_edit_csv(lambda t: t.replace("\n0.5,2,128,", "\n0.5,2,0,", 1)),
-                      r"errors\.csv: line 2, column 'n': '0' is out of range"),
-    "negative replicate": (_edit_csv(lambda t: t.replace("\n0.5,2,128,0,", "\n0.5,2,128,-1,", 1)),
-                           r"errors\.csv: line 2, column 'replicate': '-1' is out of range"),
-    "huge error": (_edit_csv(lambda t: re.sub(r"\n0.5,2,128,0,[^,]*,", "\n0.5,2,128,0,1e308,", t, count=1)),
-                   r"errors\.csv: line 2, column 'error': '1e308.*' is out of range; an error is a number from 0 to 1e\+150"),
-    "negative time": (_edit_csv(lambda t: re.sub(r"\n(0.5,2,128,0,[^,]*),", r"\n\1,-", t, count=1)),
-                      r"errors\.csv: line 2, column 'seconds': '-.*' is out of range; a time in seconds is >= 0"),
+    "discount in csv": (_first_row("0.5,2,128,", "1.5,2,128,"), _out_of_range("gamma", r"1\.5", r"a discount lies in \(0, 1\)")),
+    "horizon in csv": (_first_row("0.5,2,128,", "0.5,3,128,"), _out_of_range("H", "3", "H is the effective horizon")),
+    "n zero in csv": (_first_row("0.5,2,128,", "0.5,2,0,"), _out_of_range("n", "0", "n is a whole number")),
+    "negative replicate": (_first_row("0.5,2,128,0,", "0.5,2,128,-1,"), _out_of_range("replicate", "-1", "a replicate")),
+    "huge error": (_first_row(r"0.5,2,128,0,[^,]*,", "0.5,2,128,0,1e308,"),
+                   _out_of_range("error", "1e308", r"an error is a number from 0 to 1e\+150")),
+    "negative time": (_first_row(r"(0.5,2,128,0,[^,]*),", r"\1,-"), _out_of_range("seconds", "-.*", "a time in seconds is >= 0")),
     "edited value": (_edit_csv(lambda t: t.replace("\n0.5,2,128,0,0", "\n0.5,2,128,0,1", 1)),
                      r"errors\.csv: contents differ from the sha256 recorded in .*check\.json"),
 }
