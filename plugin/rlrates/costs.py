@@ -24,6 +24,7 @@ from __future__ import annotations
 import os
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import lru_cache
 from pathlib import Path
 from typing import Any, Protocol
 
@@ -36,8 +37,8 @@ __all__ = [
 DENSE_BYTES_PER_ENTRY = 48
 #: Peak bytes per stored successor of building and validating a sparse (S*A, S) kernel (50 to 130 measured).
 SPARSE_BYTES_PER_ENTRY = 100
-#: Working space of a sparse build drawn in chunks (a Garnet's 4M random keys at a time, and their order).
-SPARSE_WORKING_BYTES = 64 * 2**20
+#: Working space of a sparse build drawn in chunks (a Garnet draws 4M random keys at a time, and partitions them: about 100 MB).
+SPARSE_WORKING_BYTES = 128 * 2**20
 
 _CGROUP_LIMIT = Path("/sys/fs/cgroup/memory.max")
 
@@ -58,6 +59,11 @@ def machine_memory() -> int | None:
     Physical memory, not the memory free right now: the answer does not change
     with what other programs are doing, so a refusal is the same on every run.
     """
+    return _physical_memory()
+
+
+@lru_cache(maxsize=1)
+def _physical_memory() -> int | None:
     try:
         total = int(os.sysconf("SC_PAGE_SIZE")) * int(os.sysconf("SC_PHYS_PAGES"))
     except (AttributeError, ValueError, OSError):

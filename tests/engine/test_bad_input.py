@@ -562,7 +562,7 @@ CATALOGUE = [
     Case("report-json-corrupt", _corrupt_report(_truncate_json), r"check.json: not valid JSON \(line \d+, column \d+"),
     Case("report-csv-edited", _corrupt_report(_drop_error_column), r"errors.csv: .*error"),
     Case("family-too-large", _on_a_machine_with(16 * 2**30, lambda: rlrates.garnet(states=10**7, actions=10, branching=5)),
-         r"garnet\(states=10000000, actions=10, branching=5\) needs about 46.6 GiB \(a sparse P of shape "
+         r"garnet\(states=10000000, actions=10, branching=5\) needs about 46.7 GiB \(a sparse P of shape "
          r"\(100000000, 10000000\) with 500,000,000 stored entries.*more than the 16 GiB of memory this machine has"),
     Case("family-dense-too-large", _on_a_machine_with(16 * 2**30, lambda: rlrates.garnet(100_000, 4, 3, sparse=False)),
          r"needs about 1,788 GiB \(a dense P of shape \(100000, 4, 100000\).*pass sparse=True"),

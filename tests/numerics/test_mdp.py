@@ -517,11 +517,11 @@ def test_notes_do_not_change_the_fingerprint_and_must_be_strings() -> None:
 
 
 @pytest.mark.parametrize("build, expected", [
-    # expected GiB worked out from rlrates.costs' per-entry rules: sparse 100 bytes per stored entry + 64 MiB,
+    # expected GiB worked out from rlrates.costs' per-entry rules: sparse 100 bytes per stored entry + 128 MiB,
     # dense 48 bytes per (s, a, s') entry
-    (lambda: rlrates.garnet(20_000, 4, 10, sparse=True), (20_000 * 4 * 10 * 100 + 64 * 2**20) / 2**30),
+    (lambda: rlrates.garnet(20_000, 4, 10, sparse=True), (20_000 * 4 * 10 * 100 + 128 * 2**20) / 2**30),
     (lambda: rlrates.garnet(2_000, 4, 10, sparse=False), 2_000 * 4 * 2_000 * 48 / 2**30),
-    (lambda: rlrates.chain(1_000_000), (1_000_000 * 2 * 2 * 100 + 64 * 2**20) / 2**30),
+    (lambda: rlrates.chain(1_000_000), (1_000_000 * 2 * 2 * 100 + 128 * 2**20) / 2**30),
     (lambda: rlrates.ring(2_000, sparse=False), 2_000 * 3 * 2_000 * 48 / 2**30),
     (lambda: rlrates.gridworld(400, 400, walls=()), None),
     (lambda: rlrates.deterministic(2_000, 4), 2_000 * 4 * 2_000 * 48 / 2**30),
