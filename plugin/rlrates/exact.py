@@ -143,15 +143,35 @@ def _policy_arrays(mdp: TabularMDP, pi: Array) -> tuple[Any, Array]:
     return np.einsum("sa,sat->st", pi, mdp.P), r_pi
 
 
+def _finite_solution(mdp: TabularMDP, gamma: float, values: Array, what: str) -> Array:
+    """``values`` when finite; else a ``ValueError`` that blames the MDP's reward scale, not an estimator."""
+    if np.isfinite(values).all():
+        return values
+    largest = float(np.abs(mdp.R).max())
+    growth = (f"values can reach max|R| / (1 - gamma) = {largest / (1.0 - gamma):.3g}" if gamma < 1.0
+              else "values add up rewards over whole episodes")
+    raise ValueError(
+        f"the exact {what} of MDP {mdp.name!r} at gamma={gamma:g} overflows float64 (largest finite "
+        f"{np.finfo(np.float64).max:.3g}): its rewards reach |R| = {largest:.3g} and {growth}. The MDP is at "
+        "fault, not an estimator: rescale its rewards (into [0, 1], say) before checking"
+    )
+
+
 def v_pi(mdp: TabularMDP, gamma: float, policy: ArrayLike | None = None) -> Array:
     """Exact V^pi by one linear solve of ``(I - gamma P^pi) V = r^pi``.
 
     ``gamma = 1`` is accepted for episodic problems: the absorbing zero-reward
     states get value 0 and the system is solved on the remaining (transient)
-    states; if the policy can stay forever among them, a ``ValueError`` says so.
+    states; if the policy can stay forever among them, a ``ValueError`` says so. Values
+    beyond float64 (rewards near its limit) are a ``ValueError`` naming the MDP.
     """
     gamma = validate_gamma(gamma, allow_one=True)
     pi = uniform_policy(mdp) if policy is None else validate_policy(mdp, policy)
+    with np.errstate(over="ignore", invalid="ignore"):
+        return _finite_solution(mdp, gamma, _solve_v_pi(mdp, gamma, pi), "V^pi")
+
+
+def _solve_v_pi(mdp: TabularMDP, gamma: float, pi: Array) -> Array:
     P_pi, r_pi = _policy_arrays(mdp, pi)
     S = mdp.states
     if gamma < 1.0:
@@ -193,7 +213,8 @@ def _backup(P: Any, R: Array, gamma: float, values: Array) -> Array:
 def q_pi(mdp: TabularMDP, gamma: float, policy: ArrayLike | None = None) -> Array:
     """Exact Q^pi (S, A) for ``policy`` ((S,) actions or (S, A) probabilities; default uniform)."""
     values = v_pi(mdp, gamma, policy)
-    return _backup(mdp.P, mdp.R, float(gamma), values)
+    with np.errstate(over="ignore", invalid="ignore"):
+        return _finite_solution(mdp, float(gamma), _backup(mdp.P, mdp.R, float(gamma), values), "Q^pi")
 
 
 def greedy_policy(q: ArrayLike) -> NDArray[np.int64]:
@@ -207,7 +228,10 @@ def q_star(mdp: TabularMDP, gamma: float) -> tuple[Array, NDArray[np.int64]]:
     Improvement switches action only on a strict gain larger than a rounding
     threshold, so the iteration terminates and ties resolve to the lowest index.
     """
-    return policy_iteration(mdp.P, mdp.R, validate_gamma(gamma))
+    gamma = validate_gamma(gamma)
+    with np.errstate(over="ignore", invalid="ignore"):
+        q, policy = policy_iteration(mdp.P, mdp.R, gamma)
+    return _finite_solution(mdp, gamma, q, "Q*"), policy
 
 
 def evaluate_arrays(P: Array, R: Array, gamma: float, policy: Array) -> Array:

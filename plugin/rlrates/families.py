@@ -6,7 +6,8 @@ records the family and its parameters (for reports and reproducers).
 ``garnet``, ``chain``, ``gridworld`` and ``ring`` take ``sparse=``: ``True`` builds
 ``P`` as a scipy.sparse (S*A, S) array from the successor lists, ``False`` as the
 dense (S, A, S) array, and the default ``None`` builds dense unless the dense
-array would exceed :data:`rlrates.mdp.DENSE_LIMIT_BYTES` (1 GiB). Both storages
+array would exceed :data:`rlrates.mdp.DENSE_LIMIT_BYTES` (1 GiB; the MDP's ``notes`` then say
+so). Both storages
 hold the same probabilities (a Garnet's bit for bit; the others' sums of
 coinciding moves to rounding).
 ``horizon_hard`` depends on the discount, so it returns a *gamma-indexed family*:
@@ -22,8 +23,9 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
+from .costs import dense_kernel_cost, gib, require_memory, sparse_kernel_cost
 from .exact import validate_gamma
-from .mdp import TabularMDP, dense_fits
+from .mdp import DENSE_LIMIT_BYTES, TabularMDP, dense_fits
 
 __all__ = ["garnet", "chain", "gridworld", "ring", "deterministic", "horizon_hard", "HorizonHard", "rebuild_call"]
 
@@ -49,6 +51,29 @@ def _use_sparse(sparse: object, states: int, actions: int) -> bool:
     if not isinstance(sparse, (bool, np.bool_)):
         raise ValueError(f"`sparse` must be True, False or None (dense unless it would not fit), got {sparse!r}")
     return bool(sparse)
+
+
+def _storage(sparse: object, call: str, states: int, actions: int, successors: int,
+             extra_bytes: int = 0) -> tuple[bool, tuple[str, ...]]:
+    """Sparse or dense (see :func:`_use_sparse`), and the notes to give the MDP; refuses what would not fit.
+
+    ``successors`` is the most successors a row stores in sparse form; ``extra_bytes``
+    what the family builds beside the kernel.
+    """
+    use_sparse = _use_sparse(sparse, states, actions)
+    if use_sparse:
+        cost = sparse_kernel_cost(call, states, actions, successors, extra_bytes)
+        advice = "use fewer states or actions (or fewer successors)"
+    else:
+        cost = dense_kernel_cost(call, states, actions, extra_bytes)
+        advice = "use fewer states, or pass sparse=True for a sparse P"
+    require_memory(cost, advice)
+    if not (sparse is None and use_sparse):
+        return use_sparse, ()
+    note = (f"built with a sparse P automatically: a dense (S, A, S) = ({states}, {actions}, {states}) kernel "
+            f"would take {gib(8 * states * actions * states)}, over the {gib(DENSE_LIMIT_BYTES)} dense limit "
+            "(rlrates.mdp.DENSE_LIMIT_BYTES); pass sparse=False for a dense one")
+    return True, (note,)
 
 
 def _sparse_rows(targets: NDArray[np.int64], weights: NDArray[np.float64], states: int) -> Any:
@@ -108,7 +133,8 @@ def garnet(states: int, actions: int, branching: int, seed: int = 0, *, sparse: 
     branching = _positive_int(branching, "branching")
     if branching > states:
         raise ValueError(f"`branching` ({branching}) cannot exceed `states` ({states})")
-    use_sparse = _use_sparse(sparse, states, actions)
+    use_sparse, notes = _storage(sparse, f"garnet(states={states}, actions={actions}, branching={branching})",
+                                 states, actions, branching)
     rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
     rows = states * actions
     # distinct successors: the first `branching` columns of a random permutation per row
@@ -128,7 +154,7 @@ def garnet(states: int, actions: int, branching: int, seed: int = 0, *, sparse: 
     R = rng.random((states, actions))
     metadata = {"family": "garnet", "states": states, "actions": actions, "branching": branching, "seed": int(seed)}
     return TabularMDP(P, R, name=f"garnet-S{states}-A{actions}-b{branching}-seed{seed}",
-                      metadata=_with_sparse(metadata, use_sparse))
+                      metadata=_with_sparse(metadata, use_sparse), notes=notes)
 
 
 def chain(states: int = 10, slip: float = 0.1, seed: int = 0, *, sparse: bool | None = None) -> TabularMDP:
@@ -140,7 +166,7 @@ def chain(states: int = 10, slip: float = 0.1, seed: int = 0, *, sparse: bool | 
     """
     states = _positive_int(states, "states", 2)
     slip = _probability(slip, "slip")
-    use_sparse = _use_sparse(sparse, states, 2)
+    use_sparse, notes = _storage(sparse, f"chain(states={states})", states, 2, 2)
     rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
     if use_sparse:
         left = np.maximum(np.arange(states) - 1, 0)
@@ -160,7 +186,8 @@ def chain(states: int = 10, slip: float = 0.1, seed: int = 0, *, sparse: bool | 
     R[0, :] = 0.1
     R[-1, :] = 1.0
     metadata = {"family": "chain", "states": states, "slip": slip, "seed": int(seed)}
-    return TabularMDP(P, R, name=f"chain-S{states}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse))
+    return TabularMDP(P, R, name=f"chain-S{states}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse),
+                      notes=notes)
 
 
 def gridworld(
@@ -181,6 +208,8 @@ def gridworld(
     width = _positive_int(width, "width")
     height = _positive_int(height, "height")
     slip = _probability(slip, "slip")
+    # the free cells are listed in Python first (about 250 bytes a cell): refuse before listing them
+    _storage(sparse, f"gridworld(width={width}, height={height})", width * height, 4, 5, 250 * width * height)
     wall_set = {tuple(w) for w in walls}
     cells = [(r, c) for r in range(height) for c in range(width) if (r, c) not in wall_set]
     if not cells:
@@ -191,7 +220,7 @@ def gridworld(
         raise ValueError(f"`goal` {goal!r} is a wall or off the grid")
     moves = [(-1, 0), (0, 1), (1, 0), (0, -1)]
     S = len(cells)
-    use_sparse = _use_sparse(sparse, S, 4)
+    use_sparse, notes = _storage(sparse, f"gridworld(width={width}, height={height})", S, 4, 5)
     if use_sparse:
         P: Any = _sparse_rows(*_slip_moves(_grid_moves(cells, width, height), slip), S)
     else:
@@ -209,7 +238,8 @@ def gridworld(
     R[index[goal_cell], :] = 1.0
     metadata = {"family": "gridworld", "width": width, "height": height, "slip": slip,
                 "walls": [list(w) for w in sorted(wall_set)], "goal": list(goal_cell)}
-    return TabularMDP(P, R, name=f"grid-{width}x{height}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse))
+    return TabularMDP(P, R, name=f"grid-{width}x{height}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse),
+                      notes=notes)
 
 
 def _grid_moves(cells: list[tuple[int, int]], width: int, height: int) -> NDArray[np.int64]:
@@ -232,7 +262,7 @@ def ring(states: int = 12, slip: float = 0.1, seed: int = 0, *, sparse: bool | N
     """
     states = _positive_int(states, "states", 3)
     slip = _probability(slip, "slip")
-    use_sparse = _use_sparse(sparse, states, 3)
+    use_sparse, notes = _storage(sparse, f"ring(states={states})", states, 3, 4)
     rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
     if use_sparse:
         here = np.arange(states)
@@ -247,7 +277,8 @@ def ring(states: int = 12, slip: float = 0.1, seed: int = 0, *, sparse: bool | N
                     P[s, a, t] += slip / 3
     R = rng.random((states, 3))
     metadata = {"family": "ring", "states": states, "slip": slip, "seed": int(seed)}
-    return TabularMDP(P, R, name=f"ring-S{states}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse))
+    return TabularMDP(P, R, name=f"ring-S{states}-slip{slip:g}", metadata=_with_sparse(metadata, use_sparse),
+                      notes=notes)
 
 
 def deterministic(states: int = 8, actions: int = 3, seed: int = 0) -> TabularMDP:
@@ -257,6 +288,8 @@ def deterministic(states: int = 8, actions: int = 3, seed: int = 0) -> TabularMD
     """
     states = _positive_int(states, "states")
     actions = _positive_int(actions, "actions")
+    require_memory(dense_kernel_cost(f"deterministic(states={states}, actions={actions})", states, actions),
+                   "use fewer states or actions (this family is dense only)")
     rng = np.random.default_rng(np.random.SeedSequence(int(seed)))
     successor = rng.integers(0, states, size=(states, actions))
     P = np.zeros((states, actions, states))
@@ -314,7 +347,8 @@ class HorizonHard:
 
 def horizon_hard(actions: int = 2) -> HorizonHard:
     """The gamma-indexed horizon-hard family; call the result with a discount to get an MDP."""
-    _positive_int(actions, "actions")
+    A = _positive_int(actions, "actions")
+    require_memory(dense_kernel_cost(f"horizon_hard(actions={A})", A + 2, A), "use fewer actions (this family is dense only)")
     return HorizonHard(actions=int(actions))
 
 

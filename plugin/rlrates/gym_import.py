@@ -47,6 +47,7 @@ from typing import Any
 
 import numpy as np
 
+from .costs import dense_kernel_cost, require_memory
 from .mdp import TabularMDP
 
 __all__ = ["from_gymnasium"]
@@ -127,7 +128,8 @@ def _number(value: Any, what: str, where: str, label: str) -> float:
 
 
 def _refuse_too_large(states: int, actions: int, label: str) -> None:
-    """Refuse, before allocating, a table whose dense P would exceed :data:`rlrates.storage.MAX_ENTRIES`."""
+    """Refuse, before allocating, a table whose dense P would exceed :data:`rlrates.storage.MAX_ENTRIES`,
+    or need more memory than the machine has (:mod:`rlrates.costs`)."""
     from .storage import MAX_ENTRIES
 
     entries = states * actions * states
@@ -137,6 +139,8 @@ def _refuse_too_large(states: int, actions: int, label: str) -> None:
             f"({entries * 8 / 2**30:.3g} GiB as float64), more than the {MAX_ENTRIES:,} a tabular MDP may hold here; "
             "use a smaller environment (tabular checks need the whole kernel in memory)"
         )
+    require_memory(dense_kernel_cost(f"environment {label}", states, actions),
+                   "use a smaller environment (tabular checks need the whole kernel in memory)")
 
 
 def from_gymnasium(env: Any, *, name: str | None = None, rescale: bool = True) -> TabularMDP:

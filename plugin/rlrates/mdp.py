@@ -15,11 +15,13 @@ from __future__ import annotations
 import hashlib
 import sys
 import warnings
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
+
+from .costs import Cost, require_memory
 
 __all__ = ["TabularMDP", "RewardRangeWarning", "ROW_SUM_TOLERANCE", "DENSE_LIMIT_BYTES", "dense_fits", "is_sparse"]
 
@@ -64,6 +66,21 @@ def _as_float_array(value: ArrayLike, name: str, ndim: int, layout: str) -> NDAr
             f"(shape {array.shape})"
         )
     return array
+
+
+#: Bytes per entry that validating a dense ``P`` adds to the array given: its float64 copy, two
+#: boolean masks and the fingerprint's copy.
+_VALIDATION_BYTES_PER_ENTRY = 18
+
+
+def _refuse_unaffordable(P: object) -> None:
+    """Refuse, before copying it, a dense ``P`` whose validation would need more memory than the machine has."""
+    if not isinstance(P, np.ndarray) or P.ndim != 3:
+        return
+    cost = Cost("validating `P`", P.nbytes + _VALIDATION_BYTES_PER_ENTRY * P.size,
+                f"shape {P.shape}, {P.size:,} entries: the array given, its float64 copy, the checks' masks "
+                "and the fingerprint's copy")
+    require_memory(cost, "give a smaller model, or a scipy.sparse (S*A, S) `P`, which is validated without densifying")
 
 
 def _first_index(mask: NDArray[np.bool_]) -> tuple[int, ...]:
@@ -182,12 +199,15 @@ class TabularMDP:
         A short label used in test ids and reports.
     metadata:
         Free-form description of where the MDP came from (family and parameters).
+    notes:
+        Remarks on how the model was built (for example that a family switched to
+        sparse storage by itself); a check repeats them in its message.
 
     The arrays are copied and made read-only; :attr:`fingerprint` is a stable hash
     of their contents (independent of ``name`` and ``metadata``).
     """
 
-    __slots__ = ("_P", "_R", "_name", "_metadata", "_fingerprint")
+    __slots__ = ("_P", "_R", "_name", "_metadata", "_notes", "_fingerprint")
 
     def __init__(
         self,
@@ -196,10 +216,14 @@ class TabularMDP:
         *,
         name: str = "mdp",
         metadata: Mapping[str, Any] | None = None,
+        notes: Sequence[str] = (),
     ) -> None:
+        if isinstance(notes, str) or not all(isinstance(note, str) for note in tuple(notes)):
+            raise TypeError(f"`notes` must be a sequence of strings, got {notes!r}")
         if is_sparse(P):
             P_array, states, actions = validate_sparse_transitions(P)
         else:
+            _refuse_unaffordable(P)
             P_array = validate_transitions(P)
             states, actions = P_array.shape[0], P_array.shape[1]
         R_array = validate_rewards(R, states, actions)
@@ -217,6 +241,7 @@ class TabularMDP:
         self._R = R_array
         self._name = str(name)
         self._metadata = dict(metadata or {})
+        self._notes = tuple(notes)
         self._fingerprint = _fingerprint(P_array, R_array)
 
     @property
@@ -260,6 +285,11 @@ class TabularMDP:
         return dict(self._metadata)
 
     @property
+    def notes(self) -> tuple[str, ...]:
+        """Remarks on how the model was built (``()`` when there is nothing to say)."""
+        return self._notes
+
+    @property
     def fingerprint(self) -> str:
         """Hex digest of the shape and contents of ``P`` and ``R``."""
         return self._fingerprint
@@ -278,7 +308,7 @@ class TabularMDP:
     def __reduce__(self) -> tuple[Any, ...]:
         # The arrays were validated when this object was built: unpickling (for example in
         # a process-pool worker, once per sweep cell) restores them without validating again.
-        return (_restore, (self._P, self._R, self._name, self._metadata, self._fingerprint))
+        return (_restore, (self._P, self._R, self._name, self._metadata, self._fingerprint, self._notes))
 
     def __eq__(self, other: object) -> bool:
         if not isinstance(other, TabularMDP):
@@ -315,7 +345,7 @@ def _fingerprint(P: Any, R: NDArray[np.float64]) -> str:
 
 
 def _restore(
-    P: Any, R: NDArray[np.float64], name: str, metadata: dict[str, Any], fingerprint: str
+    P: Any, R: NDArray[np.float64], name: str, metadata: dict[str, Any], fingerprint: str, notes: tuple[str, ...] = ()
 ) -> TabularMDP:
     """Rebuild a pickled TabularMDP from its already validated parts."""
     mdp = object.__new__(TabularMDP)
@@ -327,6 +357,7 @@ def _restore(
         P.setflags(write=False)
     R = np.asarray(R, dtype=np.float64)
     R.setflags(write=False)
-    for slot, value in (("_P", P), ("_R", R), ("_name", name), ("_metadata", dict(metadata)), ("_fingerprint", fingerprint)):
+    for slot, value in (("_P", P), ("_R", R), ("_name", name), ("_metadata", dict(metadata)), ("_notes", tuple(notes)),
+                        ("_fingerprint", fingerprint)):
         object.__setattr__(mdp, slot, value)
     return mdp

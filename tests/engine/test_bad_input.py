@@ -338,23 +338,38 @@ def _marker_without_fixture() -> str:
     return "; ".join(f"{type(w.message).__name__}: {w.message}" for w in caught)
 
 
-def _saved_report(tmp: Path) -> Path:
+def _saved_report(tmp: Path, figures: bool = False) -> Path:
     from rlrates.report import write_check
 
     result = rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **SMALL)
-    return write_check(result, tmp, "tests/test_x.py::test_saved", figures=False)
+    folder = write_check(result, tmp, "tests/test_x.py::test_saved", figures=False)
+    if figures:  # as if drawn by the plugin (listed as ours), then replaced by the edit
+        from rlrates.report import files
+
+        files.write_text(folder / "figure.png", "a figure")
+        (folder / "figure.png").unlink()
+    return folder
 
 
-def _corrupt_report(edit: Callable[[Path], None]) -> Callable[[], None]:
-    def trigger() -> None:
+def _corrupt_report(edit: Callable[[Path], None], figures: bool = False) -> Callable[[], None]:
+    """``python -m rlrates report`` on a saved check after ``edit``: its message (exit code 2), or ``None`` (exit 0)."""
+    def trigger() -> str | None:
+        import contextlib
+        import io
         import tempfile
 
-        from rlrates.report import rebuild
+        from rlrates.__main__ import main
 
         with tempfile.TemporaryDirectory() as tmp:
-            folder = _saved_report(Path(tmp))
+            folder = _saved_report(Path(tmp), figures)
             edit(folder)
-            rebuild(tmp)
+            errors = io.StringIO()
+            with contextlib.redirect_stderr(errors):
+                code = main(["report", tmp])
+        if code == 0:
+            return None
+        assert code == 2, errors.getvalue()
+        return errors.getvalue()
 
     return trigger
 
@@ -368,6 +383,75 @@ def _drop_error_column(folder: Path) -> None:
     path = folder / "errors.csv"
     lines = path.read_text().splitlines()
     path.write_text("\n".join(",".join(line.split(",")[:4] + line.split(",")[5:]) for line in lines) + "\n")
+
+
+def _on_a_machine_with(memory: int, build: Callable[[], object]) -> Callable[[], object]:
+    """Run ``build`` as if the machine had ``memory`` bytes (so the case does not depend on this machine)."""
+    def trigger() -> object:
+        from rlrates import costs
+
+        with pytest.MonkeyPatch.context() as patch:
+            patch.setattr(costs, "machine_memory", lambda: memory)
+            return build()
+
+    return trigger
+
+
+def _huge_input_kernel() -> None:
+    """A (40000, 4, 40000) P that takes no memory itself (a broadcast view): its validated copy would."""
+    S = 40_000
+    rlrates.TabularMDP(np.broadcast_to(np.full(1, 1.0 / S), (S, 4, S)), np.zeros((S, 4)))
+
+
+def _gym_table(states: int) -> None:
+    from types import SimpleNamespace
+
+    rlrates.from_gymnasium(SimpleNamespace(P={s: {a: [(1.0, s, 0.0, False)] for a in range(4)} for s in range(states)}))
+
+
+def _overflowing_truth() -> None:
+    import warnings
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", rlrates.RewardRangeWarning)
+        huge = rlrates.TabularMDP(MDP.P, np.full((6, 2), 1e308), name="huge-rewards")
+    rlrates.check(reference.plugin_q_pi, huge, CLAIM, **SMALL)
+
+
+def _edit_record(edit: Callable[[dict[str, Any]], None]) -> Callable[[Path], None]:
+    def change(folder: Path) -> None:
+        import json
+
+        record = json.loads((folder / "check.json").read_text())
+        edit(record)
+        (folder / "check.json").write_text(json.dumps(record, indent=2))
+
+    return change
+
+
+def _edit_csv(column: str, value: str) -> Callable[[Path], None]:
+    """Set ``column`` of the table's first row to ``value`` and update the checksum in check.json, as a careful editor would."""
+    def change(folder: Path) -> None:
+        import hashlib
+        import json
+
+        lines = (folder / "errors.csv").read_text().splitlines()
+        at = lines[0].split(",").index(column)
+        first = lines[1].split(",")
+        first[at] = value
+        text = "\n".join([lines[0], ",".join(first), *lines[2:]]) + "\n"
+        (folder / "errors.csv").write_text(text)
+        _edit_record(lambda record: record["data"].update(sha256=hashlib.sha256(text.encode()).hexdigest()))(folder)
+
+    return change
+
+
+def _figure_is_a_directory(folder: Path) -> None:
+    (folder / "figure.png").mkdir()
+
+
+def _latex_verdict(record: dict[str, Any]) -> None:
+    record["fits"][0]["verdict"] = r"\textbf{ok}\input{/etc/passwd}"
 
 
 @dataclass(frozen=True)
@@ -477,6 +561,35 @@ CATALOGUE = [
          r"the test keeps its verdict\n(.|\n)*1 report\(s\) missing \(could not be written\): tests/test_x.py::test_full"),
     Case("report-json-corrupt", _corrupt_report(_truncate_json), r"check.json: not valid JSON \(line \d+, column \d+"),
     Case("report-csv-edited", _corrupt_report(_drop_error_column), r"errors.csv: .*error"),
+    Case("family-too-large", _on_a_machine_with(16 * 2**30, lambda: rlrates.garnet(states=10**7, actions=10, branching=5)),
+         r"garnet\(states=10000000, actions=10, branching=5\) needs about 46.7 GiB \(a sparse P of shape "
+         r"\(100000000, 10000000\) with 500,000,000 stored entries.*more than the 16 GiB of memory this machine has"),
+    Case("family-dense-too-large", _on_a_machine_with(16 * 2**30, lambda: rlrates.garnet(100_000, 4, 3, sparse=False)),
+         r"needs about 1,788 GiB \(a dense P of shape \(100000, 4, 100000\).*pass sparse=True"),
+    Case("mdp-too-large", _on_a_machine_with(16 * 2**30, _huge_input_kernel),
+         r"validating `P` needs about 155 GiB \(shape \(40000, 4, 40000\), 6,400,000,000 entries.*more than the 16 GiB"),
+    Case("gym-over-memory", _on_a_machine_with(64 * 2**20, lambda: _gym_table(2000)),
+         r"environment SimpleNamespace needs about 0.716 GiB \(a dense P of shape \(2001, 4, 2001\).*more than the 0.0625 GiB"),
+    Case("truth-overflows", _overflowing_truth,
+         r"the exact V\^pi of MDP 'huge-rewards' at gamma=0.5 overflows float64 .* rewards reach \|R\| = 1e\+308 "
+         r"and values can reach max\|R\| / \(1 - gamma\) = inf\. The MDP is at fault, not an estimator"),
+    Case("report-verdict-latex", _corrupt_report(_edit_record(_latex_verdict)),
+         r"check.json: fits\[0\]: fit key 'verdict' must be one of ok, violated, unclear, exact"),
+    Case("report-failure-not-object", _corrupt_report(_edit_record(lambda r: r.update(failure="n/a"))),
+         r"check.json: failure is 'n/a'; null, or an object with gamma \(in \(0, 1\)\), n \(>= 1\)"),
+    Case("report-claim-out-of-range", _corrupt_report(_edit_record(lambda r: r["claim"].update(n=1e308))),
+         r"check.json: claim.n is 1e\+308; a claimed n-exponent is a negative number, at least -100, or null"),
+    Case("report-json-nan", _corrupt_report(lambda f: f.joinpath("check.json").write_text(
+         f.joinpath("check.json").read_text().replace('"seed": ', '"seed": NaN, "was": ', 1))),
+         r"check.json: not valid JSON \(NaN is not a JSON number"),
+    Case("report-figure-directory", _corrupt_report(_figure_is_a_directory, figures=True),
+         r"test_saved-[0-9a-f]+/figure.png is a directory, where the report writes its figure.png; move it away"),
+    Case("report-csv-huge-error", _corrupt_report(_edit_csv("error", "1e308")),
+         r"errors.csv: line 2, column 'error': '1e308' is out of range; an error is a number from 0 to 1e\+150"),
+    Case("report-csv-n-zero", _corrupt_report(_edit_csv("n", "0")),
+         r"errors.csv: line 2, column 'n': '0' is out of range; n is a whole number of samples >= 1"),
+    Case("report-csv-horizon-zero", _corrupt_report(_edit_csv("H", "0")),
+         r"errors.csv: line 2, column 'H': '0' is out of range; H is the effective horizon 1 / \(1 - gamma\)"),
     Case("label-empty", lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, label=" ", **SMALL),
          r"`label` must be a non-empty string, got ' '"),
     Case("figure-width", lambda: _figure_width("wide"), r"figure width 'wide' must be 'column', 'page' or a number of inches"),

@@ -70,7 +70,7 @@ def test_a_thread_pool_takes_any_estimator_and_matches_serial(garnet: rlrates.Ta
 def test_a_dask_cluster_matches_serial(garnet: rlrates.TabularMDP, serial: rlrates.CheckResult) -> None:
     distributed = pytest.importorskip("distributed")
     with distributed.LocalCluster(
-        n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None,
+        n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=":0",
     ) as cluster, distributed.Client(cluster) as client:
         executor = client.get_executor()
         clustered = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, seed=3, executor=executor)
@@ -135,6 +135,34 @@ def test_a_worker_that_dies_is_an_error_naming_the_cell_with_the_rows_before_it(
     kept = _numbers(result)
     assert len(kept) > 0 and set(kept["n"]) <= {128, 256}
     expected = _numbers(serial).merge(kept[["gamma", "n", "replicate"]], on=["gamma", "n", "replicate"])
+    pd.testing.assert_frame_equal(kept.reset_index(drop=True), expected, check_exact=True)
+
+
+def test_a_killed_dask_worker_is_an_error_naming_the_cell_with_the_rows_before_it(garnet: rlrates.TabularMDP) -> None:
+    """Common practice, as for a process pool: the lost cell is named and the finished rows survive.
+
+    dask retries a task whose worker died on other workers (``allowed-failures``, 3 by default) before
+    it gives up with ``KilledWorker``; 0 here makes the first death final, so the test takes seconds.
+    """
+    distributed = pytest.importorskip("distributed", reason="dask.distributed is not installed (pip install distributed)")
+    import dask
+
+    small = {"n_grid": (128, 256, 512), "replicates": 4, "gammas": (0.5, 0.9), "seed": 3}
+    with dask.config.set({"distributed.scheduler.allowed-failures": 0, "logging.distributed": "critical"}):
+        with distributed.LocalCluster(n_workers=1, threads_per_worker=1, processes=True, host="127.0.0.1",
+                                      dashboard_address=":0") as cluster, distributed.Client(cluster) as client:
+            result = rlrates.check(_dies_at_512, garnet, CLAIM, executor=client.get_executor(), **small)
+    assert result.status == "error"
+    failure = result.failure
+    assert failure is not None and failure.kind == "crashed"
+    assert (failure.gamma, failure.n, failure.replicate) == (0.5, 512, 0)
+    assert "the cell at gamma=0.5, n=512, replicate=0 never finished" in result.message
+    assert "KilledWorker" in result.message
+    kept = _numbers(result)
+    assert len(kept) > 0 and set(kept["n"]) <= {128, 256}
+    # below n = 512 the estimator is the plug-in one: the kept rows are a serial plug-in run's rows
+    alone = _numbers(rlrates.check(reference.plugin_q_pi, garnet, CLAIM, **small))
+    expected = alone.merge(kept[["gamma", "n", "replicate"]], on=["gamma", "n", "replicate"])
     pd.testing.assert_frame_equal(kept.reset_index(drop=True), expected, check_exact=True)
 
 

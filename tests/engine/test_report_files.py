@@ -228,6 +228,15 @@ def _edit_csv(change: Any) -> Any:
     return edit
 
 
+
+def _first_row(pattern: str, replacement: str) -> Any:
+    """Edit the table's first data row: the regular expression ``pattern`` becomes ``replacement``."""
+    return _edit_csv(lambda text: re.sub("\n" + pattern, "\n" + replacement, text, count=1))
+
+
+def _out_of_range(column: str, value: str, rule: str) -> str:
+    return rf"errors\.csv: line 2, column '{column}': '{value}' is out of range; {rule}"
+
 CORRUPTIONS = {
     "truncated json": (truncate_json, r"check\.json: not valid JSON \(line \d+"),
     "json is a list": (lambda f: (f / "check.json").write_text("[]"), r"check\.json: expected a JSON object"),
@@ -247,6 +256,33 @@ CORRUPTIONS = {
     "wrong type": (_edit_json(lambda r: r.update(seed="zero")), r"check\.json: key 'seed' has the wrong type"),
     "unknown status": (_edit_json(lambda r: r.update(status="passed")), r"check\.json: status 'passed' is not one of"),
     "other schema": (_edit_json(lambda r: r.update(schema="rlrates-check/0")), r"check\.json: schema 'rlrates-check/0'"),
+    "target word": (_edit_json(lambda r: r.update(target="v_pi")), r"check\.json: target is 'v_pi'; choose one of q_pi"),
+    "norm word": (_edit_json(lambda r: r.update(norm="l2")), r"check\.json: norm is 'l2'; choose one of sup, mean"),
+    "fired word": (_edit_json(lambda r: r.update(fired=[r"\input{x}"])),
+                   r"check\.json: fired\[0\] is '\\\\input\{x\}'; a sub-test is one of rate, floor"),
+    "negative seed": (_edit_json(lambda r: r.update(seed=-3)), r"check\.json: seed is -3; the master seed is an integer >= 0"),
+    "positive claim": (_edit_json(lambda r: r["claim"].update(n=0.5)),
+                       r"check\.json: claim\.n is 0\.5; a claimed n-exponent is a negative number, at least -100"),
+    "infinite claim": (lambda f: (f / "check.json").write_text(json.dumps({**load(f), "claim": {**load(f)["claim"], "n": "BIG"}}).replace(
+                       '"BIG"', "-1e400")), r"check\.json: claim\.n is -inf; a claimed n-exponent is a negative number"),
+    "no claim": (_edit_json(lambda r: r["claim"].update(n=None, horizon=None)),
+                 r"check\.json: claim is .*; a claim has an n-exponent, an H-exponent or both"),
+    "fit claims another": (_edit_json(lambda r: r["fits"][0].update(claimed=-1.0)),
+                           r"check\.json: fits\[0\]\.claimed is -1\.0; it must be the claim's n-exponent, -0\.5"),
+    "fit exponent huge": (_edit_json(lambda r: r["fits"][0].update(exponent=1e308)),
+                          r"check\.json: fits\[0\]\.exponent is 1e\+308; an exponent is a number from -100 to 100"),
+    "failure without cell": (_edit_json(lambda r: r.update(failure={"kind": "raised", "message": "x"})),
+                             r"check\.json: failure\.gamma is None; failure must be null, or an object"),
+    "cell discount": (_edit_json(lambda r: r["cells"][0].update(gamma=1.0)),
+                      r"check\.json: cells\[0\]\.gamma is 1\.0; a discount lies in \(0, 1\)"),
+    "cell n": (_edit_json(lambda r: r["cells"][0].update(n=0)), r"check\.json: cells\[0\]\.n is 0; n is a whole number"),
+    "cell mean": (_edit_json(lambda r: r["cells"][0].update(mean=-1.0)),
+                  r"check\.json: cells\[0\]\.mean is -1\.0; a mean error is a number from 0 to 1e\+150"),
+    "slope discount": (_edit_json(lambda r: r["slopes"][0].update(gamma=0)), r"check\.json: slopes\[0\]\.gamma is 0"),
+    "json constant": (lambda f: (f / "check.json").write_text((f / "check.json").read_text().replace(
+                      '"seed": ', '"seed": Infinity, "was": ', 1)), r"check\.json: not valid JSON \(Infinity is not a JSON number"),
+    "json too deep": (lambda f: (f / "check.json").write_text('{"a": ' + "[" * 100_000 + "]" * 100_000 + "}"),
+                      r"check\.json: not valid JSON \(nested too deeply\)"),
     "missing csv": (lambda f: (f / "errors.csv").unlink(), r"errors\.csv: missing"),
     "missing column": (_edit_csv(lambda t: t.replace("error,seconds", "err,seconds", 1)),
                        r"errors\.csv: missing column\(s\) error; expected gamma, H, n, replicate, error, seconds"),
@@ -254,6 +290,13 @@ CORRUPTIONS = {
                      r"errors\.csv: line 2, column 'error': '.*' is not a finite number"),
     "fractional n": (_edit_csv(lambda t: t.replace("\n0.5,2,128,", "\n0.5,2,128.5,", 1)),
                      r"errors\.csv: line 2, column 'n'.*integer"),
+    "discount in csv": (_first_row("0.5,2,128,", "1.5,2,128,"), _out_of_range("gamma", r"1\.5", r"a discount lies in \(0, 1\)")),
+    "horizon in csv": (_first_row("0.5,2,128,", "0.5,3,128,"), _out_of_range("H", "3", "H is the effective horizon")),
+    "n zero in csv": (_first_row("0.5,2,128,", "0.5,2,0,"), _out_of_range("n", "0", "n is a whole number")),
+    "negative replicate": (_first_row("0.5,2,128,0,", "0.5,2,128,-1,"), _out_of_range("replicate", "-1", "a replicate")),
+    "huge error": (_first_row(r"0.5,2,128,0,[^,]*,", "0.5,2,128,0,1e308,"),
+                   _out_of_range("error", "1e308", r"an error is a number from 0 to 1e\+150")),
+    "negative time": (_first_row(r"(0.5,2,128,0,[^,]*),", r"\1,-"), _out_of_range("seconds", "-.*", "a time in seconds is >= 0")),
     "edited value": (_edit_csv(lambda t: t.replace("\n0.5,2,128,0,0", "\n0.5,2,128,0,1", 1)),
                      r"errors\.csv: contents differ from the sha256 recorded in .*check\.json"),
 }

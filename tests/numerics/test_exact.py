@@ -533,3 +533,33 @@ def test_the_model_target_of_a_sparse_mdp_measures_the_max_row_l1_distance() -> 
     assert estimate_error(valid, truth, "mean") == pytest.approx(dense_gap.mean(), abs=1e-15)
     with pytest.raises(EstimateError, match=r"row \(s=0, a=0\) sums to 2"):
         validate_estimate(guess * 2.0, truth)
+
+
+# --------------------------------------------------------------------------- values beyond float64
+
+
+def _constant_reward(reward: float) -> TabularMDP:
+    """Two states, two actions, every reward ``reward``: Q^pi = Q* = reward / (1 - gamma) everywhere
+    (the geometric series; Puterman 1994, Section 6.1)."""
+    P = np.full((2, 2, 2), 0.5)
+    return _quiet_mdp(P, np.full((2, 2), reward))
+
+
+def test_huge_but_representable_values_are_solved_exactly() -> None:
+    mdp = _constant_reward(1e307)
+    np.testing.assert_allclose(q_pi(mdp, 0.5), np.full((2, 2), 2e307), rtol=1e-12)
+    np.testing.assert_allclose(q_star(mdp, 0.5)[0], np.full((2, 2), 2e307), rtol=1e-12)
+
+
+@pytest.mark.parametrize("solve, what", [
+    (lambda mdp: q_pi(mdp, 0.9), "V\\^pi"),
+    (lambda mdp: v_pi(mdp, 0.9), "V\\^pi"),
+    (lambda mdp: q_star(mdp, 0.9), "Q\\*"),
+])
+def test_values_beyond_float64_blame_the_mdp_without_numpy_warnings(solve, what) -> None:  # type: ignore[no-untyped-def]
+    # 1e308 / (1 - 0.9) = 1e309 is beyond float64's largest finite 1.8e308; pyproject turns any
+    # RuntimeWarning (overflow, invalid value in matmul) into an error, so none may escape either
+    mdp = _constant_reward(1e308)
+    with pytest.raises(ValueError, match=rf"the exact {what} of MDP 'mdp' at gamma=0.9 overflows float64 .*"
+                       r"\|R\| = 1e\+308 and values can reach max\|R\| / \(1 - gamma\) = inf\. The MDP is at fault"):
+        solve(mdp)

@@ -279,3 +279,15 @@ def test_any_object_with_a_table_works_and_terminal_free_tables_add_no_state() -
 def test_unusable_environments_are_refused_with_the_reason(env: Any, match: str) -> None:
     with pytest.raises(ValueError, match=match):
         rlrates.from_gymnasium(env)
+
+
+def test_a_table_whose_dense_P_the_machine_cannot_hold_is_refused_before_allocating(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    from rlrates import costs
+
+    monkeypatch.setattr(costs, "machine_memory", lambda: 2**30)  # a 1 GiB machine
+    # 4000 states and the absorbing state the import may add: 4001 * 4 * 4001 = 64,032,004 entries, under
+    # MAX_ENTRIES (10**8); at 48 bytes each while built: 2.86 GiB
+    table = {s: {a: [(1.0, (s + a) % 4000, 0.0, False)] for a in range(4)} for s in range(4000)}
+    with pytest.raises(costs.TooLargeError, match=r"environment _Fake needs about 2.86 GiB \(a dense P of shape "
+                       r"\(4001, 4, 4001\).*more than the 1 GiB of memory this machine has; use a smaller environment"):
+        rlrates.from_gymnasium(_Fake(table))

@@ -7,6 +7,7 @@ explained beside its check); none is a number printed by the code under test.
 from __future__ import annotations
 
 import math
+import re
 import pickle
 
 import numpy as np
@@ -490,3 +491,60 @@ def test_families_go_sparse_on_their_own_only_when_dense_would_not_fit() -> None
     # two successors per row, left and right (at an end one of them is the state itself)
     assert big.is_sparse and big.P.shape == (2 * 8193, 8193) and big.P.nnz == 4 * 8193
     assert not rlrates.chain(5, sparse=False).is_sparse and rlrates.chain(5, sparse=True).is_sparse
+
+
+# --------------------------------------------------------------------------- notes and memory refusals
+
+
+def test_a_family_that_goes_sparse_on_its_own_says_so_in_its_notes() -> None:
+    # ring(20000): a dense P would be 20000 * 3 * 20000 * 8 bytes = 8.94 GiB, over the 1 GiB DENSE_LIMIT_BYTES
+    auto = rlrates.ring(20_000)
+    assert auto.is_sparse
+    (note,) = auto.notes
+    assert "sparse P automatically" in note and "8.94 GiB" in note and "sparse=False" in note
+    assert pickle.loads(pickle.dumps(auto)).notes == auto.notes
+    # asked for (or small enough to stay dense): nothing to say
+    assert rlrates.ring(20_000, sparse=True).notes == ()
+    assert rlrates.ring(20).notes == () and rlrates.garnet(10, 2, 3).notes == ()
+
+
+def test_notes_do_not_change_the_fingerprint_and_must_be_strings() -> None:
+    P, R = _two_state()
+    assert TabularMDP(P, R, notes=("built by hand",)).fingerprint == TabularMDP(P, R).fingerprint
+    assert TabularMDP(P, R, notes=["built by hand"]).notes == ("built by hand",)
+    with pytest.raises(TypeError, match=r"`notes` must be a sequence of strings, got 'built by hand'"):
+        TabularMDP(P, R, notes="built by hand")  # type: ignore[arg-type]
+
+
+@pytest.mark.parametrize("build, expected", [
+    # expected GiB worked out from rlrates.costs' per-entry rules: sparse 100 bytes per stored entry + 128 MiB,
+    # dense 48 bytes per (s, a, s') entry
+    (lambda: rlrates.garnet(20_000, 4, 10, sparse=True), (20_000 * 4 * 10 * 100 + 128 * 2**20) / 2**30),
+    (lambda: rlrates.garnet(2_000, 4, 10, sparse=False), 2_000 * 4 * 2_000 * 48 / 2**30),
+    (lambda: rlrates.chain(1_000_000), (1_000_000 * 2 * 2 * 100 + 128 * 2**20) / 2**30),
+    (lambda: rlrates.ring(2_000, sparse=False), 2_000 * 3 * 2_000 * 48 / 2**30),
+    (lambda: rlrates.gridworld(400, 400, walls=()), None),
+    (lambda: rlrates.deterministic(2_000, 4), 2_000 * 4 * 2_000 * 48 / 2**30),
+    (lambda: rlrates.horizon_hard(2_000), 2_002 * 2_000 * 2_002 * 48 / 2**30),
+], ids=["garnet-sparse", "garnet-dense", "chain-auto-sparse", "ring-dense", "gridworld", "deterministic", "horizon-hard"])
+def test_every_family_refuses_before_allocating_what_the_machine_cannot_hold(monkeypatch, build, expected) -> None:  # type: ignore[no-untyped-def]
+    from rlrates import costs
+
+    monkeypatch.setattr(costs, "machine_memory", lambda: 50 * 2**20)  # a 50 MiB machine
+    with pytest.raises(costs.TooLargeError, match=r"needs about ([0-9.,]+) GiB .*more than the 0.0488 GiB") as raised:
+        build()
+    if expected is not None:
+        found = float(re.search(r"needs about ([0-9.,]+) GiB", str(raised.value)).group(1).replace(",", ""))  # type: ignore[union-attr]
+        assert found == pytest.approx(expected, rel=5e-3)
+    assert isinstance(raised.value, ValueError)
+
+
+def test_a_dense_P_too_large_to_validate_is_refused_before_it_is_copied(monkeypatch) -> None:  # type: ignore[no-untyped-def]
+    from rlrates import costs
+
+    monkeypatch.setattr(costs, "machine_memory", lambda: 2**30)
+    S = 5_000  # a broadcast view of 5000 * 2 * 5000 entries takes no memory; its validated copy would take 400 MB
+    P = np.broadcast_to(np.full(1, 1.0 / S), (S, 2, S))
+    # needs the 400 MB the array claims plus 18 bytes per entry (copy, two masks, fingerprint copy): 1.3e9 bytes, 1.21 GiB
+    with pytest.raises(costs.TooLargeError, match=r"validating `P` needs about 1.21 GiB \(shape \(5000, 2, 5000\)"):
+        TabularMDP(P, np.zeros((S, 2)))

@@ -19,7 +19,8 @@ import pandas as pd
 
 from .figures import FIGURES_SKIPPED, draw_figures, figures_available
 from .figures import figure_width as figure_inches
-from .files import ERRORS_FILE, RECORD_FILE, ReportError, ReportWarning, find_checks, folder_name, text_digest, write_text
+from .files import (ERRORS_FILE, FIGURE_FILES, INDEX_FILES, RECORD_FILE, ReportError, ReportWarning, find_checks, folder_name,
+                    text_digest, write_text)
 from .index import index_entries, index_latex, write_index_files
 from .schema import check_record, default_label, read_record, record_text
 from .table import csv_text, errors_table, read_errors
@@ -99,6 +100,14 @@ def read_check(folder: Path | str) -> SavedCheck:
     return SavedCheck(folder, record, errors)
 
 
+def _refuse_directories(targets: Sequence[Path]) -> None:
+    """A :class:`ReportError` naming the first file to be written that is a directory (nothing is written then)."""
+    for path in targets:
+        if path.is_dir() and not path.is_symlink():
+            raise ReportError(f"{path} is a directory, where the report writes its {path.name}; "
+                              "move it away (rlrates never removes a directory it did not write)")
+
+
 def rebuild(directory: Path | str, *, figure_width: str | float | None = None,
             columns: Sequence[str] | None = None, span: str = "column") -> list[Path]:
     """Redraw every check's figures and the index from the saved CSV and JSON; return the files written.
@@ -115,6 +124,7 @@ def rebuild(directory: Path | str, *, figure_width: str | float | None = None,
     if not folders:
         raise ReportError(f"{root}: no check folders ({RECORD_FILE}) found to rebuild")
     saved = [read_check(folder) for folder in folders]
+    _refuse_directories([root / name for name in INDEX_FILES] + [f / name for f in folders for name in FIGURE_FILES])
     written: list[Path] = []
     if figures_available():
         for check in saved:

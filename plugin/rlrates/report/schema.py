@@ -54,8 +54,9 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from ..result import FIT_KEYS, Fit
-from ..vocabulary import ERROR_COLUMNS, STATUSES, Factor
+from ..vocabulary import ERROR_COLUMNS, FAILURE_KINDS, NORMS, STATUSES, SUBTEST_NAMES, TARGETS, Factor
 from .files import ERRORS_FILE, ReportError, read_text
+from .table import MAX_ERROR
 from .provenance import environment, frame_records, json_safe, package_version, streams
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -63,11 +64,15 @@ if TYPE_CHECKING:  # pragma: no cover
 
     from ..result import CheckResult
 
-__all__ = ["SCHEMA", "CELL_KEYS", "default_label", "record_label", "check_record", "record_text", "read_record",
+__all__ = ["SCHEMA", "CELL_KEYS", "MAX_EXPONENT", "default_label", "record_label", "check_record", "record_text", "read_record",
            "record_fit"]
 
 #: Version tag of ``check.json``; readers refuse other versions.
 SCHEMA = "rlrates-check/3"
+
+#: Largest size of a claimed or fitted exponent a record may hold (a figure draws n^exponent
+#: over the grid, which stays within float64 up to here).
+MAX_EXPONENT = 100.0
 
 _NUMBER = (int, float)
 _OPTIONAL_NUMBER = (int, float, type(None))
@@ -256,17 +261,91 @@ def _check_entries(path: Path, record: Mapping[str, Any]) -> None:
             raise ReportError(f"{path}: slopes[{i}] needs a number gamma and a number (or null) slope")
 
 
+def _no_constant(name: str) -> Any:
+    raise ValueError(f"{name} is not a JSON number (rlrates writes strict JSON: no NaN or Infinity)")
+
+
+def _refuse(path: Path, key: str, value: Any, valid: str) -> None:
+    raise ReportError(f"{path}: {key} is {value!r}; {valid}")
+
+
+def _check_claim(path: Path, record: Mapping[str, Any]) -> None:
+    """The claim as :class:`rlrates.Claim` takes it, with exponents a figure can draw; fits claim the same."""
+    n, horizon = record["claim"]["n"], record["claim"]["horizon"]
+    if n is not None and not -MAX_EXPONENT <= n < 0:
+        _refuse(path, "claim.n", n, f"a claimed n-exponent is a negative number, at least -{MAX_EXPONENT:g}, or null")
+    if horizon is not None and not -MAX_EXPONENT <= horizon <= MAX_EXPONENT:
+        _refuse(path, "claim.horizon", horizon, f"a claimed H-exponent is a number from -{MAX_EXPONENT:g} to "
+                f"{MAX_EXPONENT:g}, or null")
+    if n is None and horizon is None:
+        _refuse(path, "claim", record["claim"], "a claim has an n-exponent, an H-exponent or both")
+    for i, fit in enumerate(record["fits"]):
+        for key in ("exponent", "claimed"):
+            if fit[key] is not None and not -MAX_EXPONENT <= fit[key] <= MAX_EXPONENT:
+                _refuse(path, f"fits[{i}].{key}", fit[key], f"an exponent is a number from -{MAX_EXPONENT:g} to "
+                        f"{MAX_EXPONENT:g}, or null")
+        if fit["claimed"] != record["claim"].get(fit["factor"]):
+            _refuse(path, f"fits[{i}].claimed", fit["claimed"],
+                    f"it must be the claim's {fit['factor']}-exponent, {record['claim'].get(fit['factor'])!r}")
+
+
+def _check_failure(path: Path, failure: Any) -> None:
+    """``failure`` is null or an object naming the cell and the kind of failure."""
+    if failure is None:
+        return
+    valid = ("null, or an object with gamma (in (0, 1)), n (>= 1), replicate (>= 0), "
+             f"kind (one of {', '.join(FAILURE_KINDS)}) and message")
+    if not isinstance(failure, dict):
+        _refuse(path, "failure", failure, valid)
+    checks = (("gamma", lambda v: _has_type(v, _NUMBER) and 0 < v < 1), ("n", lambda v: _has_type(v, int) and v >= 1),
+              ("replicate", lambda v: _has_type(v, int) and v >= 0), ("kind", lambda v: v in FAILURE_KINDS),
+              ("message", lambda v: isinstance(v, str)))
+    for key, valid_value in checks:
+        if key not in failure or not valid_value(failure[key]):
+            _refuse(path, f"failure.{key}", failure.get(key), f"failure must be {valid}")
+
+
+def _check_values(path: Path, record: Mapping[str, Any]) -> None:
+    """Values in range: words from the vocabulary, discounts in (0, 1), n >= 1, means >= 0."""
+    if record["target"] not in TARGETS:
+        _refuse(path, "target", record["target"], f"choose one of {', '.join(TARGETS)}")
+    if record["norm"] not in NORMS:
+        _refuse(path, "norm", record["norm"], f"choose one of {', '.join(NORMS)}")
+    for i, name in enumerate(record["fired"]):
+        if name not in SUBTEST_NAMES:
+            _refuse(path, f"fired[{i}]", name, f"a sub-test is one of {', '.join(SUBTEST_NAMES)}")
+    if record["seed"] < 0:
+        _refuse(path, "seed", record["seed"], "the master seed is an integer >= 0")
+    _check_claim(path, record)
+    _check_failure(path, record.get("failure"))
+    for i, cell in enumerate(record["cells"]):
+        for key, ok, valid in (("gamma", 0 < cell["gamma"] < 1, "a discount lies in (0, 1)"),
+                               ("n", cell["n"] >= 1, "n is a whole number of samples >= 1"),
+                               ("replicates", cell["replicates"] >= 0, "a count of replicates is >= 0"),
+                               ("mean", cell["mean"] is None or 0 <= cell["mean"] <= MAX_ERROR,
+                                f"a mean error is a number from 0 to {MAX_ERROR:g}, or null")):
+            if not ok:
+                _refuse(path, f"cells[{i}].{key}", cell[key], valid)
+    for i, slope in enumerate(record["slopes"]):
+        if not 0 < slope["gamma"] < 1:
+            _refuse(path, f"slopes[{i}].gamma", slope["gamma"], "a discount lies in (0, 1)")
+
+
 def read_record(path: Path) -> dict[str, Any]:
-    """Read and validate one ``check.json``; a :class:`ReportError` names the file and the key at fault."""
+    """Read and validate one ``check.json``; a :class:`ReportError` names the file, the key at fault and
+    what would be valid."""
     text = read_text(path)
     try:
-        record = json.loads(text)
+        record = json.loads(text, parse_constant=_no_constant)
     except json.JSONDecodeError as exc:
         raise ReportError(f"{path}: not valid JSON (line {exc.lineno}, column {exc.colno}: {exc.msg})") from None
+    except (ValueError, RecursionError) as exc:
+        raise ReportError(f"{path}: not valid JSON ({exc if isinstance(exc, ValueError) else 'nested too deeply'})") from None
     if not isinstance(record, dict):
         raise ReportError(f"{path}: expected a JSON object at the top level, found {type(record).__name__}")
     _check_keys(path, record)
     _check_entries(path, record)
+    _check_values(path, record)
     return record
 
 

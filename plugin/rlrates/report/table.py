@@ -17,9 +17,12 @@ import pandas as pd
 from ..vocabulary import ERROR_COLUMNS
 from .files import ReportError, read_text, text_digest
 
-__all__ = ["errors_table", "csv_text", "read_errors"]
+__all__ = ["errors_table", "csv_text", "read_errors", "MAX_ERROR"]
 
 _INTEGER_COLUMNS = ("n", "replicate")
+
+#: Largest error a table may hold: its square (in a variance) stays a finite float64.
+MAX_ERROR = 1e150
 
 
 def errors_table(table: pd.DataFrame) -> pd.DataFrame:
@@ -51,6 +54,7 @@ def read_errors(path: Path, record_path: Path, expected_sha256: str) -> pd.DataF
     table = pd.DataFrame(index=frame.index)
     for column in ERROR_COLUMNS:
         table[column] = _numbers(path, frame, column)
+    _check_ranges(path, frame, table)
     if text_digest(text) != expected_sha256:
         raise ReportError(
             f"{path}: contents differ from the sha256 recorded in {record_path} (edited after the run?); "
@@ -71,3 +75,25 @@ def _numbers(path: Path, frame: pd.DataFrame, column: str) -> pd.Series:
         raise ReportError(f"{path}: line {row + 2}, column {column!r}: {frame[column].iloc[row]!r} is not a finite number"
                           + (" (an integer)" if integer else ""))
     return values.astype(np.int64 if integer else float)
+
+
+def _check_ranges(path: Path, frame: pd.DataFrame, table: pd.DataFrame) -> None:
+    """Every value in its range, and H = 1 / (1 - gamma); a ReportError names the first bad line and what is valid."""
+    gamma = table["gamma"].to_numpy(float)
+    inside = (gamma > 0) & (gamma < 1)
+    horizon = np.divide(1.0, 1.0 - gamma, out=np.full_like(gamma, np.nan), where=inside)
+    rules = (
+        ("gamma", ~inside, "a discount lies in (0, 1)"),
+        ("H", ~(np.abs(table["H"].to_numpy(float) - horizon) <= 1e-9 * horizon),
+         "H is the effective horizon 1 / (1 - gamma) of the row's gamma"),
+        ("n", table["n"].to_numpy() < 1, "n is a whole number of samples >= 1"),
+        ("replicate", table["replicate"].to_numpy() < 0, "a replicate number is >= 0"),
+        ("error", ~((table["error"] >= 0) & (table["error"] <= MAX_ERROR)).to_numpy(),
+         f"an error is a number from 0 to {MAX_ERROR:g}"),
+        ("seconds", table["seconds"].to_numpy(float) < 0, "a time in seconds is >= 0"),
+    )
+    for column, bad, valid in rules:
+        if bad.any():
+            row = int(np.argmax(bad))
+            raise ReportError(f"{path}: line {row + 2}, column {column!r}: {frame[column].iloc[row]!r} is out of range; "
+                              f"{valid}")
