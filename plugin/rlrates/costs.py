@@ -23,14 +23,14 @@ from __future__ import annotations
 
 import os
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from functools import lru_cache
 from pathlib import Path
 from typing import Any, Protocol
 
 __all__ = [
     "TooLargeError", "Cost", "SweepCost", "machine_memory", "gib", "dense_kernel_cost", "sparse_kernel_cost",
-    "require_memory", "sweep_cost", "DENSE_BYTES_PER_ENTRY", "SPARSE_BYTES_PER_ENTRY", "SPARSE_WORKING_BYTES",
+    "require_memory", "sweep_cost", "require_sweep_memory", "DENSE_BYTES_PER_ENTRY", "SPARSE_BYTES_PER_ENTRY", "SPARSE_WORKING_BYTES",
 ]
 
 #: Peak bytes per entry of building and validating a dense (S, A, S) float64 kernel (32 to 41 measured).
@@ -217,3 +217,16 @@ def sweep_cost(mdp: _Model, n_grid: Sequence[int], replicates: int, gammas: Sequ
         solve_bytes=solve,
         workers=max(1, int(workers)),
     )
+
+
+def require_sweep_memory(mdp: _Model, n_grid: Sequence[int], replicates: int, gammas: Sequence[float] | int,
+                         workers: int = 1) -> str:
+    """Refuse (:class:`TooLargeError`) a sweep whose counts cannot fit in memory; return a warning text ("" if none)
+    when only an estimator reading ``batch.next_states`` (built on demand) would not fit."""
+    cost = sweep_cost(mdp, n_grid, replicates, gammas, workers=workers)
+    replace(cost, next_states_bytes=0).refuse_beyond()
+    memory = machine_memory()
+    if memory is not None and cost.peak_bytes > memory:
+        return (f"{cost.describe()}: an estimator that reads batch.next_states would need more than the "
+                f"{gib(memory)} of this machine (batch.counts alone fits)")
+    return ""

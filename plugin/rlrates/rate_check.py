@@ -30,9 +30,10 @@ from .messages import format_message
 from .passes import Passes, ground_truth_unchanged, run_passes
 from .probes import run_probes
 from .budgets import Budget, resolve_budget
+from .costs import require_sweep_memory
 from .regimes import COVERAGE_LEVELS, logged_n_grid, logged_notes, plan_logged, regime_design, validate_data
 from .result import CheckInterrupted, CheckResult, Evidence, MDPDescription, RunInfo
-from .sampling import SupportKernel, mdp_kernel
+from .sampling import SupportKernel, kernels_by_discount
 from .sweep import Estimator, SweepPlan
 from .targets import Truth, solve_truth, validate_norm, validate_target
 from .vocabulary import Status
@@ -247,13 +248,20 @@ def check(
     for gamma in call.design.gammas:
         built = _mdp_for(mdp, gamma)
         truths[gamma] = solve_truth(built, gamma, call.target, _policy_for(policy, built))
-    kernels = _kernels(truths)
+    kernels = kernels_by_discount({g: t.mdp for g, t in truths.items()})
+    first = next(iter(truths.values())).mdp
+    if regime == "generative":  # refuse a sweep whose counts cannot fit in memory, before any is drawn
+        too_big = require_sweep_memory(first, call.design.n_grid, call.design.replicates, call.design.gammas,
+                                       getattr(executor, "_max_workers", 1) or 1)
+        if too_big:
+            warnings.warn(too_big, RatesWarning, stacklevel=2)
     if regime != "generative":
         call, plan, probe_notes = _logged_plan(call, truths, kernels, context, behaviour, episode_length,
                                                n_grid is not None)
     else:
         plan = SweepPlan(call.estimator, truths, kernels, call.seed, context, call.norm, call.time_limit)
         probe_notes = _probe(call, truths, kernels, executor)
+    probe_notes.extend(dict.fromkeys(note for truth in truths.values() for note in truth.mdp.notes))
     if call.target == "q_pi" and policy is None:  # recorded in the notes, so check.json says which policy ran
         probe_notes.append("evaluation policy: random stochastic rows seeded by the MDP's fingerprint "
                            "(rlrates.targets.default_policy)")
@@ -341,15 +349,6 @@ def _probe(call: _Call, truths: dict[float, Truth], kernels: dict[float, Support
     for note in notes:
         warnings.warn(note, RatesWarning, stacklevel=3)
     return notes
-
-
-def _kernels(truths: dict[float, Truth]) -> dict[float, SupportKernel]:
-    """The sampling kernel per discount, built once per distinct MDP (one MDP serves every gamma unless it is a family)."""
-    by_fingerprint: dict[str, SupportKernel] = {}
-    for truth in truths.values():
-        if truth.mdp.fingerprint not in by_fingerprint:
-            by_fingerprint[truth.mdp.fingerprint] = mdp_kernel(truth.mdp)
-    return {gamma: by_fingerprint[truth.mdp.fingerprint] for gamma, truth in truths.items()}
 
 
 def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str, Any]) -> str:

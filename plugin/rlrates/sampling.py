@@ -28,7 +28,8 @@ from numpy.typing import NDArray
 from .mdp import TabularMDP
 from .targets import frozen
 
-__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stream_context", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel", "sparse_support_kernel"]
+__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stream_context", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel", "sparse_support_kernel",
+           "kernels_by_discount"]
 
 IntArray = NDArray[np.int64]
 
@@ -203,6 +204,15 @@ def sparse_support_kernel(flat: Any, states: int, actions: int) -> SupportKernel
     support[row_of, column] = flat.indices
     probs[row_of, column] = flat.data
     return SupportKernel(states, actions, support, _normalised(probs), sparse=True)
+
+
+def kernels_by_discount(mdps: "dict[float, TabularMDP]") -> dict[float, SupportKernel]:
+    """The sampling kernel per discount, built once per distinct MDP (one MDP serves every gamma unless it is a family)."""
+    by_fingerprint: dict[str, SupportKernel] = {}
+    for mdp in mdps.values():
+        if mdp.fingerprint not in by_fingerprint:
+            by_fingerprint[mdp.fingerprint] = mdp_kernel(mdp)
+    return {gamma: by_fingerprint[mdp.fingerprint] for gamma, mdp in mdps.items()}
 
 
 def mdp_kernel(mdp: TabularMDP) -> SupportKernel:

@@ -55,7 +55,7 @@ def test_logged_n_counts_transitions_and_the_default_grid_scales_with_the_pairs(
 
     rlrates.check(spy, garnet, rlrates.Claim(n=-0.5), data="transitions", n_grid=(400, 800, 1600), gammas=(0.5, 0.6),
                   replicates=4)
-    assert set(seen) == {400, 800, 1600}
+    assert {400, 800, 1600} <= set(seen)  # n as given (escalation may add larger n)
 
 
 def test_trajectories_hold_whole_episodes_of_the_stated_length(garnet: rlrates.TabularMDP) -> None:

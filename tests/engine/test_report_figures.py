@@ -275,3 +275,23 @@ def test_y_ticks_thin_out_on_the_short_axes_of_a_column_figure(saved_failing: Pa
             low, high = ax.get_ylim()
             shown = [t for t in ax.get_yticklabels() if t.get_text() and low <= t.get_position()[1] <= high]
             assert 2 <= len(shown) <= most, (width, [t.get_text() for t in shown])
+
+
+def test_a_coverage_check_draws_error_against_c_and_rebuilds_from_its_files(tmp_path) -> None:
+    """errors.csv keeps the behaviour level and C, so the report command redraws the C panel from the files
+    alone (common practice: the figure shows the factor the claim bounds)."""
+    import rlrates
+    from rlrates.reference_logged import logged_plugin_q_pi
+    from rlrates.report.checks import read_check, write_check
+    from rlrates.report.panels import coverage_points
+
+    mdp = rlrates.garnet(states=6, actions=2, branching=2, seed=1)
+    result = rlrates.check(logged_plugin_q_pi, mdp, rlrates.Claim(n=-0.5, coverage=0.5), data="transitions",
+                           n_grid=(480, 960, 1920, 3840), replicates=8)
+    folder = write_check(result, tmp_path, "test_x.py::test_cov", figures=False)
+    saved = read_check(folder)
+    table, record = saved.errors, saved.record
+    assert {"behaviour", "C"} <= set(table.columns) and record["data_regime"] == "transitions"
+    points = coverage_points(table)
+    assert len(points) == 4 and points["C"].is_monotonic_increasing
+    assert (points["n"] == points["n"].iloc[0]).all()

@@ -29,7 +29,7 @@ import pandas as pd
 from .axes import STACK_BELOW, add_legend
 from .figure_data import cell_points
 from .files import FIGURE_FILES, remove_own, write_atomic
-from .panels import Style, panel_horizon, panel_n
+from .panels import Style, panel_coverage, panel_horizon, panel_n
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.figure import Figure
@@ -160,7 +160,9 @@ def build_figure(table: pd.DataFrame, record: Mapping[str, Any], width: str | fl
     from matplotlib.figure import Figure
     from matplotlib.lines import Line2D
 
-    cells = cell_points(table, record)
+    logged = "behaviour" in table.columns
+    cells = cell_points(table[table["behaviour"] == 0] if logged else table, record)
+    coverage = logged and record["claim"].get("coverage") is not None and record["claim"].get("horizon") is None
     gammas = sorted(float(g) for g in cells["gamma"].unique())
     style: Style = {g: (_COLOURS[i % len(_COLOURS)], _MARKERS[i % len(_MARKERS)]) for i, g in enumerate(gammas)}
     with matplotlib.rc_context(_style(matplotlib)):
@@ -169,7 +171,9 @@ def build_figure(table: pd.DataFrame, record: Mapping[str, Any], width: str | fl
         FigureCanvasAgg(figure)
         left, right = figure.subplots(*((1, 2) if size[0] >= STACK_BELOW else (2, 1)))
         discounts = panel_n(left, cells, record, style, ticker, Line2D)
-        lines = discounts[len(style):] + panel_horizon(right, cells, record, style, ticker, Line2D)
+        right_panel = (panel_coverage(right, table, record, ticker, Line2D) if coverage
+                       else panel_horizon(right, cells, record, style, ticker, Line2D))
+        lines = discounts[len(style):] + right_panel
         left.set_ylabel(_y_label(record))
         add_legend(figure, discounts[: len(style)], lines, Line2D([], [], linestyle="none", label=" "))
     return figure

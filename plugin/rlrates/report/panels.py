@@ -8,7 +8,11 @@
 * (b) mean error against H = 1 / (1 - gamma) at the n where the check fitted its
   H-exponent (filled), with a line of that fitted exponent and a dashed line of
   the claimed one; without such an n, at the largest n every discount reached
-  (open), with the least-squares line of the plotted points.
+  (open), with the least-squares line of the plotted points; for a coverage claim
+  without an H-claim (logged data), mean error against the concentrability C of
+  each behaviour at one n, with lines of the fitted and the claimed C-exponents.
+  Panel (a) of a logged check shows behaviour level 0, the behaviour the n-claim
+  is tested on.
 
 Titles give the check's fitted exponents with their bounds and verdicts. Each
 panel function draws on the axes it is given and returns its legend handles.
@@ -32,7 +36,7 @@ from .schema import record_fit
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
 
-__all__ = ["Style", "panel_n", "panel_horizon"]
+__all__ = ["Style", "panel_n", "panel_horizon", "panel_coverage", "coverage_points"]
 
 #: Colour and marker shape per discount.
 Style = dict[float, tuple[str, str]]
@@ -141,7 +145,8 @@ def panel_n(ax: "Axes", cells: pd.DataFrame, record: Mapping[str, Any], style: S
         ax.plot(rows["n"][~fitted], rows["mean"][~fitted], linestyle="none", marker=marker, color=colour,
                 markerfacecolor="white", zorder=3)
     ax.set_title("(a) " + _title(record, "n", "n"), loc="left")
-    ax.set_xlabel("samples per state-action pair, n")
+    logged = record.get("data_regime", "generative") != "generative"
+    ax.set_xlabel("logged transitions, n" if logged else "samples per state-action pair, n")
     if not len(positive):
         empty_panel(ax, _no_data_text(cells))
         return handles
@@ -208,4 +213,52 @@ def panel_horizon(ax: "Axes", cells: pd.DataFrame, record: Mapping[str, Any], st
     if not fitted:
         handles.append(line([], [], **_OPEN_MARKER, label="(b) open: not in an H-fit"))
     finish_log_axes(ax, h, np.concatenate(shown), ticker)
+    return handles
+
+
+def coverage_points(table: pd.DataFrame) -> pd.DataFrame:
+    """Per behaviour level at the largest n where every level has a positive mean error (the first discount):
+    C, replicates, mean and the standard error of the mean."""
+    first = table[table["gamma"] == table["gamma"].min()]
+    grouped = first.groupby(["n", "behaviour"], sort=True)
+    cells = grouped["error"].agg(replicates="count", mean="mean", sd="std").reset_index()
+    cells["C"] = grouped["C"].first().to_numpy()
+    cells["se"] = cells["sd"].fillna(0.0) / np.sqrt(cells["replicates"])
+    levels = cells["behaviour"].nunique()
+    positive = cells[cells["mean"] > 0]
+    reached = positive.groupby("n")["behaviour"].nunique()
+    common = reached[reached == levels].index
+    if not len(common):
+        return cells.iloc[:0]
+    chosen: pd.DataFrame = positive[positive["n"] == common.max()].sort_values("C")
+    return chosen
+
+
+def panel_coverage(ax: "Axes", table: pd.DataFrame, record: Mapping[str, Any], ticker: ModuleType,
+                   line: Any) -> list[Any]:
+    """Panel (b) of a coverage claim: mean error against the concentrability C of each behaviour, at one n."""
+    claim = record["claim"]
+    ax.set_title("(b) " + _title(record, "coverage", "C"), loc="left")
+    ax.set_xlabel("concentrability C of the data")
+    at = coverage_points(table)
+    handles: list[Any] = []
+    if len(at) < 2:
+        empty_panel(ax, "no n with a non-zero error at every behaviour")
+        return handles
+    ax.set_ylabel(f"error at n={int(at['n'].iloc[0])}")
+    c, m = at["C"].to_numpy(float), at["mean"].to_numpy(float)
+    bars = _error_bars(at)
+    ax.errorbar(c, m, yerr=bars, color="#303030", marker="s", linestyle="none", elinewidth=0.7, capsize=0, zorder=3)
+    shown = [m - bars[0], m + bars[1]]
+    fit = record_fit(record, "coverage")
+    if fit is not None and fit.measured:
+        x, y = _through_geometric_mean(c, m, fit.exponent)
+        ax.plot(x, y, **_FIT_LINE)
+        handles.append(line([], [], **_FIT_LINE, label=f"(b) fitted C-exponent {_signed(fit.exponent)}"))
+    if claim.get("coverage") is not None:
+        x, y = _through_geometric_mean(c, m, float(claim["coverage"]))
+        ax.plot(x, y, **_REFERENCE_LINE)
+        shown.append(y)
+        handles.append(line([], [], **_REFERENCE_LINE, label=f"(b) claimed {_power('C', float(claim['coverage']))}"))
+    finish_log_axes(ax, c, np.concatenate(shown), ticker)
     return handles

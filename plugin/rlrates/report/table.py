@@ -1,7 +1,9 @@
 """``errors.csv``: a check's tidy error table, written repr-exact and validated when read back.
 
 One row per (gamma, n, replicate) with the columns
-:data:`rlrates.vocabulary.ERROR_COLUMNS`, sorted by gamma, n and replicate.
+:data:`rlrates.vocabulary.ERROR_COLUMNS`, sorted by gamma, n and replicate; a
+logged-data check adds :data:`rlrates.vocabulary.LOGGED_COLUMNS` (the behaviour
+level and its concentrability C) and sorts by gamma, behaviour, n and replicate.
 Floats are written with 17 significant digits, so reading the file back gives
 the very same numbers. Pure: no pytest import.
 """
@@ -10,16 +12,17 @@ from __future__ import annotations
 
 import io
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from ..vocabulary import ERROR_COLUMNS
+from ..vocabulary import ERROR_COLUMNS, LOGGED_COLUMNS
 from .files import ReportError, read_text, text_digest
 
 __all__ = ["errors_table", "csv_text", "read_errors", "MAX_ERROR"]
 
-_INTEGER_COLUMNS = ("n", "replicate")
+_INTEGER_COLUMNS = ("n", "replicate", "behaviour")
 
 #: Largest error a table may hold: its square (in a variance) stays a finite float64.
 MAX_ERROR = 1e150
@@ -30,6 +33,9 @@ def errors_table(table: pd.DataFrame) -> pd.DataFrame:
     missing = [c for c in ERROR_COLUMNS if c not in table.columns]
     if missing:
         raise ValueError(f"the check's table lacks column(s) {', '.join(missing)}; expected {', '.join(ERROR_COLUMNS)}")
+    if all(c in table.columns for c in LOGGED_COLUMNS):
+        columns = [*ERROR_COLUMNS, *LOGGED_COLUMNS]
+        return table.loc[:, columns].sort_values(["gamma", "behaviour", "n", "replicate"], ignore_index=True)
     return table.loc[:, list(ERROR_COLUMNS)].sort_values(["gamma", "n", "replicate"], ignore_index=True)
 
 
@@ -51,8 +57,12 @@ def read_errors(path: Path, record_path: Path, expected_sha256: str) -> pd.DataF
             f"{path}: missing column(s) {', '.join(missing)}; expected {', '.join(ERROR_COLUMNS)}, "
             f"found {', '.join(map(str, frame.columns)) or 'none'}"
         )
+    logged = [c for c in LOGGED_COLUMNS if c in frame.columns]
+    if logged and len(logged) != len(LOGGED_COLUMNS):
+        raise ReportError(f"{path}: a logged-data table has both columns {' and '.join(LOGGED_COLUMNS)}, found only "
+                          f"{logged[0]!r}")
     table = pd.DataFrame(index=frame.index)
-    for column in ERROR_COLUMNS:
+    for column in (*ERROR_COLUMNS, *logged):
         table[column] = _numbers(path, frame, column)
     _check_ranges(path, frame, table)
     if text_digest(text) != expected_sha256:
@@ -82,7 +92,7 @@ def _check_ranges(path: Path, frame: pd.DataFrame, table: pd.DataFrame) -> None:
     gamma = table["gamma"].to_numpy(float)
     inside = (gamma > 0) & (gamma < 1)
     horizon = np.divide(1.0, 1.0 - gamma, out=np.full_like(gamma, np.nan), where=inside)
-    rules = (
+    rules: list[tuple[str, Any, str]] = [
         ("gamma", ~inside, "a discount lies in (0, 1)"),
         ("H", ~(np.abs(table["H"].to_numpy(float) - horizon) <= 1e-9 * horizon),
          "H is the effective horizon 1 / (1 - gamma) of the row's gamma"),
@@ -91,7 +101,12 @@ def _check_ranges(path: Path, frame: pd.DataFrame, table: pd.DataFrame) -> None:
         ("error", ~((table["error"] >= 0) & (table["error"] <= MAX_ERROR)).to_numpy(),
          f"an error is a number from 0 to {MAX_ERROR:g}"),
         ("seconds", table["seconds"].to_numpy(float) < 0, "a time in seconds is >= 0"),
-    )
+    ]
+    if "behaviour" in table.columns:
+        rules += [
+            ("behaviour", table["behaviour"].to_numpy() < 0, "a behaviour level is >= 0"),
+            ("C", ~(table["C"].to_numpy(float) >= 1.0 - 1e-9), "a concentrability coefficient is >= 1"),
+        ]
     for column, bad, valid in rules:
         if bad.any():
             row = int(np.argmax(bad))
