@@ -163,10 +163,8 @@ def plugin_own(mdp: rlrates.TabularMDP, seed: int) -> tuple[float, int, rlrates.
     return (result.run.elapsed - result.run.estimator_seconds) / result.run.passes, result.run.passes, result
 
 
-def row(label: str, mdp: rlrates.TabularMDP, repeats: int, warm_up: bool = True) -> tuple[str, rlrates.CheckResult]:
-    """The table row of one MDP, and the last check's result."""
-    if warm_up:
-        plugin_own(mdp, 999)  # warm-up: imports, caches
+def row(label: str, mdp: rlrates.TabularMDP, repeats: int) -> str:
+    plugin_own(mdp, 999)  # warm-up: imports, caches
     ours = [plugin_own(mdp, seed) for seed in range(repeats)]
     own = min(o for o, _, _ in ours)
     passes = max(p for _, p, _ in ours)
@@ -175,7 +173,7 @@ def row(label: str, mdp: rlrates.TabularMDP, repeats: int, warm_up: bool = True)
     bottom = min(floor(mdp, seed) for seed in range(repeats))
     mark = "" if passes == 1 else f"  (up to {passes} passes, per pass)"
     return (f"{label:<26s}{own * 1e3:12.1f}{loop_own * 1e3:15.1f}{bottom * 1e3:11.1f}"
-            f"{own / loop_own:14.2f}{own / bottom:15.2f}{mark}"), ours[-1][2]
+            f"{own / loop_own:14.2f}{own / bottom:15.2f}{mark}")
 
 
 def _peak_resident_mb() -> float:
@@ -184,14 +182,24 @@ def _peak_resident_mb() -> float:
 
 
 def sparse_grid(side: int = 100) -> list[str]:
-    """The 10^4-state sparse gridworld: its table row (run once) and the check's time and peak memory."""
+    """The 10^4-state sparse gridworld: its table row (run once) and the check's time and peak memory.
+
+    The check runs first, so the peak resident size read right after it is the check's (and the
+    imports'), not the hand loop's; run this before any larger row (``main`` does).
+    """
     mdp = rlrates.gridworld(side, side, walls=(), sparse=True)
-    line, result = row(f"gridworld({side}, {side}) sparse", mdp, repeats=1, warm_up=False)
+    own, passes, result = plugin_own(mdp, 0)
+    peak = _peak_resident_mb()
+    loop_total, loop_inside = hand_loop(mdp, reference.plugin_q_pi, 0)
+    bottom = floor(mdp, 0)
+    loop_own = loop_total - loop_inside
     run = result.run
-    return [line, f"  {mdp.states} states, {mdp.P.nnz} nonzeros (dense P would be "
-                  f"{8 * mdp.states * mdp.actions * mdp.states / 1e9:.1f} GB): check {run.elapsed:.1f} s wall "
-                  f"({run.estimator_seconds:.1f} s in {len(result.table)} estimator calls), {run.passes} pass(es), "
-                  f"status {result.status}; peak resident size of this process {_peak_resident_mb():.0f} MB"]
+    return [f"{f'gridworld({side}, {side}) sparse':<26s}{own * 1e3:12.1f}{loop_own * 1e3:15.1f}{bottom * 1e3:11.1f}"
+            f"{own / loop_own:14.2f}{own / bottom:15.2f}  (run once)",
+            f"  {mdp.states} states, {mdp.P.nnz} nonzeros (dense P would be "
+            f"{8 * mdp.states * mdp.actions * mdp.states / 1e9:.1f} GB): check {run.elapsed:.1f} s wall "
+            f"({run.estimator_seconds:.1f} s in {len(result.table)} estimator calls), {passes} pass(es), "
+            f"status {result.status}; peak resident size after the check {peak:.0f} MB (whole process)"]
 
 
 def _import_rlrates() -> None:
@@ -199,32 +207,46 @@ def _import_rlrates() -> None:
     import rlrates.sweep  # noqa: F401
 
 
+def _timed(executor: Any, mdp: rlrates.TabularMDP) -> tuple[float, rlrates.CheckResult]:
+    started = time.perf_counter()
+    result = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, budget="appendix", seed=0, executor=executor)
+    return time.perf_counter() - started, result
+
+
 def dask_cluster(states: int = 400, workers: int = 2) -> list[str]:
-    """Serial against a warm dask LocalCluster, on one appendix-budget check; identical tables asserted."""
+    """Serial, a warm process pool and a warm dask LocalCluster on one appendix-budget check; tables identical.
+
+    dask's nanny sets ``MALLOC_TRIM_THRESHOLD_`` in its workers by default, which made the
+    plug-in estimator (many short-lived arrays of a few MB) 1.5x slower even serially; the
+    cluster here unsets it (``distributed.nanny.pre-spawn-environ``), as the docs advise.
+    """
     try:
+        import dask
         from dask.distributed import Client, LocalCluster
     except ImportError:
         return ["dask.distributed not installed: no cluster speed-up measured (pip install 'pytest-rlrates[cluster]')"]
     import logging
+    from concurrent.futures import ProcessPoolExecutor
 
     import pandas as pd
 
     mdp = rlrates.garnet(states=states, actions=4, branching=10, seed=0)
+    serial_wall, serial = _timed(None, mdp)
+    with ProcessPoolExecutor(max_workers=workers, initializer=_import_rlrates) as pool:
+        list(pool.map(time.sleep, [0.5] * workers))  # every worker started, imports done
+        pool_wall, pooled = _timed(pool, mdp)
     started = time.perf_counter()
-    serial = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, budget="appendix", seed=0)
-    serial_wall = time.perf_counter() - started
-    started = time.perf_counter()
-    with LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None,
-                      silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
+    with dask.config.set({"distributed.nanny.pre-spawn-environ.MALLOC_TRIM_THRESHOLD_": None}), \
+            LocalCluster(n_workers=workers, threads_per_worker=1, processes=True, dashboard_address=None,
+                         silence_logs=logging.ERROR) as cluster, Client(cluster) as client:
         client.run(_import_rlrates)
         start_up = time.perf_counter() - started
-        started = time.perf_counter()
-        on_cluster = rlrates.check(reference.plugin_q_pi, mdp, CLAIM, budget="appendix", seed=0,
-                                   executor=client.get_executor())
-        cluster_wall = time.perf_counter() - started
-    pd.testing.assert_frame_equal(serial.table.drop(columns=["seconds"]), on_cluster.table.drop(columns=["seconds"]),
-                                  check_exact=True)
-    return [f"appendix-budget check, garnet({states}, 4, 10), {len(serial.table)} calls: serial {serial_wall:.2f} s, "
+        cluster_wall, on_cluster = _timed(client.get_executor(), mdp)
+    for other in (pooled, on_cluster):
+        pd.testing.assert_frame_equal(serial.table.drop(columns=["seconds"]), other.table.drop(columns=["seconds"]),
+                                      check_exact=True)
+    return [f"appendix-budget check, garnet({states}, 4, 10), {len(serial.table)} calls: serial {serial_wall:.2f} s; "
+            f"warm ProcessPoolExecutor({workers}) {pool_wall:.2f} s ({serial_wall / pool_wall:.2f}x); "
             f"dask LocalCluster({workers} workers) {cluster_wall:.2f} s (+ {start_up:.2f} s start-up): "
             f"speed-up {serial_wall / cluster_wall:.2f}x; tables identical"]
 
@@ -232,8 +254,12 @@ def dask_cluster(states: int = 400, workers: int = 2) -> list[str]:
 def main(argv: list[str] | None = None) -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--repeats", type=int, default=3, help="best of this many runs (default 3)")
-    parser.add_argument("--large", action="store_true", help="also S = 1000, b = 5")
+    parser.add_argument("--large", action="store_true",
+                        help="also S = 1000 (b = 5), the 10^4-state sparse gridworld and a dask local cluster")
+    parser.add_argument("--scale-only", action="store_true",
+                        help="only what --large adds at scale: the sparse gridworld and the dask cluster")
     args = parser.parse_args(argv)
+    scale = sparse_grid() if args.large or args.scale_only else []  # first: its peak memory is then its own
     cases = [("garnet(20, 4, 5)", rlrates.garnet(20, 4, 5, seed=0)),
              ("garnet(100, 4, 5)", rlrates.garnet(100, 4, 5, seed=0)),
              ("garnet(100, 4, 100) dense", rlrates.garnet(100, 4, 100, seed=0))]
@@ -242,10 +268,10 @@ def main(argv: list[str] | None = None) -> None:
     print("ci-budget first pass, reference.plugin_q_pi: own work (wall minus estimator), best of "
           f"{args.repeats}")
     print(f"{'MDP':<26s}{'plugin ms':>12s}{'hand loop ms':>15s}{'floor ms':>11s}{'plugin/loop':>14s}{'plugin/floor':>15s}")
-    for label, mdp in cases:
-        print(row(label, mdp, args.repeats)[0], flush=True)
-    if args.large:
-        for line in sparse_grid() + dask_cluster():
+    for label, mdp in ([] if args.scale_only else cases):
+        print(row(label, mdp, args.repeats), flush=True)
+    if scale:
+        for line in scale + dask_cluster():
             print(line, flush=True)
     print(f"cores: {os.cpu_count()}, load average at the end: {', '.join(f'{x:.1f}' for x in os.getloadavg())}")
 
