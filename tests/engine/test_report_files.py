@@ -401,3 +401,19 @@ def test_third_sees_no_figure_yet():'''))
                                  "*rate checks (rlrates), budget ci*"])
     (folder,) = [p.parent for p in (pytester.path / "out").glob("*/check.json")]
     assert sorted(p.name for p in folder.iterdir()) == [".rlrates-files", "check.json", "errors.csv"]
+
+
+def test_an_interrupted_session_leaves_its_figures_to_the_report_command(pytester: pytest.Pytester) -> None:
+    """Ctrl-C ends the session without half a minute of drawing; the summary says how to draw them later."""
+    pytester.makepyfile(test_inner=LATE_FIGURES.replace("def test_second_sees_no_figure_yet():",
+                                                        "def test_second_is_interrupted():\n    raise KeyboardInterrupt\n\n\n"
+                                                        "def test_third_sees_no_figure_yet():"))
+    result = pytester.runpytest_subprocess("--rlrates-report=out", "-p", "no:cacheprovider")
+    assert result.ret == pytest.ExitCode.INTERRUPTED
+    result.stdout.fnmatch_lines(["rlrates report: figures not drawn (the session was interrupted); "
+                                 "draw them with python -m rlrates report *out"])
+    (folder,) = [p.parent for p in (pytester.path / "out").glob("*/check.json")]
+    assert not (folder / "figure.png").exists()
+    subprocess.run([sys.executable, "-m", "rlrates", "report", str(pytester.path / "out")], check=True,
+                   capture_output=True)
+    assert (folder / "figure.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -192,10 +192,13 @@ class RatesSession:
             lines.append(f"rlrates report: {FIGURES_SKIPPED}")
         return lines
 
-    def close(self) -> None:
+    def _stop_pool(self) -> None:
         if self._executor is not None:
             self._executor.shutdown(wait=True, cancel_futures=True)
             self._executor = None
+
+    def close(self) -> None:
+        self._stop_pool()
         if self._lock is not None:
             self._lock.release()
             self._lock = None
@@ -214,6 +217,7 @@ class RatesSession:
         if exitstatus == pytest.ExitCode.INTERRUPTED:
             self._interrupted = True
             return
+        self._stop_pool()  # no check runs any more; its threads gone, the figure pool can fork
         self.draw_figures()
 
     def pytest_runtest_logreport(self, report: pytest.TestReport) -> None:
