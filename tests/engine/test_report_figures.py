@@ -365,3 +365,20 @@ def test_a_pool_worker_that_dies_loses_no_figure(tables_without_figures: list[Pa
     outcomes = figure_pool.draw_saved(tables_without_figures, processes=2)
     assert all(o.drawn for o in outcomes)
     assert all((folder / "figure.png").is_file() for folder in tables_without_figures)
+
+
+def test_workers_started_afresh_draw_the_same_bytes_with_the_users_style(tables_without_figures: list[Path],
+                                                                        tmp_path: Path,
+                                                                        monkeypatch: pytest.MonkeyPatch) -> None:
+    """A process running threads does not fork: spawned workers get the parent's style and draw what it draws."""
+    import multiprocessing
+
+    import matplotlib
+
+    copy = Path(shutil.copytree(tables_without_figures[0].parent, tmp_path / "copy"))
+    monkeypatch.setitem(matplotlib.rcParams, "font.size", 6.5)  # a user's style, set after the import
+    monkeypatch.setattr(figure_pool, "_context", lambda: multiprocessing.get_context("spawn"))
+    outcomes = figure_pool.draw_saved(tables_without_figures, processes=2)
+    assert all(o.drawn for o in outcomes)
+    figure_pool.draw_saved([copy / f.name for f in tables_without_figures], processes=1)  # here, with the same style
+    assert _figure_bytes(tables_without_figures) == _figure_bytes([copy / f.name for f in tables_without_figures])

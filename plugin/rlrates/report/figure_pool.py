@@ -92,13 +92,19 @@ def _style_params(context: Any) -> dict[str, Any]:
 
 
 def _context() -> Any:
-    """Fork when it is safe (one thread: the children start with matplotlib already imported), else the default."""
+    """Fork when it is safe (one thread: the children start with matplotlib already imported), else a fresh start.
+
+    Forking a process that runs threads can deadlock a child (and Python 3.12 warns about
+    it), so then the workers start afresh (forkserver, else spawn) and get the style by
+    their initializer.
+    """
     import multiprocessing
     import threading
 
-    if "fork" in multiprocessing.get_all_start_methods() and threading.active_count() == 1:
+    methods = multiprocessing.get_all_start_methods()
+    if "fork" in methods and threading.active_count() == 1:
         return multiprocessing.get_context("fork")
-    return multiprocessing.get_context()
+    return multiprocessing.get_context("forkserver" if "forkserver" in methods else "spawn")
 
 
 def draw_saved(folders: Iterable[Path | str], width: str | float | None = None, *,
