@@ -2,11 +2,16 @@
 
 The file extension picks the format (case-insensitive); anything else is refused.
 
-``.npz`` (written by :func:`save_mdp` with ``numpy.savez``, read with ``allow_pickle=False``)
+``.npz`` (written by :func:`save_mdp` with ``numpy.savez``, read with ``allow_pickle=False``;
+see :mod:`rlrates.npz_archive`)
     Three arrays: ``P`` (S, A, S) float, ``R`` (S, A) float, and ``info``, a 0-d
     unicode array holding the JSON text ``{"format": "rlrates-mdp", "version": 1,
-    "name": ..., "metadata": {...}}``. The arrays are stored bit for bit, so a
-    round trip keeps the fingerprint.
+    "name": ..., "metadata": {...}}``. A sparse MDP (``mdp.is_sparse``) is stored
+    without densifying: ``P`` is replaced by the CSR parts of its (S*A, S) rows,
+    ``P_data`` (float), ``P_indices`` and ``P_indptr`` (integers; ``P_indptr`` has
+    S*A + 1 entries for the S and A of ``R``), and ``info`` says ``"storage": "csr"``.
+    The arrays are stored bit for bit, so a round trip keeps the fingerprint, and a
+    sparse file loads as a sparse MDP.
 
 ``.json`` (easy to write by hand)
     One object with these keys::
@@ -23,16 +28,20 @@ The file extension picks the format (case-insensitive); anything else is refused
 
     Exactly one of ``"P"`` and ``"transitions"`` is given. ``R`` fixes S and A,
     so the sparse form needs no sizes. Each (s, a, s_next) may be listed once in
-    ``"transitions"``. ``"format"`` and ``"version"`` are accepted and checked
+    ``"transitions"``. ``"storage": "csr"`` (with ``"transitions"``) loads the MDP
+    sparse, never building the (S, A, S) array; without it (or with ``"dense"``)
+    it loads dense. ``"format"`` and ``"version"`` are accepted and checked
     when present; other keys are refused, which catches misspelt ones.
     :func:`save_mdp` writes the sparse form when fewer than half the entries of
-    ``P`` are non-zero, and the dense form otherwise. Python's JSON writes floats
+    ``P`` are non-zero, and the dense form otherwise; a sparse MDP always gets
+    ``"transitions"`` and ``"storage": "csr"``. Python's JSON writes floats
     with ``repr``, which reads back to the same double, so the fingerprint survives.
 
 Size limits: an MDP file may describe at most :data:`MAX_ENTRIES` entries of
-``P`` (S * A * S; 10**8, 800 MB as float64). The declared shapes of an ``.npz``
-are read from the archive's array headers, and the S and A of a ``.json`` from
-its ``R``, before anything large is allocated; a file over the limit is refused
+``P`` (S * A * S; 10**8, 800 MB as float64); for a sparse file the limit is on
+each stored array (the probabilities stored, and S * A). The declared shapes of an
+``.npz`` are read from the archive's array headers, and the S and A of a ``.json``
+from its ``R``, before anything large is allocated; a file over the limit is refused
 naming the file and the size. JSON nesting deeper than Python's parser allows and
 numbers beyond float64 are refused the same way.
 
@@ -46,20 +55,16 @@ from __future__ import annotations
 
 import json
 import os
-import zipfile
 from pathlib import Path
 from typing import Any
 
 import numpy as np
-from numpy.lib.npyio import NpzFile
 from numpy.typing import NDArray
 
 from .mdp import TabularMDP
+from .npz_archive import MAX_ENTRIES, read_npz, storage_of, too_large, write_npz
 
 __all__ = ["save_mdp", "load_mdp", "FORMAT", "VERSION", "MAX_ENTRIES"]
-
-#: The largest number of array entries (S * A * S for P) an MDP file may describe: 10**8, 800 MB as float64.
-MAX_ENTRIES = 10**8
 
 #: The ``"format"`` tag written into every file.
 FORMAT = "rlrates-mdp"
@@ -67,8 +72,7 @@ FORMAT = "rlrates-mdp"
 VERSION = 1
 
 _EXTENSIONS = (".npz", ".json")
-_JSON_KEYS = {"format", "version", "name", "metadata", "P", "transitions", "R"}
-_NPZ_KEYS = {"P", "R", "info"}
+_JSON_KEYS = {"format", "version", "name", "metadata", "storage", "P", "transitions", "R"}
 
 
 def _format_of(path: Path) -> str:
@@ -106,29 +110,41 @@ def save_mdp(mdp: TabularMDP, path: str | os.PathLike[str]) -> Path:
         raise TypeError(f"`mdp` must be a TabularMDP, got {type(mdp).__name__}")
     target = Path(path)
     kind = _format_of(target)
-    if mdp.is_sparse:
-        raise ValueError(
-            f"{target}: MDP {mdp.name!r} is sparse, and save_mdp writes dense MDPs only for now; "
-            "save its parts with scipy.sparse.save_npz(path, mdp.P) and numpy.save(path, mdp.R)"
-        )
     header = _header(mdp, target)
     if kind == ".npz":
-        info = np.array(json.dumps(header, default=_to_json_data), dtype=np.str_)
-        with open(target, "wb") as handle:  # an open file: numpy must not append a second suffix
-            np.savez(handle, P=np.asarray(mdp.P), R=np.asarray(mdp.R), info=info)
+        write_npz(mdp, header, target, _to_json_data)
         return target
     document: dict[str, Any] = dict(header)
-    P = mdp.P
-    if np.count_nonzero(P) < P.size / 2:
+    if mdp.is_sparse:
+        document["storage"] = "csr"
+        document["transitions"] = _sparse_entries(mdp)
+    elif np.count_nonzero(mdp.P) < mdp.P.size / 2:
+        P = mdp.P
         s, a, t = np.nonzero(P)
-        document["transitions"] = [
-            [int(i), int(j), int(k), float(P[i, j, k])] for i, j, k in zip(s, a, t)
-        ]
+        document["transitions"] = [[i, j, k, p] for i, j, k, p in zip(s.tolist(), a.tolist(), t.tolist(), P[s, a, t].tolist())]
     else:
-        document["P"] = P.tolist()
+        document["P"] = mdp.P.tolist()
     document["R"] = mdp.R.tolist()
-    target.write_text(json.dumps(document, default=_to_json_data, indent=1) + "\n", encoding="utf-8")
+    target.write_text(_json_text(document), encoding="utf-8")
     return target
+
+
+def _json_text(document: dict[str, Any]) -> str:
+    """The document with one key a line, and the rows of ``P``, ``"transitions"`` and ``R`` one a line."""
+    def value(key: str, item: Any) -> str:
+        if key in ("P", "transitions", "R") and item:
+            return "[\n  " + ",\n  ".join(json.dumps(row) for row in item) + "\n ]"
+        return json.dumps(item, default=_to_json_data)
+
+    return "{\n" + ",\n".join(f" {json.dumps(key)}: {value(key, item)}" for key, item in document.items()) + "\n}\n"
+
+
+def _sparse_entries(mdp: TabularMDP) -> list[list[Any]]:
+    """The [s, a, s_next, prob] entries of a sparse MDP, read off its CSR rows (row s * A + a)."""
+    rows = mdp.P
+    row = np.repeat(np.arange(rows.shape[0]), np.diff(rows.indptr))
+    return [[int(r // mdp.actions), int(r % mdp.actions), t, p]
+            for r, t, p in zip(row.tolist(), rows.indices.tolist(), rows.data.tolist())]
 
 
 def load_mdp(path: str | os.PathLike[str]) -> TabularMDP:
@@ -138,7 +154,8 @@ def load_mdp(path: str | os.PathLike[str]) -> TabularMDP:
     if not source.is_file():
         raise ValueError(f"{source}: no such file")
     if kind == ".npz":
-        P, R, header = _read_npz(source)
+        P, R, raw = read_npz(source)
+        header = _check_header(raw, source, "`info`")
     else:
         P, R, header = _read_json(source)
     try:
@@ -167,81 +184,6 @@ def _check_header(header: object, source: Path, where: str) -> dict[str, Any]:
     return {"name": name, "metadata": metadata}
 
 
-def _too_large(source: Path, what: str, shape: tuple[int, ...]) -> ValueError:
-    entries = int(np.prod(shape, dtype=object))
-    return ValueError(
-        f"{source}: {what} has shape {shape}, {entries:,} entries ({entries * 8 / 2**30:.3g} GiB as float64), more "
-        f"than the {MAX_ENTRIES:,} entries an MDP file may hold; nothing was loaded"
-    )
-
-
-def _check_archive(source: Path) -> None:
-    """Refuse a file that is not a zip archive, and arrays whose declared size is over the limit, before loading."""
-    with source.open("rb") as stream:
-        if stream.read(6) == b"\x93NUMPY":
-            raise ValueError(f"{source}: not an .npz archive (it holds a single .npy array)")
-    if not zipfile.is_zipfile(source):
-        raise ValueError(f"{source}: not an .npz archive (a zip file of P.npy, R.npy and info.npy); was it saved "
-                         "with rlrates.save_mdp?")
-    from numpy.lib import format as npy
-
-    readers = {(1, 0): npy.read_array_header_1_0, (2, 0): npy.read_array_header_2_0}
-    try:
-        with zipfile.ZipFile(source) as archive:
-            for member in archive.infolist():
-                with archive.open(member) as stream:
-                    version = npy.read_magic(stream)
-                    if version not in readers:
-                        raise ValueError(f"{source}: array {member.filename} has .npy format version {version}, "
-                                         "which rlrates does not read")
-                    shape, _, _ = readers[version](stream)
-                if int(np.prod(shape, dtype=object)) > MAX_ENTRIES:
-                    raise _too_large(source, f"array {member.filename}", tuple(shape))
-    except (OSError, zipfile.BadZipFile, EOFError) as exc:
-        raise ValueError(f"{source}: not a readable .npz archive: {type(exc).__name__}: {exc}") from None
-    except ValueError as exc:
-        if str(exc).startswith(str(source)):
-            raise
-        raise ValueError(f"{source}: an array header in the archive cannot be read: {exc}") from None
-
-
-def _read_npz(source: Path) -> tuple[NDArray[Any], NDArray[Any], dict[str, Any]]:
-    _check_archive(source)
-    try:
-        loaded = np.load(source, allow_pickle=False)
-        if not isinstance(loaded, NpzFile):
-            raise ValueError(f"{source}: not an .npz archive (it holds a single .npy array)")
-        with loaded as archive:
-            missing = sorted(_NPZ_KEYS - set(archive.files))
-            if missing:
-                raise ValueError(
-                    f"{source}: missing array(s) {', '.join(missing)}; an MDP .npz holds P, R and info "
-                    f"(found: {', '.join(sorted(archive.files)) or 'nothing'})"
-                )
-            arrays = {key: archive[key] for key in _NPZ_KEYS}
-    except ValueError as exc:
-        if str(exc).startswith(str(source)):
-            raise
-        # numpy says "Object arrays cannot be loaded when allow_pickle=False" and the like
-        raise ValueError(f"{source}: cannot read the .npz archive: {exc}") from None
-    except (OSError, zipfile.BadZipFile, EOFError) as exc:
-        raise ValueError(f"{source}: not a readable .npz archive: {type(exc).__name__}: {exc}") from None
-    info = arrays["info"]
-    if info.ndim != 0 or info.dtype.kind != "U":
-        raise ValueError(
-            f"{source}: `info` must be a 0-d unicode array holding JSON text, got dtype {info.dtype} "
-            f"and shape {info.shape}"
-        )
-    try:
-        header = json.loads(str(info))
-    except json.JSONDecodeError as exc:
-        raise ValueError(f"{source}: `info` is not valid JSON: {exc}") from None
-    for key in ("P", "R"):
-        if arrays[key].dtype.kind not in "iuf":
-            raise ValueError(f"{source}: array `{key}` must hold real numbers, got dtype {arrays[key].dtype}")
-    return arrays["P"], arrays["R"], _check_header(header, source, "`info`")
-
-
 def _read_json(source: Path) -> tuple[NDArray[Any], NDArray[Any], dict[str, Any]]:
     try:
         document = json.loads(source.read_text(encoding="utf-8"))
@@ -263,8 +205,11 @@ def _read_json(source: Path) -> tuple[NDArray[Any], NDArray[Any], dict[str, Any]
     if "R" not in document:
         raise ValueError(f"{source}: missing key 'R' (the (S, A) rewards, a list of S lists of A numbers)")
     R = _numeric(document["R"], source, "R", 2, "a list of S lists of A numbers")
-    if R.shape[0] * R.shape[1] * R.shape[0] > MAX_ENTRIES:
-        raise _too_large(source, "the P that 'R' implies", (R.shape[0], R.shape[1], R.shape[0]))
+    csr = storage_of(document, source) == "csr"
+    if not csr and R.shape[0] * R.shape[1] * R.shape[0] > MAX_ENTRIES:
+        implied = too_large(source, "the P that 'R' implies", (R.shape[0], R.shape[1], R.shape[0]))
+        raise ValueError(f"{implied} (with 'transitions' and \"storage\": \"csr\" a file loads sparse, and only "
+                         "the entries it lists count)")
     has_dense, has_sparse = "P" in document, "transitions" in document
     if has_dense == has_sparse:
         problem = "both" if has_dense else "neither"
@@ -273,9 +218,18 @@ def _read_json(source: Path) -> tuple[NDArray[Any], NDArray[Any], dict[str, Any]
             f"'transitions' (sparse [s, a, s_next, prob] entries); found {problem}"
         )
     if has_dense:
-        P = _numeric(document["P"], source, "P", 3, "nested lists [S][A][S]")
-    else:
-        P = _sparse_transitions(document["transitions"], R.shape, source)
+        if csr:
+            raise ValueError(f"{source}: \"storage\": \"csr\" needs 'transitions' ([s, a, s_next, prob] entries), "
+                             "not a dense 'P'")
+        return _numeric(document["P"], source, "P", 3, "nested lists [S][A][S]"), R, header
+    (s, a, t), probs = _transition_entries(document["transitions"], R.shape, source)
+    if csr:
+        from scipy import sparse
+
+        rows = (s * R.shape[1] + a, t)
+        return sparse.csr_array((probs, rows), shape=(R.shape[0] * R.shape[1], R.shape[0])), R, header
+    P = np.zeros((R.shape[0], R.shape[1], R.shape[0]))
+    P[s, a, t] = probs
     return P, R, header
 
 
@@ -303,35 +257,77 @@ def _holds_bool(value: object) -> bool:
     return False
 
 
-def _sparse_transitions(entries: object, shape: tuple[int, ...], source: Path) -> NDArray[np.float64]:
+def _transition_entries(entries: object, shape: tuple[int, ...],
+                        source: Path) -> tuple[tuple[NDArray[np.int64], ...], NDArray[np.float64]]:
+    """The (s, a, s_next) indices and the probabilities of a 'transitions' list, each entry checked and named."""
     states, actions = shape
     if not isinstance(entries, list):
         raise ValueError(f"{source}: 'transitions' must be a list of [s, a, s_next, prob] entries, got {type(entries).__name__}")
-    P = np.zeros((states, actions, states))
+    if len(entries) > MAX_ENTRIES:
+        raise too_large(source, "'transitions'", (len(entries),))
+    fast = _checked_entries(entries, shape)
+    if fast is not None:
+        return fast
     seen: dict[tuple[int, int, int], int] = {}
+    probs: list[float] = []
     for index, entry in enumerate(entries):
-        where = f"'transitions' entry {index} ({json.dumps(entry)})"
         if not isinstance(entry, list) or len(entry) != 4:
-            raise ValueError(f"{source}: {where} must be a list [s, a, s_next, prob]")
-        *ids, prob = entry
-        for label, value, bound in zip(("s", "a", "s_next"), ids, (states, actions, states)):
-            if isinstance(value, bool) or not isinstance(value, int):
-                raise ValueError(f"{source}: {where}: `{label}` must be an integer, got {value!r}")
-            if not 0 <= value < bound:
-                raise ValueError(
-                    f"{source}: {where}: `{label}` = {value} is out of range 0..{bound - 1} "
-                    f"(R has shape ({states}, {actions}))"
-                )
-        if isinstance(prob, bool) or not isinstance(prob, (int, float)):
-            raise ValueError(f"{source}: {where}: `prob` must be a number, got {prob!r}")
-        key = (ids[0], ids[1], ids[2])
+            raise ValueError(f"{source}: {_entry(index, entry)} must be a list [s, a, s_next, prob]")
+        s, a, t, prob = entry
+        key = (s, a, t)
+        if not all(type(value) is int and 0 <= value < bound for value, bound in zip(key, (states, actions, states))):
+            _refuse_ids(key, (states, actions), source, _entry(index, entry))
+        if type(prob) is not float and (isinstance(prob, bool) or not isinstance(prob, (int, float))):
+            raise ValueError(f"{source}: {_entry(index, entry)}: `prob` must be a number, got {prob!r}")
         if key in seen:
             raise ValueError(
-                f"{source}: {where} repeats (s, a, s_next) = {key} of entry {seen[key]}; list each once"
+                f"{source}: {_entry(index, entry)} repeats (s, a, s_next) = {key} of entry {seen[key]}; list each once"
             )
         seen[key] = index
         try:
-            P[key] = float(prob)
+            probs.append(float(prob))
         except OverflowError:
-            raise ValueError(f"{source}: {where}: `prob` is too large for a float64") from None
-    return P
+            raise ValueError(f"{source}: {_entry(index, entry)}: `prob` is too large for a float64") from None
+    columns = np.array(list(seen), dtype=np.int64).reshape(-1, 3)
+    return (columns[:, 0], columns[:, 1], columns[:, 2]), np.array(probs, dtype=np.float64)
+
+
+def _checked_entries(entries: list[Any],
+                     shape: tuple[int, ...]) -> tuple[tuple[NDArray[np.int64], ...], NDArray[np.float64]] | None:
+    """The entries as arrays when every one is well formed (checked in bulk), else ``None``: the caller's
+    entry-by-entry pass then finds and names the first bad one."""
+    states, actions = shape
+    if not all(type(entry) is list and len(entry) == 4 for entry in entries):
+        return None
+    table = np.empty((len(entries), 4), dtype=object)
+    table[:] = entries
+    if not set(map(type, table[:, :3].ravel())) <= {int} or not set(map(type, table[:, 3])) <= {int, float}:
+        return None
+    try:
+        ids = table[:, :3].astype(np.int64)
+        probs = table[:, 3].astype(np.float64)
+    except OverflowError:
+        return None
+    if ((ids < 0) | (ids >= np.array([states, actions, states]))).any() or not np.isfinite(probs).all():
+        return None
+    flat = (ids[:, 0] * actions + ids[:, 1]) * states + ids[:, 2]
+    if np.unique(flat).size != flat.size:
+        return None
+    return (ids[:, 0], ids[:, 1], ids[:, 2]), probs
+
+
+def _entry(index: int, entry: object) -> str:
+    return f"'transitions' entry {index} ({json.dumps(entry)})"
+
+
+def _refuse_ids(ids: tuple[object, ...], shape: tuple[int, int], source: Path, where: str) -> None:
+    """Raise the error of the first of s, a, s_next that is no integer or out of range."""
+    states, actions = shape
+    for label, value, bound in zip(("s", "a", "s_next"), ids, (states, actions, states)):
+        if isinstance(value, bool) or not isinstance(value, int):
+            raise ValueError(f"{source}: {where}: `{label}` must be an integer, got {value!r}")
+        if not 0 <= value < bound:
+            raise ValueError(
+                f"{source}: {where}: `{label}` = {value} is out of range 0..{bound - 1} "
+                f"(R has shape ({states}, {actions}))"
+            )

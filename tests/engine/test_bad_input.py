@@ -271,6 +271,27 @@ def _load_text(name: str, text: str) -> None:
         rlrates.load_mdp(path)
 
 
+def _forged_csr_npz() -> None:
+    """A sparse MDP file whose P_indptr header declares 4 rows + 1 for the 3 x 2 rewards' 6 rows; no data."""
+    import io
+    import json
+    import tempfile
+    import zipfile
+
+    info = np.array(json.dumps({"storage": "csr"}))
+    with tempfile.TemporaryDirectory() as tmp:
+        with zipfile.ZipFile(Path(tmp) / "csr.npz", "w") as archive:
+            for key, shape in (("P_data", (6,)), ("P_indices", (6,)), ("P_indptr", (5,))):
+                header = io.BytesIO()
+                np.lib.format.write_array_header_1_0(header, {"descr": "<i8", "fortran_order": False, "shape": shape})
+                archive.writestr(f"{key}.npy", header.getvalue())
+            for key, value in (("R", np.zeros((3, 2))), ("info", info)):
+                buffer = io.BytesIO()
+                np.save(buffer, value)
+                archive.writestr(f"{key}.npy", buffer.getvalue())
+        rlrates.load_mdp(Path(tmp) / "csr.npz")
+
+
 def _forged_npz() -> None:
     import io
     import tempfile
@@ -485,8 +506,6 @@ CATALOGUE = [
          r"negative probability P\[3, 1, 2\] \(row 7 of the \(S\*A, S\) array\) = -0.1"),
     Case("P-sparse-row-sum", lambda: rlrates.TabularMDP(_sparse_P(r9_0=MDP.P[4, 1, 0] + 0.01), MDP.R), r"row \(s=4, a=1\) sums to 1.01"),
     Case("family-sparse-flag", lambda: rlrates.gridworld(sparse="yes"), r"`sparse` must be True, False or None .* got 'yes'"),
-    Case("save-sparse", lambda: rlrates.save_mdp(rlrates.ring(5, sparse=True), "unwritten.npz"),
-         r"unwritten.npz: MDP 'ring-S5-slip0.1' is sparse, and save_mdp writes dense MDPs only"),
     Case("R-shape", lambda: rlrates.TabularMDP(MDP.P, np.zeros((6, 3))), r"`R` must have shape \(S, A\) = \(6, 2\)"),
     Case("R-nan", lambda: rlrates.TabularMDP(MDP.P, np.where(np.eye(6, 2, 1) > 0, np.nan, 0.5)), r"`R` has a non-finite entry R\[0, 1\]"),
     Case("gamma-range", lambda: rlrates.q_pi(MDP, 1.5), r"`gamma` must lie in \(0, 1\]"),
@@ -546,6 +565,8 @@ CATALOGUE = [
     Case("file-json-big-number", lambda: _load_text("big.json", '{"R": [[1' + "0" * 400 + ']], "P": [[[1.0]]]}'),
          r"big.json: 'R' holds a number too large for a float64"),
     Case("file-npz-is-text", lambda: _load_text("text.npz", "P R info"), r"text.npz: not an .npz archive \(a zip file of P.npy"),
+    Case("file-npz-csr-forged", _forged_csr_npz,
+         r"csr.npz: array `P_indptr` has shape \(5,\); the CSR rows of P for R of shape \(3, 2\) need \(7,\)"),
     Case("marker-without-fixture", _marker_without_fixture,
          r"^MarkerUnusedWarning: @pytest.mark.rlrates on test_x.py::test_y, which uses neither the `rlrates` nor"),
     Case("marker-policy-word", _marker_policy_word, r"test_x.py::test_y: `policy` must be an \(S, A\) array .* got 'greedy'"),

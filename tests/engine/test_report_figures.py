@@ -6,6 +6,7 @@ Real checks come from tests/engine/report_checks.py and conftest.py; the hand-ma
 
 from __future__ import annotations
 
+import os
 import shutil
 from pathlib import Path
 from typing import Any
@@ -20,7 +21,7 @@ from report_checks import FAIL_ID, PASS_ID
 
 import rlrates
 from rlrates import CheckResult, RatesWarning, reference
-from rlrates.report import check_folder_name, read_check, rebuild, write_check
+from rlrates.report import check_folder_name, figure_pool, read_check, rebuild, write_check
 from rlrates.report.figure_data import NOT_DECIDED, cell_points, discount_slopes, horizon_points
 from rlrates.report.figures import build_figure
 from rlrates.result import Fit
@@ -295,3 +296,109 @@ def test_a_coverage_check_draws_error_against_c_and_rebuilds_from_its_files(tmp_
     points = coverage_points(table)
     assert len(points) == 4 and points["C"].is_monotonic_increasing
     assert (points["n"] == points["n"].iloc[0]).all()
+
+
+# --------------------------------------------------------------------------- figures drawn after the checks ran
+
+
+@pytest.fixture()
+def tables_without_figures(tmp_path: Path, passing: CheckResult, failing: CheckResult) -> list[Path]:
+    """Two check folders as a session leaves them before its end: tables and records, no figures yet."""
+    return [write_check(result, tmp_path / "late", test_id, figures=False)
+            for result, test_id in ((passing, PASS_ID), (failing, FAIL_ID))]
+
+
+def _figure_bytes(folders: list[Path]) -> dict[tuple[str, str], bytes]:
+    return {(folder.name, name): (folder / name).read_bytes() for folder in folders for name in ("figure.png", "figure.pdf")}
+
+
+@pytest.mark.parametrize("processes", [1, 2])
+def test_figures_drawn_late_are_the_bytes_rebuild_draws(tables_without_figures: list[Path], tmp_path: Path,
+                                                        processes: int) -> None:
+    """In this process or over a pool, the late figures are those `python -m rlrates report` draws (common practice)."""
+    from rlrates.report.figure_pool import draw_saved
+
+    copy = Path(shutil.copytree(tables_without_figures[0].parent, tmp_path / "copy"))
+    outcomes = draw_saved(tables_without_figures, processes=processes)
+    assert [o.folder for o in outcomes] == tables_without_figures and all(o.drawn for o in outcomes)
+    assert {p.name for o in outcomes for p in o.written} == {"figure.png", "figure.pdf"}
+    rebuild(copy)
+    assert _figure_bytes(tables_without_figures) == _figure_bytes([copy / f.name for f in tables_without_figures])
+
+
+def test_the_pool_never_has_more_processes_than_figures_or_cpus() -> None:
+    """Common practice: one process per usable CPU at most; one figure or one CPU is drawn in this process."""
+    from rlrates.report.figure_pool import pool_size, usable_cpus
+
+    assert pool_size(1) == 1 and pool_size(0) == 1
+    assert pool_size(1000) == usable_cpus()
+    assert pool_size(1000, processes=1) == 1
+    assert pool_size(3, processes=1000) == min(3, usable_cpus())
+
+
+def test_a_figure_that_cannot_be_drawn_says_why_and_the_others_are_drawn(tables_without_figures: list[Path],
+                                                                         tmp_path: Path) -> None:
+    from rlrates.report.figure_pool import draw_saved
+
+    gone = tmp_path / "late" / "gone-00000000"
+    outcomes = draw_saved([gone, *tables_without_figures], processes=2)
+    assert not outcomes[0].drawn and "gone-00000000" in outcomes[0].problem and "missing" in outcomes[0].problem
+    assert all(o.drawn for o in outcomes[1:])
+
+
+def test_a_full_disk_while_drawing_is_a_reason_not_an_exception(tables_without_figures: list[Path],
+                                                                monkeypatch: pytest.MonkeyPatch) -> None:
+    """ENOSPC injected into the file moves (common practice for testing full disks without a tmpfs)."""
+    import errno
+
+    from rlrates.report.figure_pool import draw_saved
+
+    def no_space(source: str, target: str) -> None:
+        raise OSError(errno.ENOSPC, "No space left on device", target)
+
+    monkeypatch.setattr(os, "replace", no_space)
+    (outcome,) = draw_saved(tables_without_figures[:1])
+    assert outcome.problem == "No space left on device" and outcome.written == ()
+    assert not (tables_without_figures[0] / "figure.png").exists()
+
+
+_PARENT = os.getpid()
+_DRAW_ONE = figure_pool._draw_one
+
+
+def _dies_in_a_worker(folder: Path, width: Any) -> Any:
+    """Draws in the test's process; ends any pool worker at once, as a killed worker would."""
+    if os.getpid() != _PARENT:
+        os._exit(7)
+    return _DRAW_ONE(folder, width)
+
+
+def test_a_pool_worker_that_dies_loses_no_figure(tables_without_figures: list[Path],
+                                                 monkeypatch: pytest.MonkeyPatch) -> None:
+    """A worker killed mid-pool (os._exit in the child only): the figures it did not finish are drawn here."""
+    import multiprocessing
+
+    if "fork" not in multiprocessing.get_all_start_methods() or figure_pool.usable_cpus() < 2:
+        pytest.skip("needs forked pool workers (the patched function must reach the child) and two CPUs")
+    monkeypatch.setattr(figure_pool, "_draw_one", _dies_in_a_worker)
+    monkeypatch.setattr(figure_pool, "_context", lambda: multiprocessing.get_context("fork"))
+    outcomes = figure_pool.draw_saved(tables_without_figures, processes=2)
+    assert all(o.drawn for o in outcomes)
+    assert all((folder / "figure.png").is_file() for folder in tables_without_figures)
+
+
+def test_workers_started_afresh_draw_the_same_bytes_with_the_users_style(tables_without_figures: list[Path],
+                                                                        tmp_path: Path,
+                                                                        monkeypatch: pytest.MonkeyPatch) -> None:
+    """A process running threads does not fork: spawned workers get the parent's style and draw what it draws."""
+    import multiprocessing
+
+    import matplotlib
+
+    copy = Path(shutil.copytree(tables_without_figures[0].parent, tmp_path / "copy"))
+    monkeypatch.setitem(matplotlib.rcParams, "font.size", 6.5)  # a user's style, set after the import
+    monkeypatch.setattr(figure_pool, "_context", lambda: multiprocessing.get_context("spawn"))
+    outcomes = figure_pool.draw_saved(tables_without_figures, processes=2)
+    assert all(o.drawn for o in outcomes)
+    figure_pool.draw_saved([copy / f.name for f in tables_without_figures], processes=1)  # here, with the same style
+    assert _figure_bytes(tables_without_figures) == _figure_bytes([copy / f.name for f in tables_without_figures])

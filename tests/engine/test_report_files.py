@@ -380,3 +380,83 @@ def test_clear_own_refuses_a_directory_with_foreign_files_and_removes_nothing(tm
     assert sorted(p for p in tmp_path.rglob("*")) == before
     assert (outside / "keep.txt").read_text() == "mine"
 
+
+
+# --------------------------------------------------------------------------- figures are drawn after the tests, not in them
+
+LATE_FIGURES = '''
+import os
+from pathlib import Path
+
+import pytest
+import rlrates as rl
+from rlrates import reference
+
+
+def _folder(name):
+    (folder,) = [p.parent for p in Path("out").glob("*/check.json") if name in p.parent.name]
+    return folder
+
+
+@pytest.mark.rlrates(n=-0.5)
+def test_first(rlrates):
+    rlrates(reference.plugin_q_pi, rl.chain(8))
+
+
+def test_second_sees_no_figure_yet():
+    folder = _folder("test_first")
+    assert (folder / "errors.csv").is_file() and not (folder / "figure.png").exists()
+'''
+
+
+def test_a_check_writes_its_figure_after_the_tests_not_while_its_test_runs(pytester: pytest.Pytester) -> None:
+    """Issue 15: the figure (about 0.5 s) is off each test's critical path; it is there when the session ends."""
+    pytester.makepyfile(test_inner=LATE_FIGURES)
+    result = pytester.runpytest_subprocess("--rlrates-report=out", "-p", "no:cacheprovider")
+    result.assert_outcomes(passed=2)
+    (folder,) = [p.parent for p in (pytester.path / "out").glob("*/check.json")]
+    assert (folder / "figure.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    assert (folder / "figure.pdf").read_bytes()[:5] == b"%PDF-"
+
+
+def test_a_figure_that_cannot_be_drawn_at_the_end_is_a_warning_naming_the_check(pytester: pytest.Pytester) -> None:
+    """ENOSPC injected into the figure moves only (common practice for testing full disks without a tmpfs)."""
+    pytester.makepyfile(test_inner=LATE_FIGURES.replace("def test_second_sees_no_figure_yet():", '''def test_second_fills_the_disk():
+    import errno
+    replace = os.replace
+
+    def no_space(source, target):
+        if os.path.basename(target).startswith("figure."):
+            raise OSError(errno.ENOSPC, "No space left on device", os.fspath(target))
+        return replace(source, target)
+
+    os.replace = no_space  # left in place: the disk stays full for the figures at the end
+
+
+def test_third_sees_no_figure_yet():'''))
+    result = pytester.runpytest_subprocess("--rlrates-report=out", "-p", "no:cacheprovider")
+    result.assert_outcomes(passed=3, warnings=1)
+    assert not re.search("Traceback|INTERNALERROR", result.stdout.str() + result.stderr.str())
+    warning = ("*ReportWarning: rlrates: the figure of test_inner.py::test_first was not drawn in *out*test_first*: "
+               "No space left on device; the test keeps its verdict")
+    result.stdout.fnmatch_lines([warning, "rlrates report: 1 check(s) under *out (index.md, index.tex)",
+                                 "rlrates report: 1 figure(s) missing (could not be drawn): test_inner.py::test_first",
+                                 "*rate checks (rlrates), budget ci*"])
+    (folder,) = [p.parent for p in (pytester.path / "out").glob("*/check.json")]
+    assert sorted(p.name for p in folder.iterdir()) == [".rlrates-files", "check.json", "errors.csv"]
+
+
+def test_an_interrupted_session_leaves_its_figures_to_the_report_command(pytester: pytest.Pytester) -> None:
+    """Ctrl-C ends the session without half a minute of drawing; the summary says how to draw them later."""
+    pytester.makepyfile(test_inner=LATE_FIGURES.replace("def test_second_sees_no_figure_yet():",
+                                                        "def test_second_is_interrupted():\n    raise KeyboardInterrupt\n\n\n"
+                                                        "def test_third_sees_no_figure_yet():"))
+    result = pytester.runpytest_subprocess("--rlrates-report=out", "-p", "no:cacheprovider")
+    assert result.ret == pytest.ExitCode.INTERRUPTED
+    result.stdout.fnmatch_lines(["rlrates report: figures not drawn (the session was interrupted); "
+                                 "draw them with python -m rlrates report *out"])
+    (folder,) = [p.parent for p in (pytester.path / "out").glob("*/check.json")]
+    assert not (folder / "figure.png").exists()
+    subprocess.run([sys.executable, "-m", "rlrates", "report", str(pytester.path / "out")], check=True,
+                   capture_output=True)
+    assert (folder / "figure.png").read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"

@@ -257,3 +257,128 @@ def test_a_text_file_named_npz_gets_no_advice_to_allow_pickling(tmp_path: Path) 
         rlrates.load_mdp(path)
     assert "pickle" not in str(raised.value)
     assert re.search(r"text\.npz: not an \.npz archive \(a zip file of P\.npy, R\.npy and info\.npy\)", str(raised.value))
+
+
+# --------------------------------------------------------------------------- sparse MDPs, stored without densifying
+# (the CSR layout, data / indices / indptr with indptr of length rows + 1, as scipy.sparse.csr_array documents it)
+
+
+def _same_sparse(back: rlrates.TabularMDP, mdp: rlrates.TabularMDP) -> None:
+    assert back.is_sparse and back.P.shape == mdp.P.shape
+    assert back.fingerprint == mdp.fingerprint and (back.name, back.metadata) == (mdp.name, mdp.metadata)
+    for part in ("data", "indices", "indptr"):
+        np.testing.assert_array_equal(getattr(back.P, part), getattr(mdp.P, part))
+    np.testing.assert_array_equal(back.R, mdp.R)
+
+
+@pytest.mark.parametrize("suffix", [".npz", ".json"])
+def test_a_sparse_mdp_round_trips_sparse_with_its_fingerprint(tmp_path: Path, suffix: str) -> None:
+    mdp = rlrates.garnet(states=40, actions=3, branching=4, seed=2, sparse=True)
+    path = rlrates.save_mdp(mdp, tmp_path / f"g{suffix}")
+    _same_sparse(rlrates.load_mdp(path), mdp)
+    if suffix == ".npz":
+        with np.load(path) as archive:
+            assert sorted(archive.files) == ["P_data", "P_indices", "P_indptr", "R", "info"]
+            assert archive["P_indptr"].shape == (40 * 3 + 1,) and archive["P_data"].shape == (mdp.P.nnz,)
+            assert json.loads(str(archive["info"]))["storage"] == "csr"
+
+
+@pytest.mark.parametrize("suffix", [".npz", ".json"])
+def test_a_gridworld_of_ten_thousand_states_is_saved_and_loaded_without_its_dense_kernel(tmp_path: Path,
+                                                                                         suffix: str) -> None:
+    """Dense, its P would be 4 * 10**8 entries (3 GiB), four times the file limit: only the CSR parts are stored."""
+    mdp = rlrates.gridworld(100, 100, sparse=True)
+    assert mdp.states * mdp.actions * mdp.states > rlrates.storage.MAX_ENTRIES
+    path = rlrates.save_mdp(mdp, tmp_path / f"grid{suffix}")
+    assert path.stat().st_size < 20 * 2**20
+    _same_sparse(rlrates.load_mdp(path), mdp)
+
+
+def test_a_hand_written_sparse_json_loads_sparse_with_the_dense_files_probabilities(tmp_path: Path) -> None:
+    path = _write_json(tmp_path / "hand.json", {"R": HAND_R, "transitions": HAND_SPARSE, "storage": "csr"})
+    back = rlrates.load_mdp(path)
+    assert back.is_sparse
+    np.testing.assert_array_equal(back.P.toarray().reshape(2, 2, 2), np.array(HAND_P))
+    assert not rlrates.load_mdp(_write_json(tmp_path / "dense.json", {"R": HAND_R, "transitions": HAND_SPARSE})).is_sparse
+
+
+def _forged_csr(path: Path, shapes: dict[str, tuple[int, ...]], dtypes: dict[str, str] | None = None) -> Path:
+    """An .npz of CSR parts whose headers declare ``shapes`` but hold no data (loading them would fail)."""
+    import io
+    import zipfile
+
+    info = np.array(json.dumps({"name": "x", "metadata": {}, "storage": "csr"}))
+    with zipfile.ZipFile(path, "w") as archive:
+        for key, shape in shapes.items():
+            header = io.BytesIO()
+            descr = (dtypes or {}).get(key, "<f8" if key == "P_data" else "<i8")
+            np.lib.format.write_array_header_1_0(header, {"descr": descr, "fortran_order": False, "shape": shape})
+            archive.writestr(f"{key}.npy", header.getvalue())
+        for key, value in (("R", np.array(HAND_R)), ("info", info)):
+            buffer = io.BytesIO()
+            np.save(buffer, value)
+            archive.writestr(f"{key}.npy", buffer.getvalue())
+    return path
+
+
+@pytest.mark.parametrize(
+    ("shapes", "dtypes", "match"),
+    [
+        ({"P_data": (6,), "P_indices": (6,), "P_indptr": (4,)}, None,
+         r"array `P_indptr` has shape \(4,\); the CSR rows of P for R of shape \(2, 2\) need \(5,\) \(S\*A \+ 1\)"),
+        ({"P_data": (6,), "P_indices": (7,), "P_indptr": (5,)}, None,
+         r"arrays `P_data` \(6,\) and `P_indices` \(7,\) must be 1-d and of one length"),
+        ({"P_data": (10**9,), "P_indices": (10**9,), "P_indptr": (5,)}, None,
+         r"array P_data\.npy has shape \(1000000000,\), 1,000,000,000 entries .*more than the 100,000,000 entries"),
+        ({"P_data": (6,), "P_indices": (6,), "P_indptr": (5,)}, {"P_indices": "<f8"},
+         r"array `P_indices` must hold integers, got dtype float64"),
+        ({"P_data": (6,), "P_indices": (6,)}, None,
+         r"missing array\(s\) P_indptr; an MDP .npz of CSR parts holds P_data, P_indices, P_indptr, R and info"),
+    ],
+    ids=["indptr-not-S*A+1", "lengths-differ", "a-billion-entries", "float-indices", "no-indptr"],
+)
+def test_a_forged_sparse_header_is_refused_naming_the_file_before_loading(
+        tmp_path: Path, shapes: dict[str, tuple[int, ...]], dtypes: dict[str, str] | None, match: str) -> None:
+    path = _forged_csr(tmp_path / "forged.npz", shapes, dtypes)
+    assert path.stat().st_size < 2000
+    with pytest.raises(ValueError, match=r"forged\.npz: " + match):
+        rlrates.load_mdp(path)
+
+
+def _csr_parts(**edits: Any) -> dict[str, Any]:
+    """The CSR parts of the hand-written MDP (rows s * A + a), with ``edits`` replacing some of them."""
+    from scipy import sparse
+
+    rows = sparse.csr_array(np.array(HAND_P).reshape(4, 2))
+    parts = {"P_data": rows.data, "P_indices": rows.indices, "P_indptr": rows.indptr, "R": np.array(HAND_R),
+             "info": np.array(json.dumps({"name": "x", "metadata": {}, "storage": "csr"}))}
+    return {**parts, **edits}
+
+
+@pytest.mark.parametrize(
+    ("edits", "match"),
+    [
+        ({"P_indices": np.array([0, 1, 1, 0, 1, 2])}, r"array `P_indices` entry 5 \(s=1, a=1\) names next state 2, outside 0\.\.1"),
+        ({"P_indptr": np.array([0, 2, 1, 5, 6])}, r"array `P_indptr` must rise from 0 to 6 .* it falls after row 1"),
+        ({"P_indptr": np.array([1, 2, 3, 5, 6])}, r"array `P_indptr` must rise from 0 to 6 .* it runs from 1 to 6"),
+        ({"P_data": np.array([0.9, 0.2, 1.0, 0.5, 0.5, 1.0])},
+         r"the stored arrays are not a valid MDP: `P` row \(s=0, a=0\) sums to 1\.1, not 1"),
+        ({"info": np.array(json.dumps({"storage": "coo"}))}, r"`storage` is 'coo'; it must be one of 'dense', 'csr'"),
+    ],
+    ids=["next-state-out-of-range", "indptr-falls", "indptr-offset", "row-sum", "unknown-storage"],
+)
+def test_bad_csr_parts_are_refused_naming_the_file_and_the_entry(tmp_path: Path, edits: dict[str, Any],
+                                                                  match: str) -> None:
+    path = _npz(tmp_path / "bad.npz", **_csr_parts(**edits))
+    with pytest.raises(ValueError, match=r"bad\.npz: " + match):
+        rlrates.load_mdp(path)
+
+
+def test_a_sparse_json_needs_transitions_and_counts_only_what_it_lists(tmp_path: Path) -> None:
+    dense_p = _write_json(tmp_path / "mixed.json", {"R": HAND_R, "P": HAND_P, "storage": "csr"})
+    with pytest.raises(ValueError, match=r"mixed\.json: \"storage\": \"csr\" needs 'transitions'"):
+        rlrates.load_mdp(dense_p)
+    # 20000 states with one action each, every state a self-loop: dense it would be 4 * 10**8 entries
+    wide = {"R": [[0.0]] * 20_000, "transitions": [[s, 0, s, 1.0] for s in range(20_000)], "storage": "csr"}
+    back = rlrates.load_mdp(_write_json(tmp_path / "wide.json", wide))
+    assert back.is_sparse and back.P.nnz == 20_000 and back.states == 20_000

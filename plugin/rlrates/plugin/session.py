@@ -86,6 +86,9 @@ class RatesSession:
     _executor: Executor | None = None
     _lock: Any = None  # the report directory's ReportLock, held by the controller
     _sigterm: Any = None  # the SIGTERM handler this session installed
+    controller: bool = True  # False on a pytest-xdist worker: the controller draws the figures
+    _undrawn: list[str] = field(default_factory=list)  # checks whose figures could not be drawn
+    _interrupted: bool = False  # the session stopped early: figures left to `python -m rlrates report`
 
     def executor(self) -> Executor | None:
         """The session's process pool, created on first use when workers > 1, and rebuilt when a worker died."""
@@ -109,25 +112,61 @@ class RatesSession:
         return self.built[member.name]
 
     def write_report(self, result: CheckResult, label: str, *, expected: Any = None, figure_width: Any = None) -> None:
-        """Write one check's report folder; one that cannot be written (a full disk) is a warning, not a failure.
+        """Write one check's table and record; one that cannot be written (a full disk) is a warning, not a failure.
 
-        The test keeps its verdict; the terminal summary lists the reports that are missing.
+        The figures are not drawn here but at the end of the session (:meth:`draw_figures`),
+        so no test waits for them. The test keeps its verdict; the terminal summary lists
+        the reports that are missing.
         """
-        from ..report import ReportError, ReportWarning, figures_available, write_check
+        from ..report import ReportError, write_check
 
         assert self.settings.report_dir is not None
         try:
-            write_check(result, self.settings.report_dir, label, figures=figures_available(), expected=expected,
+            write_check(result, self.settings.report_dir, label, figures=False, expected=expected,
                         figure_width=figure_width)
         except (OSError, ReportError) as exc:
-            text = (f"rlrates: the report of {label} was not written to {self.settings.report_dir}: "
-                    f"{getattr(exc, 'strerror', None) or exc}; the test keeps its verdict")
-            with suppress(ReportWarning):  # even under -W error: the verdict is the test's, not the disk's
-                warnings.warn(text, ReportWarning, stacklevel=4)
+            _warn(f"rlrates: the report of {label} was not written to {self.settings.report_dir}: "
+                  f"{getattr(exc, 'strerror', None) or exc}; the test keeps its verdict")
+
+    def _written_checks(self) -> list[tuple[str, Path, bool]]:
+        """Each record's label, its check folder, and whether the folder's record was written."""
+        from ..report import RECORD_FILE, check_folder_name
+
+        directory = self.settings.report_dir
+        assert directory is not None
+        counts: dict[str, int] = {}
+        checks = []
+        for record in self.records:
+            counts[record.test] = counts.get(record.test, 0) + 1
+            label = record.test if counts[record.test] == 1 else f"{record.test}#{counts[record.test]}"
+            own_label = record.label if record.label != record.test.rsplit("::", 1)[-1] else None
+            folder = directory / check_folder_name(label, own_label)
+            checks.append((label, folder, (folder / RECORD_FILE).is_file()))
+        return checks
+
+    def draw_figures(self) -> None:
+        """Draw the figures of every check written this session, over a small process pool (see figure_pool).
+
+        Runs once the tests are done, on the controller (pytest-xdist workers leave it
+        to their controller). A figure that cannot be drawn is a warning naming the check
+        and the reason; the check keeps its verdict.
+        """
+        from ..report import figures_available
+        from ..report.figure_pool import draw_saved
+
+        written = [(label, folder) for label, folder, saved in self._written_checks() if saved]
+        if not written or not figures_available():
+            return
+        outcomes = draw_saved([folder for _, folder in written], self.settings.figure_width)
+        for (label, _), outcome in zip(written, outcomes):
+            if not outcome.drawn:
+                self._undrawn.append(label)
+                _warn(f"rlrates: the figure of {label} was not drawn in {outcome.folder}: {outcome.problem}; "
+                      "the test keeps its verdict", stacklevel=2)
 
     def report_lines(self) -> list[str]:
         """The terminal summary's lines about the report directory: the index written, the reports missing."""
-        from ..report import FIGURES_SKIPPED, RECORD_FILE, check_folder_name, figures_available, write_index
+        from ..report import FIGURES_SKIPPED, figures_available, write_index
 
         directory = self.settings.report_dir
         assert directory is not None
@@ -140,24 +179,26 @@ class RatesSession:
             if written:
                 lines.append(f"rlrates report: {len(self.records)} check(s) under {directory} "
                              f"({', '.join(path.name for path in written)})")
-        counts: dict[str, int] = {}
-        missing = []
-        for record in self.records:
-            counts[record.test] = counts.get(record.test, 0) + 1
-            label = record.test if counts[record.test] == 1 else f"{record.test}#{counts[record.test]}"
-            own_label = record.label if record.label != record.test.rsplit("::", 1)[-1] else None
-            if not (directory / check_folder_name(label, own_label) / RECORD_FILE).is_file():
-                missing.append(label)
+        missing = [label for label, _, saved in self._written_checks() if not saved]
         if missing:
             lines.append(f"rlrates report: {len(missing)} report(s) missing (could not be written): {', '.join(missing)}")
+        if self._undrawn:
+            lines.append(f"rlrates report: {len(self._undrawn)} figure(s) missing (could not be drawn): "
+                         f"{', '.join(self._undrawn)}")
+        if self._interrupted and figures_available():
+            lines.append(f"rlrates report: figures not drawn (the session was interrupted); draw them with "
+                         f"python -m rlrates report {directory}")
         if not figures_available():
             lines.append(f"rlrates report: {FIGURES_SKIPPED}")
         return lines
 
-    def close(self) -> None:
+    def _stop_pool(self) -> None:
         if self._executor is not None:
             self._executor.shutdown(wait=True, cancel_futures=True)
             self._executor = None
+
+    def close(self) -> None:
+        self._stop_pool()
         if self._lock is not None:
             self._lock.release()
             self._lock = None
@@ -167,6 +208,17 @@ class RatesSession:
             if signal.getsignal(signal.SIGTERM) is self._sigterm:
                 signal.signal(signal.SIGTERM, signal.SIG_DFL)
             self._sigterm = None
+
+    @pytest.hookimpl(tryfirst=True)
+    def pytest_sessionfinish(self, session: pytest.Session, exitstatus: int) -> None:
+        """The tests are done (and every pytest-xdist worker with them): draw the figures, unless interrupted."""
+        if self.settings.report_dir is None or not self.controller or not self.records:
+            return
+        if exitstatus == pytest.ExitCode.INTERRUPTED:
+            self._interrupted = True
+            return
+        self._stop_pool()  # no check runs any more; its threads gone, the figure pool can fork
+        self.draw_figures()
 
     def pytest_runtest_logreport(self, report: pytest.TestReport) -> None:
         texts = [value for name, value in report.user_properties if name == PROPERTY_NAME]
@@ -184,6 +236,17 @@ class RatesSession:
 
 
 _SESSION = pytest.StashKey[RatesSession]()
+
+
+def _warn(text: str, stacklevel: int = 5) -> None:
+    """A report problem as a ReportWarning, even under ``-W error``: the verdict is the test's, not the disk's.
+
+    The default ``stacklevel`` points at the test's check call (through write_report and the runner).
+    """
+    from ..report import ReportWarning
+
+    with suppress(ReportWarning):
+        warnings.warn(text, ReportWarning, stacklevel=stacklevel)
 
 
 def _usable(executor: Executor) -> bool:
@@ -232,10 +295,11 @@ def prepare_report_dir(directory: Path, controller: bool) -> Any:
 
 def start_session(config: pytest.Config) -> RatesSession:
     """Resolve the settings, prepare the report directory, keep the session in the stash and register it."""
-    session = RatesSession(resolve_settings(config))
+    controller = not hasattr(config, "workerinput")
+    session = RatesSession(resolve_settings(config), controller=controller)
     if session.settings.report_dir is not None:
-        session._lock = prepare_report_dir(session.settings.report_dir, controller=not hasattr(config, "workerinput"))
-    if not hasattr(config, "workerinput"):  # pytest-xdist workers are stopped by their controller
+        session._lock = prepare_report_dir(session.settings.report_dir, controller=controller)
+    if controller:  # pytest-xdist workers are stopped by their controller
         session._sigterm = _install_sigterm_handler()
     config.stash[_SESSION] = session
     config.pluginmanager.register(session, "rlrates-session")
