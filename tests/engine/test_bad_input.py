@@ -256,6 +256,21 @@ def _check_with(**options: Any) -> Callable[[], object]:
     return lambda: rlrates.check(reference.plugin_q_pi, MDP, CLAIM, **{**SMALL, **options})
 
 
+def _logged_value_message(estimator: Callable[[Any, Any], Any]) -> str:
+    return rlrates.check(estimator, MDP, CLAIM, target="value", data="trajectories", **SMALL).message
+
+
+def _ground_truth_written() -> str:
+    victim = rlrates.garnet(states=6, actions=2, branching=3, seed=9)
+
+    def vandal(batch: Any, problem: Any) -> Any:
+        victim.R.setflags(write=True)
+        victim.R[0, 0] = 0.5
+        return reference.plugin_q_pi(batch, problem)
+
+    return rlrates.check(vandal, victim, CLAIM, **SMALL).message
+
+
 def _marker_budget_list() -> None:
     from rlrates.plugin.marker import parse_marker
 
@@ -615,6 +630,24 @@ CATALOGUE = [
          r"`label` must be a non-empty string, got ' '"),
     Case("figure-width", lambda: _figure_width("wide"), r"figure width 'wide' must be 'column', 'page' or a number of inches"),
     Case("index-columns", lambda: _index_columns(["check", "time"]), r"index columns 'time' unknown; choose from check, test"),
+    Case("data-unknown", _check_with(data="offline"), r"unknown `data` 'offline'; choose one of generative, transitions, "
+         r"trajectories"),
+    Case("behaviour-generative", _check_with(behaviour=np.full((6, 2), 0.5)),
+         r"`behaviour` needs logged data: pass data='transitions' or data='trajectories'"),
+    Case("coverage-generative", lambda: rlrates.check(reference.plugin_q_pi, MDP, rlrates.Claim(n=-0.5, coverage=0.5),
+                                                      **SMALL), r"a `coverage` claim needs logged data"),
+    Case("logged-target", _check_with(data="transitions", target="model"),
+         r"target 'model' is not available with data='transitions'; choose one of q_pi, value"),
+    Case("episode-length-transitions", _check_with(data="transitions", episode_length=8),
+         r"`episode_length` needs data='trajectories'"),
+    Case("episode-length-zero", _check_with(data="trajectories", episode_length=0),
+         r"`episode_length` must be a positive integer, got 0"),
+    Case("behaviour-rows", _check_with(data="transitions", behaviour=np.full((6, 2), 0.7)), r"behaviour.*row"),
+    Case("behaviour-never-covers", _check_with(data="transitions", behaviour=np.tile([0.0, 1.0], (6, 1))),
+         r"never takes an action the evaluation policy takes .* the concentrability coefficient is infinite"),
+    Case("value-not-a-number", lambda: _logged_value_message(lambda batch, problem: np.zeros(2)),
+         r"the estimator returned shape \(2,\); return a float estimate of the value J\(pi\)"),
+    Case("ground-truth-written", _ground_truth_written, r"changed during the check \(its fingerprint no longer matches"),
 ]
 
 
