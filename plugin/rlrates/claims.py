@@ -65,6 +65,10 @@ class Claim:
         object.__setattr__(self, "horizon", horizon)
         object.__setattr__(self, "coverage", coverage)
 
+    def __repr__(self) -> str:
+        coverage = f", coverage={self.coverage!r}" if self.coverage is not None else ""
+        return f"Claim(n={self.n!r}, horizon={self.horizon!r}{coverage})"
+
     def describe(self) -> str:
         """Human-readable form, e.g. ``error <~ n^-0.5 * H^2``."""
         parts = []

@@ -8,10 +8,9 @@ Rows are never recomputed: a pass only adds replicates or larger n.
 
 from __future__ import annotations
 
+import dataclasses
 from concurrent.futures import Executor
 from dataclasses import dataclass
-
-import dataclasses
 
 import pandas as pd
 
@@ -40,7 +39,6 @@ class Passes:
     passes: int
     blocks: tuple[Block, ...]
     state: Escalation
-
 
 
 def run_passes(plan: SweepPlan, executor: Executor | None, claim: Claim, design: Budget, target: str,

@@ -43,7 +43,6 @@ __all__ = ["check", "CheckResult", "CheckInterrupted", "RatesWarning"]
 MDPSource = TabularMDP | Callable[[float], TabularMDP]
 
 
-
 class RatesWarning(UserWarning):
     """A check's design is weaker than it looks (for example a grid that starts pre-asymptotic)."""
 
@@ -249,16 +248,14 @@ def check(
         built = _mdp_for(mdp, gamma)
         truths[gamma] = solve_truth(built, gamma, call.target, _policy_for(policy, built))
     kernels = kernels_by_discount({g: t.mdp for g, t in truths.items()})
-    first = next(iter(truths.values())).mdp
-    if regime == "generative":  # refuse a sweep whose counts cannot fit in memory, before any is drawn
-        too_big = require_sweep_memory(first, call.design.n_grid, call.design.replicates, call.design.gammas,
-                                       getattr(executor, "_max_workers", 1) or 1)
-        if too_big:
-            warnings.warn(too_big, RatesWarning, stacklevel=2)
     if regime != "generative":
         call, plan, probe_notes = _logged_plan(call, truths, kernels, context, behaviour, episode_length,
                                                n_grid is not None)
-    else:
+    else:  # refuse a sweep whose counts cannot fit in memory before any is drawn (rlrates.costs)
+        too_big = require_sweep_memory(next(iter(truths.values())).mdp, call.design.n_grid, call.design.replicates,
+                                       call.design.gammas, getattr(executor, "_max_workers", 1) or 1)
+        if too_big:
+            warnings.warn(too_big, RatesWarning, stacklevel=2)
         plan = SweepPlan(call.estimator, truths, kernels, call.seed, context, call.norm, call.time_limit)
         probe_notes = _probe(call, truths, kernels, executor)
     probe_notes.extend(dict.fromkeys(note for truth in truths.values() for note in truth.mdp.notes))

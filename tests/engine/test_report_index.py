@@ -95,7 +95,7 @@ def test_index_rows_of_a_hand_made_record() -> None:
     )
     tex_row = index_latex([("t-a_b-00000000", hand_made())]).splitlines()[-4]
     assert tex_row == (
-        r"a\_\allowbreak{}b & ring-\allowbreak{}S8 & ${+}0.00$ \mbox{[$-0.06$,\,${+}0.03$]}\newline "
+        r"a\_\allowbreak{}b & ring-\allowbreak{}S8 & ${+}0.00$ \mbox{[$-0.06$,}\allowbreak\hspace{0.17em}\mbox{${+}0.03$]}\newline "
         r"\mbox{limit $-0.40$} & fail (rate, floor) \\"
     )
 
@@ -111,7 +111,7 @@ def test_levels_go_into_the_cells_when_rows_differ_in_them() -> None:
     other = hand_made("t::z")
     other["fits"][0]["low_level"] = 0.995
     text = index_latex([("a", hand_made()), ("b", other)])
-    assert r"\mbox{at 98.75\%/80\%}" in text and r"\mbox{at 99.5\%/80\%}" in text
+    assert r"\mbox{at 98.75\%/}\allowbreak\mbox{80\%}" in text and r"\mbox{at 99.5\%/}\allowbreak\mbox{80\%}" in text
     assert "bounds at the levels given" in text
 
 

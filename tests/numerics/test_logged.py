@@ -147,3 +147,13 @@ def test_wide_rows_sample_by_binary_search_with_the_same_law() -> None:
     marginal = occupancy.uniform_initial(dense) @ np.linalg.matrix_power(_kernel(dense, truth.data.behaviour), 2)
     observed = np.bincount(batch.states[:, 2], minlength=dense.states)
     assert stats.chisquare(observed, marginal * 30_000).pvalue > 1e-3
+
+
+def test_a_sparse_mdp_gets_sparse_counts_of_the_same_data() -> None:
+    sparse = rlrates.garnet(states=8, actions=3, branching=3, seed=4, sparse=True)
+    truth, kernel = _setting(sparse, "transitions")
+    (batch,) = draw_logged_block(kernel, 5_000, 1, np.random.SeedSequence(14))
+    assert batch.sparse and batch.counts.shape == (24, 8)
+    by_hand = np.bincount((batch.states * 3 + batch.actions) * 8 + batch.next_states, minlength=24 * 8)
+    np.testing.assert_array_equal(batch.counts.toarray().ravel(), by_hand)
+    assert stats.chisquare(batch.visits.ravel(), truth.data.distribution.ravel() * batch.n).pvalue > 1e-3

@@ -145,7 +145,7 @@ def test_collection_builds_no_mdp_and_imports_no_numpy(project: pytest.Pytester)
 BAD_MARKERS = {
     "test_bad_typo": ("@pytest.mark.rlrates(n=-0.5, taget='q_pi')", "unknown keyword `taget` (did you mean `target`?)"),
     "test_bad_exponent": ("@pytest.mark.rlrates(n=0.5)", "bad exponent: `n` exponent must be negative"),
-    "test_bad_target": ("@pytest.mark.rlrates(n=-0.5, target='value')", "unknown `target` 'value'"),
+    "test_bad_target": ("@pytest.mark.rlrates(n=-0.5, target='v_star')", "unknown `target` 'v_star'"),
     "test_bad_suite": ("@pytest.mark.rlrates(n=-0.5, suite=['garnet'])", "`suite`: unknown suite selector 'garnet'"),
     "test_bad_budget": ("@pytest.mark.rlrates(n=-0.5, budget='slow')", "unknown `budget` 'slow'"),
 }

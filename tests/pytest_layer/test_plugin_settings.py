@@ -74,7 +74,7 @@ def test_fixtures_and_marker_are_documented(project: pytest.Pytester) -> None:
     assert re.search(r"^rlrates -- .*plugin[/\\]__init__\.py:\d+\n    Check an estimator's error rate: ", fixtures, re.M)
     assert re.search(r"^rlrates_mdp -- .*\n    One MDP of the rlrates suite; a test that asks for it runs once", fixtures, re.M)
     markers = project.runpytest("--markers").stdout.str()
-    assert "@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, target=None, budget=None, suite=None, " in markers
+    assert "@pytest.mark.rlrates(claim=None, *, n=None, horizon=None, coverage=None, target=None, budget=None, " in markers
 
 
 def test_disabling_the_plugin_leaves_other_tests_alone(project: pytest.Pytester) -> None:

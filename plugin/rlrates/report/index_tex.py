@@ -120,9 +120,11 @@ def _tex_exponent(record: Mapping[str, Any], factor: Factor, shared: tuple[float
         return r"exact (zero error)\newline " + limit
     if not found.measured:
         return r"not measurable\newline " + limit
-    bounds = r"\mbox{[" + _tex_number(found.low) + r",\," + _tex_number(found.high) + "]}"
+    # the bounds may break after the comma: three exponent columns (n, H and C) share one paper column
+    bounds = r"\mbox{[" + _tex_number(found.low) + r",}\allowbreak\hspace{0.17em}\mbox{" + _tex_number(found.high) + "]}"
     levels = "" if shared == _levels(found) else (
-        r" \mbox{at " + latex_escape(f"{percent(found.low_level)}/{percent(found.high_level)}") + "}")
+        r" \mbox{at " + latex_escape(f"{percent(found.low_level)}/") + r"}\allowbreak\mbox{"
+        + latex_escape(percent(found.high_level)) + "}")
     return _tex_number(found.exponent) + " " + bounds + levels + r"\newline " + limit
 
 
