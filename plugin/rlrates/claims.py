@@ -13,7 +13,10 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass
 
-__all__ = ["Claim"]
+__all__ = ["Claim", "MAX_EXPONENT"]
+
+#: The largest claimed exponent in absolute value (the report format refuses steeper ones too).
+MAX_EXPONENT = 100.0
 
 
 def _exponent(value: object, name: str) -> float | None:
@@ -27,6 +30,9 @@ def _exponent(value: object, name: str) -> float | None:
         raise TypeError(f"`{name}` exponent must be a number or None, got {value!r}") from None
     if not math.isfinite(number):
         raise ValueError(f"`{name}` exponent must be finite, got {number!r}")
+    if abs(number) > MAX_EXPONENT:
+        raise ValueError(f"`{name}` exponent must lie in [-{MAX_EXPONENT:g}, {MAX_EXPONENT:g}] (a rate claim, as "
+                         f"reports read it back), got {number:g}")
     return number
 
 

@@ -630,6 +630,7 @@ CATALOGUE = [
          r"`label` must be a non-empty string, got ' '"),
     Case("figure-width", lambda: _figure_width("wide"), r"figure width 'wide' must be 'column', 'page' or a number of inches"),
     Case("index-columns", lambda: _index_columns(["check", "time"]), r"index columns 'time' unknown; choose from check, test"),
+    Case("claim-too-steep", lambda: rlrates.Claim(n=-400.0), r"`n` exponent must lie in \[-100, 100\]"),
     Case("data-unknown", _check_with(data="offline"), r"unknown `data` 'offline'; choose one of generative, transitions, "
          r"trajectories"),
     Case("behaviour-generative", _check_with(behaviour=np.full((6, 2), 0.5)),

@@ -266,7 +266,9 @@ CORRUPTIONS = {
     "infinite claim": (lambda f: (f / "check.json").write_text(json.dumps({**load(f), "claim": {**load(f)["claim"], "n": "BIG"}}).replace(
                        '"BIG"', "-1e400")), r"check\.json: claim\.n is -inf; a claimed n-exponent is a negative number"),
     "no claim": (_edit_json(lambda r: r["claim"].update(n=None, horizon=None)),
-                 r"check\.json: claim is .*; a claim has an n-exponent, an H-exponent or both"),
+                 r"check\.json: claim is .*; a claim has an n-, an H- or a C-exponent"),
+    "coverage claim text": (_edit_json(lambda r: r["claim"].update(coverage="half")),
+                            r"check\.json: claim\.coverage is 'half'; a claimed C-exponent is a number from -100"),
     "fit claims another": (_edit_json(lambda r: r["fits"][0].update(claimed=-1.0)),
                            r"check\.json: fits\[0\]\.claimed is -1\.0; it must be the claim's n-exponent, -0\.5"),
     "fit exponent huge": (_edit_json(lambda r: r["fits"][0].update(exponent=1e308)),

@@ -53,6 +53,7 @@ from datetime import datetime, timedelta, timezone
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from ..claims import MAX_EXPONENT as CLAIM_MAX_EXPONENT
 from ..result import FIT_KEYS, Fit
 from ..vocabulary import ERROR_COLUMNS, FAILURE_KINDS, NORMS, STATUSES, SUBTEST_NAMES, TARGETS, Factor
 from .files import ERRORS_FILE, ReportError, read_text
@@ -72,7 +73,7 @@ SCHEMA = "rlrates-check/3"
 
 #: Largest size of a claimed or fitted exponent a record may hold (a figure draws n^exponent
 #: over the grid, which stays within float64 up to here).
-MAX_EXPONENT = 100.0
+MAX_EXPONENT = CLAIM_MAX_EXPONENT
 
 _NUMBER = (int, float)
 _OPTIONAL_NUMBER = (int, float, type(None))
@@ -277,8 +278,13 @@ def _check_claim(path: Path, record: Mapping[str, Any]) -> None:
     if horizon is not None and not -MAX_EXPONENT <= horizon <= MAX_EXPONENT:
         _refuse(path, "claim.horizon", horizon, f"a claimed H-exponent is a number from -{MAX_EXPONENT:g} to "
                 f"{MAX_EXPONENT:g}, or null")
-    if n is None and horizon is None:
-        _refuse(path, "claim", record["claim"], "a claim has an n-exponent, an H-exponent or both")
+    coverage = record["claim"].get("coverage")  # records of checks before the coverage factor have no such key
+    if coverage is not None and (isinstance(coverage, bool) or not isinstance(coverage, (int, float))
+                                 or not -MAX_EXPONENT <= coverage <= MAX_EXPONENT):
+        _refuse(path, "claim.coverage", coverage, f"a claimed C-exponent is a number from -{MAX_EXPONENT:g} to "
+                f"{MAX_EXPONENT:g}, or null")
+    if n is None and horizon is None and coverage is None:
+        _refuse(path, "claim", record["claim"], "a claim has an n-, an H- or a C-exponent")
     for i, fit in enumerate(record["fits"]):
         for key in ("exponent", "claimed"):
             if fit[key] is not None and not -MAX_EXPONENT <= fit[key] <= MAX_EXPONENT:
