@@ -144,3 +144,11 @@ def test_the_readme_logged_example_runs_and_prints_what_it_shows(capsys: pytest.
     exec(compile(block, "README.md", "exec"), {})
     shown = re.search(r"# (C .*)$", block, flags=re.MULTILINE)
     assert shown is not None and capsys.readouterr().out.strip() == shown.group(1)
+
+
+def test_the_value_target_works_on_the_generative_model_too(garnet: rlrates.TabularMDP) -> None:
+    from rlrates.reference_logged import logged_plugin_value
+
+    result = rlrates.check(logged_plugin_value, garnet, rlrates.Claim(n=-0.5), target="value", gammas=(0.5, 0.75))
+    assert result.status == "pass", result.message
+    assert result.budget.replicates == 4 * rlrates.BUDGETS["ci"].replicates  # a scalar's error: 4x the replicates
