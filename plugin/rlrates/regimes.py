@@ -42,8 +42,8 @@ from .sampling import SupportKernel
 from .targets import DataSpec, Truth
 from .vocabulary import DATA_REGIMES
 
-__all__ = ["validate_data", "regime_design", "logged_n_grid", "logged_truths", "logged_kernel", "plan_logged", "coverage_map",
-           "smallest_probability", "logged_notes", "COVERAGE_LEVELS"]
+__all__ = ["validate_data", "regime_design", "logged_n_grid", "logged_truths", "logged_kernel", "plan_logged",
+           "coverage_map", "smallest_probability", "logged_notes", "COVERAGE_LEVELS", "VALUE_REPLICATES"]
 
 #: Behaviour policies a coverage claim is fitted over (C doubling from one to the next).
 COVERAGE_LEVELS = 4
@@ -135,9 +135,9 @@ def logged_truths(truth: Truth, regime: str, behaviour: Any, episode_length: int
     settings = []
     for level, (policy, coverage) in enumerate(family):
         if not math.isfinite(coverage):
-            raise ValueError(f"the behaviour policy{' (level ' + str(level) + ')' if level else ''} never takes an "
-                             f"action the evaluation policy takes in {mdp.name}: the concentrability coefficient is "
-                             "infinite and no amount of such data identifies the target")
+            raise ValueError(f"the behaviour policy{' (level ' + str(level) + ')' if level else ''} never visits a "
+                             f"state-action pair that the evaluation policy visits in {mdp.name} (gamma={gamma:g}): the "
+                             "concentrability coefficient is infinite and no amount of such data identifies the target")
         spec = DataSpec(regime, policy, initial, length, distribution(policy), coverage, level)
         settings.append(Truth(mdp, gamma, truth.target, truth.policy, truth_value, truth.scale, data=spec))
     return settings

@@ -645,7 +645,8 @@ CATALOGUE = [
          r"`episode_length` must be a positive integer, got 0"),
     Case("behaviour-rows", _check_with(data="transitions", behaviour=np.full((6, 2), 0.7)), r"behaviour.*row"),
     Case("behaviour-never-covers", _check_with(data="transitions", behaviour=np.tile([0.0, 1.0], (6, 1))),
-         r"never takes an action the evaluation policy takes .* the concentrability coefficient is infinite"),
+         r"never visits a state-action pair that the evaluation policy visits .* the concentrability coefficient is "
+         r"infinite"),
     Case("value-not-a-number", lambda: _logged_value_message(lambda batch, problem: np.zeros(2)),
          r"the estimator returned shape \(2,\); return a float estimate of the value J\(pi\)"),
     Case("ground-truth-written", _ground_truth_written, r"changed during the check \(its fingerprint no longer matches"),
