@@ -19,6 +19,7 @@ import pandas as pd
 
 from .mdp import TabularMDP
 from .result import CellFailure
+from .logged import LoggedKernel, draw_logged_block
 from .sampling import SupportKernel, draw_block
 from .targets import Truth
 
@@ -37,14 +38,17 @@ def _as_array(value: Any) -> np.ndarray | None:
         return None
 
 
-def determinism_probe(estimator: Any, truth: Truth, kernel: SupportKernel, n: int, seed: int) -> str | None:
+def determinism_probe(estimator: Any, truth: Truth, kernel: SupportKernel | LoggedKernel, n: int,
+                      seed: int) -> str | None:
     """Call ``estimator`` twice on one batch; a sentence when the two estimates differ.
 
     The batch comes from a stream of its own, so the probe changes no number of
     the sweep. An estimator that raises here is left to the sweep, which reports
     the failure with its cell.
     """
-    batch = draw_block(kernel, n, 1, np.random.SeedSequence(seed, spawn_key=(_PROBE_KEY,)))[0]
+    stream = np.random.SeedSequence(seed, spawn_key=(_PROBE_KEY,))
+    batch: Any = (draw_logged_block(kernel, n, 1, stream) if isinstance(kernel, LoggedKernel)
+                  else draw_block(kernel, n, 1, stream))[0]
     problem = truth.problem()
     try:
         first = _as_array(estimator(batch, problem))
@@ -78,11 +82,13 @@ def deterministic_mdp(mdp: TabularMDP) -> str | None:
     )
 
 
-def run_probes(estimator: Any, target: str, truths: Mapping[float, Truth], kernels: Mapping[float, SupportKernel],
+def run_probes(estimator: Any, target: str, truths: Mapping[Any, Truth], kernels: Mapping[Any, Any],
                n: int, seed: int, executor: Executor | None) -> list[str]:
     """The sentences of the pre-sweep probes: a deterministic MDP, an estimator that is not a function of its batch.
 
-    With a process or cluster executor the determinism probe runs there, so an
+    ``truths`` and ``kernels`` share their keys (discounts, or (discount, behaviour)
+    for logged data); the probe uses the first. With a process or cluster executor
+    the determinism probe runs there, so an
     estimator that kills its process takes down a worker (which the sweep then
     reports by cell), never the session.
     """

@@ -251,6 +251,7 @@ def check(
     if regime != "generative":
         call, plan, probe_notes = _logged_plan(call, truths, kernels, context, behaviour, episode_length,
                                                n_grid is not None)
+        probe_notes += _probe(call, dict(plan.truths), dict(plan.kernels), executor)
     else:  # refuse a sweep whose counts cannot fit in memory before any is drawn (rlrates.costs)
         too_big = require_sweep_memory(next(iter(truths.values())).mdp, call.design.n_grid, call.design.replicates,
                                        call.design.gammas, getattr(executor, "_max_workers", 1) or 1)
@@ -292,7 +293,7 @@ def _logged_plan(call: _Call, truths: dict[float, Truth], kernels: dict[float, S
     settings, samplers = plan_logged(truths, kernels, call.data, behaviour, episode_length,
                                      COVERAGE_LEVELS if call.claim.coverage is not None else 1)
     plan = SweepPlan(call.estimator, settings, samplers, call.seed, context, call.norm, call.time_limit)
-    return call, plan, logged_notes(settings, behaviour is None)
+    return call, plan, logged_notes(settings, behaviour is None)  # the probes run on the plan (see check)
 
 
 def _validate(estimator: object, claim: object, target: object, norm: object, seed: object,
@@ -339,7 +340,7 @@ def _warn_design(call: _Call, own_grid: bool) -> None:
         )
 
 
-def _probe(call: _Call, truths: dict[float, Truth], kernels: dict[float, SupportKernel],
+def _probe(call: _Call, truths: dict[Any, Truth], kernels: dict[Any, Any],
            executor: Executor | None) -> list[str]:
     """Warn (and note) when the estimator is not a function of its batch or the MDP cannot test a rate."""
     notes = run_probes(call.estimator, call.target, truths, kernels, call.design.n_grid[0], call.seed, executor)

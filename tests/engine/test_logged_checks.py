@@ -152,3 +152,16 @@ def test_the_value_target_works_on_the_generative_model_too(garnet: rlrates.Tabu
     result = rlrates.check(logged_plugin_value, garnet, rlrates.Claim(n=-0.5), target="value", gammas=(0.5, 0.75))
     assert result.status == "pass", result.message
     assert result.budget.replicates == 4 * rlrates.BUDGETS["ci"].replicates  # a scalar's error: 4x the replicates
+
+
+def test_an_estimator_that_is_not_a_function_of_its_logged_batch_is_warned_about(garnet: rlrates.TabularMDP) -> None:
+    """The determinism probe runs on a logged batch too (common practice: a rerun must reproduce the table)."""
+    noisy = np.random.default_rng(5)
+
+    def jittery(batch: Any, problem: Any) -> np.ndarray:
+        return logged_plugin_q_pi(batch, problem) + 1e-6 * noisy.random((problem.states, problem.actions))
+
+    with pytest.warns(rlrates.RatesWarning, match="not a function of its batch"):
+        result = rlrates.check(jittery, garnet, rlrates.Claim(n=-0.5), data="transitions", gammas=(0.5, 0.6),
+                               n_grid=(800, 1600, 3200), replicates=4)
+    assert any("not a function of its batch" in note for note in result.notes)
