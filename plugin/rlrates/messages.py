@@ -61,7 +61,8 @@ _ASSUMED = {
 
 
 def format_message(result: CheckResult) -> str:
-    lines = [headline(result), f"claimed:   {result.claim.describe()}  ({result.norm}-norm error)"]
+    measured = "absolute error of J(pi)" if result.target == "value" else f"{result.norm}-norm error"
+    lines = [headline(result), f"claimed:   {result.claim.describe()}  ({measured})"]
     if result.failure is not None:
         lines.append(f"why:       {result.failure.describe()}")
         lines.append(f"           {len(result.table)} replicate(s) finished before it and are kept in the table")

@@ -74,6 +74,7 @@ _ERROR_LABELS = {
     "q_star": "error of $Q^*$",
     "policy": "suboptimality",
     "model": "$L_1$ error of the model",
+    "value": "absolute error of $J(\\pi)$",
 }
 _NORM_WORDS = {"sup": "sup-norm", "mean": "mean"}
 
@@ -141,6 +142,8 @@ def _size(matplotlib: ModuleType, width: float | None) -> tuple[float, float]:
 
 def _y_label(record: Mapping[str, Any]) -> str:
     norm, target = str(record["norm"]), str(record["target"])
+    if target == "value":  # one number: no norm over pairs
+        return _ERROR_LABELS[target]
     return f"{_NORM_WORDS.get(norm, norm)} {_ERROR_LABELS.get(target, 'error')}"
 
 
