@@ -269,7 +269,7 @@ def check(
         extras = {"norm": norm if norm != "sup" else None, "n_grid": n_grid, "gammas": gammas,
                   "replicates": replicates, "context": context or None, "time_limit": time_limit,
                   "zero_level": zero_level, "data": regime if regime != "generative" else None,
-                  "behaviour": "<the behaviour given>" if behaviour is not None else None,
+                  "behaviour": _Given("<the behaviour given>") if behaviour is not None else None,
                   "episode_length": episode_length}
         mdp_call = rebuild_call(metadata) or f"<the MDP {name!r}: not rebuildable from its metadata, build it as before>"
         reproducer = _reproducer(call, mdp_call, policy is not None, extras)
@@ -347,6 +347,13 @@ def _probe(call: _Call, truths: dict[Any, Truth], kernels: dict[Any, Any],
     for note in notes:
         warnings.warn(note, RatesWarning, stacklevel=3)
     return notes
+
+
+class _Given(str):
+    """A placeholder shown as is in a reproducer (an array the call was given cannot be written out)."""
+
+    def __repr__(self) -> str:
+        return str(self)
 
 
 def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str, Any]) -> str:
