@@ -96,16 +96,13 @@ class LoggedKernel:
         """Whole episodes in n transitions (trajectories); at least one."""
         return max(1, n // self.length)
 
-    def shape(self, n: int) -> tuple[int, ...]:
-        """The shape of one batch's data arrays."""
-        return (n,) if self.regime == "transitions" else (self.episodes(n), self.length)
-
     def sample(self, rng: np.random.Generator, n: int, replicates: int) -> tuple[IntArray, IntArray, IntArray]:
-        """States, actions and next states of ``replicates`` batches, each (replicates, *shape(n))."""
-        S, A = self.states, self.actions
-        support = self.next_states.support
+        """States, actions and next states of ``replicates`` batches: (replicates, n) for transitions,
+        (replicates, episodes, L) for trajectories."""
         if self.regime == "transitions":
             return self._transitions(rng, n, replicates)
+        A = self.actions
+        support = self.next_states.support
         episodes = self.episodes(n)
         states = np.empty((replicates, episodes, self.length), dtype=np.int64)
         actions = np.empty_like(states)
@@ -126,13 +123,7 @@ class LoggedKernel:
         S, A = self.states, self.actions
         kernel = self.next_states
         pairs = rng.multinomial(n, self.pair_probs, size=replicates)  # (R, S*A)
-        left = pairs.copy()
-        width = kernel.support.shape[1]
-        drawn = np.empty((replicates, S * A, width), dtype=np.int64)
-        for j in range(width - 1):  # one binomial call per support column, whatever n
-            drawn[:, :, j] = rng.binomial(left, kernel.conditional[:, j])
-            left -= drawn[:, :, j]
-        drawn[:, :, -1] = left
+        drawn = kernel.sample_support(rng, pairs, replicates)  # each pair's successors, given its count
         codes = (np.arange(S * A)[:, None] * S + kernel.support).ravel()  # pair * S + successor
         ordered = np.repeat(np.tile(codes, replicates), drawn.ravel()).reshape(replicates, n)
         shuffled = rng.permuted(ordered, axis=1)
@@ -155,6 +146,7 @@ class LoggedBatch:
         self._actions = frozen(actions)
         self._next = frozen(next_states)
         self._counts: Any = None
+        self._visits: IntArray | None = None
         self._rewards: np.ndarray | None = None
 
     @property
@@ -220,8 +212,11 @@ class LoggedBatch:
     @property
     def visits(self) -> IntArray:
         """How often each pair (s, a) was logged, (S, A); zero for the pairs the data never visit."""
-        S, A = self._kernel.states, self._kernel.actions
-        return frozen(np.bincount((self._states * A + self._actions).ravel(), minlength=S * A).reshape(S, A), copy=False)
+        if self._visits is None:
+            S, A = self._kernel.states, self._kernel.actions
+            pairs = (self._states * A + self._actions).ravel()
+            self._visits = frozen(np.bincount(pairs, minlength=S * A).reshape(S, A), copy=False)
+        return self._visits
 
     def __repr__(self) -> str:
         shape = "x".join(str(d) for d in self._states.shape)

@@ -290,6 +290,9 @@ def _logged_plan(call: _Call, truths: dict[float, Truth], kernels: dict[float, S
     if not own_grid:  # n counts transitions: the budget's samples per pair times S A
         grid = logged_n_grid(call.design.n_grid, next(iter(truths.values())).mdp)
         call = dataclasses.replace(call, design=dataclasses.replace(call.design, n_grid=grid))
+    if episode_length is not None and episode_length > min(call.design.n_grid):
+        raise ValueError(f"`episode_length` {episode_length} is longer than the smallest n of the grid, "
+                         f"{min(call.design.n_grid)} transitions: every cell must hold at least one whole episode")
     settings, samplers = plan_logged(truths, kernels, call.data, behaviour, episode_length,
                                      COVERAGE_LEVELS if call.claim.coverage is not None else 1)
     plan = SweepPlan(call.estimator, settings, samplers, call.seed, context, call.norm, call.time_limit)

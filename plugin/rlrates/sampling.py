@@ -111,16 +111,17 @@ class SupportKernel:
         rows = self.support.shape[0]
         object.__setattr__(self, "scatter", (self.support + self.states * np.arange(rows)[:, None]).ravel())
 
-    def sample_support(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
+    def sample_support(self, rng: np.random.Generator, n: int | IntArray, replicates: int = 1) -> IntArray:
         """Counts on the support of ``replicates`` independent draws, shape (replicates, S*A, k).
 
         Multinomial by the chain of conditional binomials (each successor's count
         given the ones before it), vectorised over replicates and rows: one
         ``Generator.binomial`` call per support column, whatever n and replicates.
-        Column j of row i counts successor ``support[i, j]``.
+        Column j of row i counts successor ``support[i, j]``. ``n`` is the number
+        of samples of every row, or a (replicates, S*A) array of each row's own.
         """
         rows, width = self.probs.shape
-        left = np.full((replicates, rows), n, dtype=np.int64)
+        left = np.array(np.broadcast_to(n, (replicates, rows)), dtype=np.int64)
         drawn = np.empty((replicates, rows, width), dtype=np.int64)
         for j in range(width - 1):
             drawn[:, :, j] = rng.binomial(left, self.conditional[:, j])

@@ -643,6 +643,8 @@ CATALOGUE = [
          r"`episode_length` needs data='trajectories'"),
     Case("episode-length-zero", _check_with(data="trajectories", episode_length=0),
          r"`episode_length` must be a positive integer, got 0"),
+    Case("episode-length-too-long", _check_with(data="trajectories", episode_length=10**9),
+         r"`episode_length` 1000000000 is longer than the smallest n of the grid, 128 transitions"),
     Case("behaviour-rows", _check_with(data="transitions", behaviour=np.full((6, 2), 0.7)), r"behaviour.*row"),
     Case("behaviour-never-covers", _check_with(data="transitions", behaviour=np.tile([0.0, 1.0], (6, 1))),
          r"never visits a state-action pair that the evaluation policy visits .* the concentrability coefficient is "

@@ -284,7 +284,7 @@ def test_a_coverage_check_draws_error_against_c_and_rebuilds_from_its_files(tmp_
     import rlrates
     from rlrates.reference_logged import logged_plugin_q_pi
     from rlrates.report.checks import read_check, write_check
-    from rlrates.report.panels import coverage_points
+    from rlrates.report.figure_data import coverage_points
 
     mdp = rlrates.garnet(states=6, actions=2, branching=2, seed=1)
     result = rlrates.check(logged_plugin_q_pi, mdp, rlrates.Claim(n=-0.5, coverage=0.5), data="transitions",

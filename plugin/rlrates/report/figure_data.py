@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-__all__ = ["NOT_DECIDED", "cell_points", "discount_slopes", "horizon_points"]
+__all__ = ["NOT_DECIDED", "cell_points", "discount_slopes", "horizon_points", "coverage_points"]
 
 #: Why a cell of the table is not among the record's cells: no decision covered it.
 NOT_DECIDED = "no verdict (the check stopped)"
@@ -53,16 +53,29 @@ def discount_slopes(record: Mapping[str, Any]) -> dict[float, float | None]:
     return slopes
 
 
-def _largest_common_n(cells: pd.DataFrame, discounts: int) -> pd.DataFrame:
-    """The cells at the largest n that ``discounts`` discounts reached (empty if there is none)."""
+def _largest_common_n(cells: pd.DataFrame, discounts: int, across: str = "gamma") -> pd.DataFrame:
+    """The cells at the largest n that ``discounts`` values of ``across`` (discounts, or behaviour levels)
+    reached, sorted by ``across`` (empty if there is none)."""
     if not len(cells):
         return cells
-    reached = cells.groupby("n")["gamma"].nunique()
+    reached = cells.groupby("n")[across].nunique()
     common = reached[reached == discounts].index
     if not len(common):
         return cells.iloc[:0]
-    chosen: pd.DataFrame = cells[cells["n"] == common.max()].sort_values("gamma")
+    chosen: pd.DataFrame = cells[cells["n"] == common.max()].sort_values(across)
     return chosen
+
+
+def coverage_points(table: pd.DataFrame) -> pd.DataFrame:
+    """Per behaviour level at the largest n where every level has a positive mean error (the first discount):
+    C, replicates, mean and the standard error of the mean."""
+    first = table[table["gamma"] == table["gamma"].min()]
+    grouped = first.groupby(["n", "behaviour"], sort=True)
+    cells = grouped["error"].agg(replicates="count", mean="mean", sd="std").reset_index()
+    cells["C"] = grouped["C"].first().to_numpy()
+    cells["se"] = cells["sd"].fillna(0.0) / np.sqrt(cells["replicates"])
+    chosen = _largest_common_n(cells[cells["mean"] > 0], cells["behaviour"].nunique(), "behaviour")
+    return chosen.sort_values("C")
 
 
 def horizon_points(cells: pd.DataFrame) -> tuple[pd.DataFrame, bool]:

@@ -30,13 +30,13 @@ import pandas as pd
 from ..fit_words import percent
 from ..vocabulary import Factor
 from .axes import NOTE_COLOUR, empty_panel, finish_log_axes
-from .figure_data import discount_slopes, horizon_points
+from .figure_data import coverage_points, discount_slopes, horizon_points
 from .schema import record_fit
 
 if TYPE_CHECKING:  # pragma: no cover
     from matplotlib.axes import Axes
 
-__all__ = ["Style", "panel_n", "panel_horizon", "panel_coverage", "coverage_points"]
+__all__ = ["Style", "panel_n", "panel_horizon", "panel_coverage"]
 
 #: Colour and marker shape per discount.
 Style = dict[float, tuple[str, str]]
@@ -214,24 +214,6 @@ def panel_horizon(ax: "Axes", cells: pd.DataFrame, record: Mapping[str, Any], st
         handles.append(line([], [], **_OPEN_MARKER, label="(b) open: not in an H-fit"))
     finish_log_axes(ax, h, np.concatenate(shown), ticker)
     return handles
-
-
-def coverage_points(table: pd.DataFrame) -> pd.DataFrame:
-    """Per behaviour level at the largest n where every level has a positive mean error (the first discount):
-    C, replicates, mean and the standard error of the mean."""
-    first = table[table["gamma"] == table["gamma"].min()]
-    grouped = first.groupby(["n", "behaviour"], sort=True)
-    cells = grouped["error"].agg(replicates="count", mean="mean", sd="std").reset_index()
-    cells["C"] = grouped["C"].first().to_numpy()
-    cells["se"] = cells["sd"].fillna(0.0) / np.sqrt(cells["replicates"])
-    levels = cells["behaviour"].nunique()
-    positive = cells[cells["mean"] > 0]
-    reached = positive.groupby("n")["behaviour"].nunique()
-    common = reached[reached == levels].index
-    if not len(common):
-        return cells.iloc[:0]
-    chosen: pd.DataFrame = positive[positive["n"] == common.max()].sort_values("C")
-    return chosen
 
 
 def panel_coverage(ax: "Axes", table: pd.DataFrame, record: Mapping[str, Any], ticker: ModuleType,
