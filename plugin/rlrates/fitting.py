@@ -15,11 +15,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
-import pandas as pd
 from numpy.typing import ArrayLike
 from scipy import special
+
+from .columns import Columns, group_rows, group_stats
 
 __all__ = ["Slope", "fit_slope", "fit_cells", "pooled_slope", "summarise_cells", "DiscountFit", "fit_discounts",
            "HorizonFit", "fit_horizon", "CoverageFit", "fit_coverage"]
@@ -83,12 +85,12 @@ def pooled_slope(slopes: list[Slope]) -> Slope:
     return Slope(estimate, se, min(s.df for s in slopes), sum(s.points for s in slopes))
 
 
-def _df(cells: pd.DataFrame) -> float:
-    return float(max(cells["replicates"].min() - 1, 1))
+def _df(cells: Columns) -> float:
+    return float(max(int(cells["replicates"].min()) - 1, 1))
 
 
-def fit_cells(cells: pd.DataFrame, x_column: str = "n") -> Slope:
-    x = np.log(cells[x_column].to_numpy(float))
+def fit_cells(cells: Columns, x_column: str = "n") -> Slope:
+    x = np.log(np.asarray(cells[x_column], dtype=float))
     return fit_slope(x, cells["log_mean"], cells["log_var"], _df(cells))
 
 
@@ -102,11 +104,12 @@ class DiscountFit:
     steepening: Slope  # upper-part slope minus lower-part slope
 
 
-def fit_discounts(cells: pd.DataFrame, gammas: list[float], window: int) -> tuple[pd.DataFrame, list[DiscountFit]]:
+def fit_discounts(cells: Columns, gammas: list[float], window: int) -> tuple[list[dict[str, object]],
+                                                                              list[DiscountFit]]:
     """Per discount, the n-slopes over the ``window`` largest fitted cells.
 
     ``cells`` are the usable cells (asymptotic, not saturated) of the discounts ``gammas``. Returns the slopes
-    table (one row per discount: gamma, H, points, state, and for fitted discounts
+    rows (one per discount: gamma, H, points, state, and for fitted discounts
     n_min, n_max, slope, slope_se, upper_slope, upper_se) and the fitted discounts.
     ``state`` is "fitted", "vanished" (zero error at the largest n) or "too few
     asymptotic points" (under 3 non-zero cells).
@@ -114,22 +117,23 @@ def fit_discounts(cells: pd.DataFrame, gammas: list[float], window: int) -> tupl
     rows: list[dict[str, object]] = []
     fitted: list[DiscountFit] = []
     for gamma in gammas:
-        window_cells = cells[cells["gamma"] == gamma].sort_values("n").tail(window)
+        own = cells[cells["gamma"] == gamma].sort("n")
+        window_cells = own[max(len(own) - window, 0):]
         row: dict[str, object] = {"gamma": gamma, "H": 1.0 / (1.0 - gamma), "points": len(window_cells)}
         positive = window_cells[~window_cells["zero"]]
-        if len(window_cells) and bool(window_cells["zero"].iloc[-1]):
+        if len(window_cells) and bool(window_cells["zero"][-1]):
             row["state"] = "vanished"
         elif len(positive) < 3:
             row["state"] = "too few asymptotic points"
         else:
             k = max(3, math.ceil(len(positive) / 2))
-            whole, upper, lower = fit_cells(positive), fit_cells(positive.tail(k)), fit_cells(positive.head(k))
+            whole, upper, lower = fit_cells(positive), fit_cells(positive[len(positive) - k:]), fit_cells(positive[:k])
             fitted.append(DiscountFit(float(gamma), whole, upper, Slope(
                 upper.estimate - lower.estimate, math.hypot(upper.se, lower.se), upper.df, k)))
             row.update(state="fitted", n_min=int(positive["n"].min()), n_max=int(positive["n"].max()),
                        slope=whole.estimate, slope_se=whole.se, upper_slope=upper.estimate, upper_se=upper.se)
         rows.append(row)
-    return pd.DataFrame(rows), fitted
+    return rows, fitted
 
 
 @dataclass(frozen=True)
@@ -145,7 +149,17 @@ class HorizonFit:
     left_out: dict[float, str]
 
 
-def fit_horizon(cells: pd.DataFrame, gammas: list[float]) -> HorizonFit:
+def _common(kept: Columns, by: list[str], what: str, measured: list[Any]) -> list[tuple[Any, ...]]:
+    """The values of ``by`` at which every one of ``measured`` (values of column ``what``) has a row."""
+    if not len(kept):
+        return []
+    groups = group_rows(kept, by)
+    pairs = group_rows(kept, [*by, what])  # distinct (by..., what) combinations
+    per = group_rows(pairs.keys, by).counts
+    return [tuple(groups.keys[name][i].item() for name in by) for i in np.flatnonzero(per == len(measured))]
+
+
+def fit_horizon(cells: Columns, gammas: list[float]) -> HorizonFit:
     """The H-exponent over the discounts where it is measurable, pooled over their common n.
 
     ``cells`` are the usable cells. A discount is measurable when it has at least
@@ -157,19 +171,18 @@ def fit_horizon(cells: pd.DataFrame, gammas: list[float]) -> HorizonFit:
     positive = cells[~cells["zero"]]
     left_out: dict[float, str] = {}
     for gamma in gammas:
-        if not len(cells[cells["gamma"] == gamma]):
+        if not (cells["gamma"] == gamma).any():
             left_out[gamma] = "no usable cell (pre-asymptotic or saturated at every n)"
-        elif not len(positive[positive["gamma"] == gamma]):
+        elif not (positive["gamma"] == gamma).any():
             left_out[gamma] = "zero error at every usable n"
     measured = [g for g in gammas if g not in left_out]
     if len(measured) < 2:
         return HorizonFit(None, (), tuple(measured), left_out)
-    kept = positive[positive["gamma"].isin(measured)]
-    counts = kept.groupby("n")["gamma"].nunique()
-    common = sorted(int(n) for n in counts[counts == len(measured)].index)
+    kept = positive[np.isin(positive["gamma"], measured)]
+    common = sorted(int(n) for (n,) in _common(kept, ["n"], "gamma", measured))
     if not common:
         return HorizonFit(None, (), tuple(measured), left_out)
-    slopes = [fit_cells(kept[kept["n"] == n].sort_values("gamma"), "H") for n in common]
+    slopes = [fit_cells(kept[kept["n"] == n].sort("gamma"), "H") for n in common]
     return HorizonFit(pooled_slope(slopes), tuple(common), tuple(measured), left_out)
 
 
@@ -187,30 +200,31 @@ class CoverageFit:
     left_out: dict[int, str]
 
 
-def fit_coverage(cells: pd.DataFrame) -> CoverageFit:
+def fit_coverage(cells: Columns) -> CoverageFit:
     """The C-exponent: per (gamma, n), the least-squares slope of log mean error on log C over the behaviour levels.
 
     ``cells`` are the usable cells of every level (columns gamma, behaviour, C, n,
     zero, log_mean, log_var, replicates). Slopes at different (gamma, n) use
     disjoint cells, so their mean has the variance of a mean of independent slopes.
     """
-    levels = sorted(int(b) for b in cells["behaviour"].unique()) if len(cells) else []
-    coverage = {int(b): float(c) for b, c in cells.drop_duplicates("behaviour")[["behaviour", "C"]].to_numpy()}
+    behaviours = np.asarray(cells["behaviour"], dtype=np.int64) if len(cells) else np.zeros(0, np.int64)
+    levels = sorted(int(b) for b in np.unique(behaviours))
+    first = {int(b): i for i, b in reversed(list(enumerate(behaviours)))}
+    coverage = {level: float(cells["C"][first[level]]) for level in sorted(first, key=first.__getitem__)}
     positive = cells[~cells["zero"]]
     left_out = {level: "zero error or no usable cell at every n" for level in levels
-                if not len(positive[positive["behaviour"] == level])}
+                if not (positive["behaviour"] == level).any()}
     measured = [level for level in levels if level not in left_out]
     if len(measured) < 2:
         return CoverageFit(None, (), coverage, left_out)
-    kept = positive[positive["behaviour"].isin(measured)]
-    counts = kept.groupby(["gamma", "n"])["behaviour"].nunique()
-    common = sorted((float(g), int(n)) for g, n in counts[counts == len(measured)].index)
+    kept = positive[np.isin(positive["behaviour"], measured)]
+    common = sorted((float(g), int(n)) for g, n in _common(kept, ["gamma", "n"], "behaviour", measured))
     if not common:
         return CoverageFit(None, (), coverage, left_out)
     slopes = []
     for gamma, n in common:
-        at = kept[(kept["gamma"] == gamma) & (kept["n"] == n)].sort_values("C")
-        if at["C"].nunique() < 2:
+        at = kept[(kept["gamma"] == gamma) & (kept["n"] == n)].sort("C")
+        if len(np.unique(at["C"])) < 2:
             continue
         slopes.append(fit_cells(at, "C"))
     if not slopes:
@@ -218,10 +232,12 @@ def fit_coverage(cells: pd.DataFrame) -> CoverageFit:
     return CoverageFit(pooled_slope(slopes), tuple(common), coverage, left_out)
 
 
-def summarise_cells(table: pd.DataFrame, zero_tolerance: dict[float, float] | None = None,
-                    exact_tolerance: dict[float, float] | None = None) -> pd.DataFrame:
+def summarise_cells(table: Columns | Any, zero_tolerance: dict[float, float] | None = None,
+                    exact_tolerance: dict[float, float] | None = None) -> Columns:
     """Per (gamma, n): replicates, mean, median and sd of the error, log mean and its delta-method variance.
 
+    For logged data (a ``behaviour`` column) per (gamma, behaviour, C, n). ``table``
+    is the error table (:class:`~rlrates.columns.Columns`, or a DataFrame).
     ``zero_tolerance`` maps gamma to the mean error at or below which a cell counts
     as zero (floating-point noise of an exact estimator, or the user's zero
     level). With ``exact_tolerance`` a cell also needs most of its replicates
@@ -229,19 +245,25 @@ def summarise_cells(table: pd.DataFrame, zero_tolerance: dict[float, float] | No
     all slightly wrong is not zero. ``constant`` marks non-zero cells whose
     replicates all gave the same error.
     """
-    keys = ["gamma", "behaviour", "C", "n"] if "behaviour" in table.columns else ["gamma", "n"]
-    grouped = table.groupby(keys, sort=True)["error"]
-    summary = grouped.agg(replicates="count", mean="mean", median="median", sd="std", high="max",
-                          low="min").reset_index()
-    summary["sd"] = summary["sd"].fillna(0.0)
-    summary["H"] = 1.0 / (1.0 - summary["gamma"])
-    tolerance = summary["gamma"].map(zero_tolerance or {}).fillna(0.0)
-    summary["zero"] = summary["mean"] <= tolerance
+    table = Columns.of(table)
+    keys = ["gamma", "behaviour", "C", "n"] if "behaviour" in table else ["gamma", "n"]
+    groups = group_rows(table, keys, within="error")
+    stats = group_stats(table["error"], groups)
+    gamma = np.asarray(groups.keys["gamma"], dtype=float)
+    mean, replicates = stats["mean"], stats["count"]
+    tolerance = np.array([(zero_tolerance or {}).get(g, 0.0) for g in gamma.tolist()], dtype=float)
+    zero = mean <= tolerance
     if exact_tolerance is not None:
-        summary["zero"] &= summary["median"] <= summary["gamma"].map(exact_tolerance).fillna(0.0)
-    summary["constant"] = ~summary["zero"] & (summary["replicates"] > 1) & (summary["high"] == summary["low"])
-    positive = ~summary["zero"]
-    summary["log_mean"] = np.where(positive, np.log(summary["mean"].where(positive, 1.0)), -np.inf)
-    rel = summary["sd"] / summary["mean"].where(positive, 1.0)
-    summary["log_var"] = np.where(positive, rel**2 / summary["replicates"], 0.0)
-    return summary
+        zero &= stats["median"] <= np.array([exact_tolerance.get(g, 0.0) for g in gamma.tolist()], dtype=float)
+    constant = ~zero & (replicates > 1) & (stats["high"] == stats["low"])
+    positive = ~zero
+    safe_mean = np.where(positive, mean, 1.0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        log_mean = np.where(positive, np.log(safe_mean), -np.inf)
+        rel = stats["sd"] / safe_mean
+    log_var = np.where(positive, rel**2 / replicates, 0.0)
+    data = {name: groups.keys[name] for name in keys}
+    data.update(replicates=replicates, mean=mean, median=stats["median"], sd=stats["sd"], high=stats["high"],
+                low=stats["low"], H=1.0 / (1.0 - gamma), zero=zero, constant=constant, log_mean=log_mean,
+                log_var=log_var)
+    return Columns(data, len(groups))

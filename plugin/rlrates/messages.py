@@ -7,8 +7,9 @@ from __future__ import annotations
 
 import math
 
-import pandas as pd
+import numpy as np
 
+from .columns import Columns, group_rows, group_stats
 from .result import CheckResult
 
 __all__ = ["format_message", "headline", "mean_error_grid", "format_interval"]
@@ -40,17 +41,31 @@ def format_interval(exponent: float, low: float, high: float) -> str:
     return f"{exponent:+.3f} [{low:+.3f}, {high:+.3f}]"
 
 
-def mean_error_grid(table: pd.DataFrame) -> pd.DataFrame:
-    """Mean error per n (rows) and gamma (columns)."""
+def mean_error_grid(table: Columns) -> list[str]:
+    """Mean error per n (rows) and gamma (columns; for a coverage sweep per gamma and C), as aligned text lines."""
+    table = Columns.of(table)
     if not len(table):
-        return pd.DataFrame()
-    if "behaviour" in table.columns and table["behaviour"].nunique() > 1:  # a coverage sweep: one column per C
-        grid = table.pivot_table(index="n", columns=["gamma", "C"], values="error", aggfunc="mean")
-        grid.columns = [f"gamma={pair[0]:g} C={pair[1]:.3g}" for pair in list(grid.columns)]
-        return grid
-    grid = table.pivot_table(index="n", columns="gamma", values="error", aggfunc="mean")
-    grid.columns = [f"gamma={g:g}" for g in grid.columns]
-    return grid
+        return []
+    coverage = "behaviour" in table and len(np.unique(table["behaviour"])) > 1
+    across = ["gamma", "C"] if coverage else ["gamma"]
+    groups = group_rows(table, [*across, "n"])
+    means = group_stats(table["error"], groups)["mean"]
+    keys = groups.keys
+    columns = group_rows(keys, across).keys
+    labels = [f"gamma={g:g} C={c:.3g}" if coverage else f"gamma={g:g}"
+              for g, c in zip(columns["gamma"].tolist(), (columns["C"] if coverage else columns["gamma"]).tolist())]
+    ns = np.unique(keys["n"]).tolist()
+    column_of = {tuple(columns[name][i].item() for name in across): i for i in range(len(columns))}
+    cells = [["-"] * len(labels) for _ in ns]
+    row_of = {n: i for i, n in enumerate(ns)}
+    for i in range(len(keys)):
+        where = column_of[tuple(keys[name][i].item() for name in across)]
+        cells[row_of[keys["n"][i].item()]][where] = f"{means[i]:.4g}"
+    widths = [max(len(label), *(len(row[j]) for row in cells)) for j, label in enumerate(labels)]
+    first = max(len("n"), *(len(str(n)) for n in ns))
+    lines = [f"{'n':>{first}}  " + "  ".join(f"{label:>{w}}" for label, w in zip(labels, widths))]
+    lines += [f"{n:>{first}}  " + "  ".join(f"{value:>{w}}" for value, w in zip(row, widths)) for n, row in zip(ns, cells)]
+    return lines
 
 
 _ASSUMED = {
@@ -65,7 +80,7 @@ def format_message(result: CheckResult) -> str:
     lines = [headline(result), f"claimed:   {result.claim.describe()}  ({measured})"]
     if result.failure is not None:
         lines.append(f"why:       {result.failure.describe()}")
-        lines.append(f"           {len(result.table)} replicate(s) finished before it and are kept in the table")
+        lines.append(f"           {len(result.evidence.rows)} replicate(s) finished before it and are kept in the table")
         if result.failure.traceback:
             lines.append("executor traceback:" if result.failure.kind == "crashed" else "estimator traceback:")
             lines.extend("    " + line for line in result.failure.traceback.rstrip().splitlines())
@@ -90,19 +105,19 @@ def format_message(result: CheckResult) -> str:
             lines.append("why:       no sub-test fired and every interval is inside its tested limit")
     for note in result.notes:
         lines.append(f"note:      {note}")
-    slopes = result.evidence.slopes
-    if len(slopes) and "slope" in slopes:
+    slopes = result.evidence.slope_rows
+    if any("slope" in each for each in slopes):
         lines.append("per discount: gamma      H   n-slope (all)   n-slope (largest n)")
-        for each in slopes.to_dict("records"):
+        for each in slopes:
             head = f"              {float(each['gamma']):<6g} {float(each['H']):>5.3g}   "
             if each.get("state") == "fitted":
                 lines.append(head + f"{float(each['slope']):>+8.3f}        {float(each['upper_slope']):>+8.3f}")
             else:
                 lines.append(head + str(each.get("state")))
-    grid = mean_error_grid(result.table)
-    if len(grid):
+    grid = mean_error_grid(result.evidence.rows)
+    if grid:
         lines.append("mean error by n:")
-        lines.extend("    " + line for line in grid.to_string(float_format=lambda v: f"{v:.4g}").splitlines())
+        lines.extend("    " + line for line in grid)
     lines.append(
         f"budget:   {result.budget.name}, {result.run.passes} pass(es), {result.estimator_calls} estimator calls, "
         f"{result.run.elapsed:.2f} s ({result.run.estimator_seconds:.2f} s in the estimator)"

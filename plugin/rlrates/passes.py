@@ -12,10 +12,11 @@ import dataclasses
 from concurrent.futures import Executor
 from dataclasses import dataclass
 
-import pandas as pd
+import numpy as np
 
 from .budgets import Budget
 from .claims import Claim
+from .columns import Columns
 from .escalation import Escalation
 from .fitting import summarise_cells
 from .mdp import _fingerprint as fingerprint_of  # recomputed after a check: was the ground truth written into?
@@ -31,9 +32,9 @@ __all__ = ["Passes", "run_passes", "ground_truth_unchanged"]
 
 @dataclass(frozen=True)
 class Passes:
-    """What the passes of a check produced."""
+    """What the passes of a check produced (``table``: the error rows, sorted)."""
 
-    table: pd.DataFrame
+    table: Columns
     decision: Decision
     failure: CellFailure | None
     passes: int
@@ -50,7 +51,7 @@ def run_passes(plan: SweepPlan, executor: Executor | None, claim: Claim, design:
     coverage = coverage_map(dict(plan.truths)) if logged else None
     smallest = smallest_probability(dict(plan.truths)) if logged else {}
     state, step = Escalation.start(design)
-    tables: list[pd.DataFrame] = []
+    tables: list[Columns] = []
     blocks: list[Block] = []
     decision = Decision(status="ambiguous")
     passes = 0
@@ -60,7 +61,7 @@ def run_passes(plan: SweepPlan, executor: Executor | None, claim: Claim, design:
         blocks.extend(blocks_of(pending))
         part, failure = run_sweep(pending, executor, coverage)
         tables.append(part)
-        table = pd.concat(tables, ignore_index=True)
+        table = Columns.concat(tables)
         if failure is not None:
             break
         graded = None
@@ -68,8 +69,9 @@ def run_passes(plan: SweepPlan, executor: Executor | None, claim: Claim, design:
             summary = summarise_cells(table, zero_tolerance, exact_tolerance)
         else:  # logged data: the n- and H-claims on behaviour 0, the C-claim over every behaviour
             graded = summarise_cells(table, zero_tolerance, exact_tolerance)
-            graded["n_eff"] = graded["n"] * [smallest[(g, int(b))] for g, b in zip(graded["gamma"], graded["behaviour"])]
-            summary = graded[graded["behaviour"] == 0].reset_index(drop=True)
+            graded = graded.with_columns(n_eff=graded["n"] * np.array(
+                [smallest[(g, b)] for g, b in zip(graded["gamma"].tolist(), graded["behaviour"].tolist())], dtype=float))
+            summary = graded[graded["behaviour"] == 0]
         failure = constant_replicates(summary, table, target)
         if failure is not None:
             break
@@ -79,8 +81,7 @@ def run_passes(plan: SweepPlan, executor: Executor | None, claim: Claim, design:
         if escalated is None:
             break
         state, step = escalated
-    table = table.sort_values(["gamma", "behaviour", "n", "replicate"] if logged else ["gamma", "n", "replicate"],
-                              ignore_index=True)
+    table = table.sort(*(["gamma", "behaviour", "n", "replicate"] if logged else ["gamma", "n", "replicate"]))
     return Passes(table, decision, failure, passes, tuple(blocks), state)
 
 
@@ -88,7 +89,7 @@ def ground_truth_unchanged(passes: Passes, truths: dict[float, Truth]) -> Passes
     """An MDP whose arrays changed during the check (an estimator that wrote into them) turns the result into an error."""
     for gamma, truth in truths.items():
         if fingerprint_of(truth.mdp.P, truth.mdp.R) != truth.mdp.fingerprint:
-            last = passes.table["n"].max() if len(passes.table) else 0
+            last = int(passes.table["n"].max()) if len(passes.table) else 0
             failure = CellFailure(gamma, int(last), 0, "invalid", (
                 f"the MDP {truth.mdp.name!r} changed during the check (its fingerprint no longer matches its "
                 "arrays): something wrote into the ground truth, so no error of this check can be trusted"), "")

@@ -15,8 +15,8 @@ from concurrent.futures import Executor, ThreadPoolExecutor
 from typing import Any
 
 import numpy as np
-import pandas as pd
 
+from .columns import Columns
 from .mdp import TabularMDP
 from .result import CellFailure
 from .logged import LoggedKernel, draw_logged_block
@@ -112,7 +112,7 @@ def run_probes(estimator: Any, target: str, truths: Mapping[Any, Truth], kernels
     return notes
 
 
-def constant_replicates(summary: pd.DataFrame, table: pd.DataFrame, target: str) -> CellFailure | None:
+def constant_replicates(summary: Columns, table: Columns, target: str) -> CellFailure | None:
     """An "error" when every replicate of a cell gave the same error while the mean changes with n.
 
     Such an estimator does not depend on its batch (a cache keyed on n, a result
@@ -121,15 +121,15 @@ def constant_replicates(summary: pd.DataFrame, table: pd.DataFrame, target: str)
     """
     if target == "policy":
         return None
-    for _, cells in summary.groupby("gamma", sort=True):
-        gamma = float(cells["gamma"].iloc[0])
+    for gamma in np.unique(summary["gamma"]).tolist():
+        cells = summary[summary["gamma"] == gamma]
         constant = cells[cells["constant"]]
-        means = cells["mean"].to_numpy(float)
+        means = np.asarray(cells["mean"], dtype=float)
         if len(constant) and len(cells) > 1 and means.max() > means.min() * (1 + 1e-9):
-            first = constant.iloc[0]
+            first = constant.row(0)
             n = int(first["n"])
-            replicate = int(table.loc[(table["gamma"] == gamma) & (table["n"] == n), "replicate"].min())
-            return CellFailure(gamma, n, replicate, "invalid", (
+            replicate = int(table["replicate"][(table["gamma"] == gamma) & (table["n"] == n)].min())
+            return CellFailure(float(gamma), n, replicate, "invalid", (
                 f"every one of the {int(first['replicates'])} replicates at gamma={gamma:g}, n={n} gave the "
                 f"same error {float(first['mean']):.6g}, while the mean error changes with n: the estimator does not "
                 "depend on its batch (a cache keyed on n, or a result that ignores the data), so the replicates carry "

@@ -9,7 +9,7 @@
   evidence tables (:class:`Evidence`). Its ``message`` is rendered once, when
   the check ends.
 
-Pure: no pytest, no I/O; pandas only for the evidence tables.
+Pure: no pytest, no I/O; pandas only for the evidence tables, built when first read.
 """
 
 from __future__ import annotations
@@ -17,13 +17,15 @@ from __future__ import annotations
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field, fields
-from typing import Any
-
-import pandas as pd
+from typing import TYPE_CHECKING, Any
 
 from .claims import Claim
+from .columns import Columns
 from .budgets import Budget
 from .vocabulary import FACTORS, FIT_VERDICTS, Factor, FailureKind, FitVerdict, Status
+
+if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
 
 __all__ = [
     "Fit", "FIT_KEYS", "CellFailure", "Block", "MDPDescription", "RunInfo", "Evidence",
@@ -129,8 +131,10 @@ def _is_number(value: Any) -> bool:
 FIT_KEYS: tuple[str, ...] = tuple(item.name for item in fields(Fit))
 
 
-def fits_frame(fits: tuple[Fit, ...]) -> pd.DataFrame:
+def fits_frame(fits: tuple[Fit, ...]) -> "pd.DataFrame":
     """A DataFrame with one row per fit and the columns ``FIT_KEYS``."""
+    import pandas as pd
+
     return pd.DataFrame([[getattr(fit, key) for key in FIT_KEYS] for fit in fits], columns=list(FIT_KEYS))
 
 
@@ -199,17 +203,42 @@ class RunInfo:
 
 @dataclass(frozen=True)
 class Evidence:
-    """The tables behind the verdict.
+    """The tables behind the verdict, held as numpy columns; each becomes a DataFrame when first read.
 
     ``table``: one row per (gamma, n, replicate) with the error (columns
     ``ERROR_COLUMNS``). ``summary``: one row per (gamma, n) cell with the mean,
     its log and delta-method variance, and whether the cell entered the fits
     (``fitted``) or why not (``left_out``). ``slopes``: the n-slope per discount.
+    A check never builds them itself (``rows``, ``cells`` and ``slope_rows`` are
+    what it computed), so a check that nobody reads costs no pandas.
     """
 
-    table: pd.DataFrame
-    summary: pd.DataFrame
-    slopes: pd.DataFrame
+    rows: Columns
+    cells: Columns
+    slope_rows: tuple[dict[str, Any], ...] = ()
+    _frames: dict[str, Any] = field(default_factory=dict, compare=False, repr=False)
+
+    def _frame(self, name: str) -> "pd.DataFrame":
+        if name not in self._frames:
+            if name == "slopes":
+                import pandas as pd
+
+                self._frames[name] = pd.DataFrame([dict(row) for row in self.slope_rows])
+            else:
+                self._frames[name] = (self.rows if name == "table" else self.cells).to_frame()
+        return self._frames[name]
+
+    @property
+    def table(self) -> "pd.DataFrame":
+        return self._frame("table")
+
+    @property
+    def summary(self) -> "pd.DataFrame":
+        return self._frame("summary")
+
+    @property
+    def slopes(self) -> "pd.DataFrame":
+        return self._frame("slopes")
 
 
 @dataclass(frozen=True)
@@ -238,12 +267,12 @@ class CheckResult:
         return self.status == "pass"
 
     @property
-    def table(self) -> pd.DataFrame:
+    def table(self) -> "pd.DataFrame":
         """The tidy error table: one row per (gamma, n, replicate)."""
         return self.evidence.table
 
     @property
-    def fits(self) -> pd.DataFrame:
+    def fits(self) -> "pd.DataFrame":
         """The fits as a DataFrame (a view of ``factors``: one row per claimed factor)."""
         return fits_frame(self.factors)
 
@@ -251,7 +280,7 @@ class CheckResult:
     def estimator_calls(self) -> int:
         """Calls made: the rows of the table, plus the call that raised or returned an invalid estimate."""
         failed = self.failure is not None and self.failure.kind in ("raised", "invalid")
-        return len(self.evidence.table) + int(failed)
+        return len(self.evidence.rows) + int(failed)
 
     def fit(self, factor: Factor) -> Fit | None:
         """The fit of one factor, or ``None`` when it was not claimed."""

@@ -30,10 +30,12 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+from collections.abc import Sequence
+
 import numpy as np
-import pandas as pd
 
 from .budgets import Budget
+from .columns import Columns
 from .fitting import CoverageFit, DiscountFit, HorizonFit, Slope, fit_cells, pooled_slope
 from .vocabulary import Need, SubTestName, SubTestVerdict
 
@@ -60,15 +62,15 @@ class SubTest:
     need: Need | None = None
 
 
-def _errors_in_words(cells: pd.DataFrame) -> str:
-    means = cells["mean"].to_numpy(float)
+def _errors_in_words(cells: Columns) -> str:
+    means = np.asarray(cells["mean"], dtype=float)
     if means.max() <= 1.5 * means.min():
         return f"about {float(np.median(means)):.3g} at every n"
-    first, last = cells.iloc[0], cells.iloc[-1]
-    return f"{float(first['mean']):.3g} at n={int(first['n'])} and {float(last['mean']):.3g} at n={int(last['n'])}"
+    ns = cells["n"]
+    return f"{float(means[0]):.3g} at n={int(ns[0])} and {float(means[-1]):.3g} at n={int(ns[-1])}"
 
 
-def stall_test(cells: pd.DataFrame, claim_n: float, budget: Budget, levels: Levels,
+def stall_test(cells: Columns, claim_n: float, budget: Budget, levels: Levels,
                scale: dict[float, float]) -> SubTest:
     """Is the error, at some discount, still saturated at the largest n and not falling?
 
@@ -79,12 +81,12 @@ def stall_test(cells: pd.DataFrame, claim_n: float, budget: Budget, levels: Leve
     fails here.
     """
     limit = claim_n + budget.floor_tolerance
-    gammas = sorted(float(g) for g in cells["gamma"].unique())
+    gammas = sorted(float(g) for g in np.unique(cells["gamma"]))
     level = levels.fire / max(len(gammas), 1)
     stalled: list[str] = []
     for gamma in gammas:
-        own = cells[(cells["gamma"] == gamma) & ~cells["early"] & ~cells["zero"]].sort_values("n")
-        if len(own) < 3 or not bool(own["saturated"].iloc[-1]):
+        own = cells[(cells["gamma"] == gamma) & ~cells["early"] & ~cells["zero"]].sort("n")
+        if len(own) < 3 or not bool(own["saturated"][-1]):
             continue
         slope = fit_cells(own)
         if slope.finite and slope.lower(level) > limit:
@@ -168,14 +170,12 @@ def rate_test(fits: list[DiscountFit], claim_n: float, budget: Budget, levels: L
     return SubTest("rate", "ok")
 
 
-def short_discounts(slopes: pd.DataFrame) -> list[float]:
-    """The discounts with fewer than three asymptotic points (from :func:`rlrates.fitting.fit_discounts`)."""
-    if not len(slopes):
-        return []
-    return [float(g) for g in slopes.loc[slopes["state"] == "too few asymptotic points", "gamma"]]
+def short_discounts(slopes: Sequence[dict[str, object]]) -> list[float]:
+    """The discounts with fewer than three asymptotic points (slopes rows of :func:`rlrates.fitting.fit_discounts`)."""
+    return [float(row["gamma"]) for row in slopes if row["state"] == "too few asymptotic points"]  # type: ignore[arg-type]
 
 
-def reach_test(slopes: pd.DataFrame) -> SubTest:
+def reach_test(slopes: Sequence[dict[str, object]]) -> SubTest:
     """Was the n-claim tested at every discount?"""
     short = short_discounts(slopes)
     if short:
@@ -183,7 +183,7 @@ def reach_test(slopes: pd.DataFrame) -> SubTest:
             "fewer than 3 asymptotic points at gamma=" + ", ".join(f"{g:g}" for g in short)
             + ": the n-claim is untested there"
         ))
-    if len(slopes) and not (slopes["state"] == "fitted").any():
+    if len(slopes) and not any(row["state"] == "fitted" for row in slopes):
         return SubTest("reach", "ok",
                        note="errors vanish at the largest n for every discount: faster than any power of n")
     return SubTest("reach", "ok")

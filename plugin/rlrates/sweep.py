@@ -26,8 +26,8 @@ from dataclasses import dataclass, field
 from typing import Any, Protocol
 
 import numpy as np
-import pandas as pd
 
+from .columns import Columns
 from .result import Block, CellFailure
 from .logged import LoggedKernel, draw_logged_block
 from .sampling import Batch, SupportKernel, block_seed, draw_block, mdp_kernel, stream_context
@@ -270,7 +270,7 @@ def _lost(task: CellTask, exc: BaseException, confirmed: str = "") -> CellOutcom
 
 
 def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None,
-              coverage: Mapping[tuple[float, int], float] | None = None) -> tuple[pd.DataFrame, CellFailure | None]:
+              coverage: Mapping[tuple[float, int], float] | None = None) -> tuple[Columns, CellFailure | None]:
     """Run all tasks; return the tidy table and the first failure (if any).
 
     On a failure the remaining tasks are cancelled; rows already computed are kept.
@@ -298,12 +298,15 @@ def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None,
 
 
 def rows_to_table(records: list[tuple[float, float, int, int, float, float, int]],
-                  coverage: Mapping[tuple[float, int], float] | None = None) -> pd.DataFrame:
-    table = pd.DataFrame.from_records([r[:6] for r in records], columns=list(ERROR_COLUMNS))
-    table = table.astype({"gamma": float, "H": float, "n": np.int64, "replicate": np.int64, "error": float, "seconds": float})
+                  coverage: Mapping[tuple[float, int], float] | None = None) -> Columns:
+    """The rows as error-table columns (``ERROR_COLUMNS``, for logged data also ``behaviour`` and ``C``), sorted."""
+    rows = np.array(records, dtype=float).reshape(len(records), 7)
+    data: dict[str, np.ndarray] = {"gamma": rows[:, 0], "H": rows[:, 1], "n": rows[:, 2].astype(np.int64),
+                                   "replicate": rows[:, 3].astype(np.int64), "error": rows[:, 4],
+                                   "seconds": rows[:, 5]}
     if coverage is None:
-        return table.sort_values(["gamma", "n", "replicate"], ignore_index=True)
-    levels = np.array([r[6] for r in records], dtype=np.int64)
-    table["behaviour"] = levels
-    table["C"] = [coverage[(g, int(b))] for g, b in zip(table["gamma"], levels)]
-    return table.sort_values(["gamma", "behaviour", "n", "replicate"], ignore_index=True)
+        return Columns(data, len(records)).sort("gamma", "n", "replicate")
+    levels = rows[:, 6].astype(np.int64)
+    data["behaviour"] = levels
+    data["C"] = np.array([coverage[(g, b)] for g, b in zip(data["gamma"].tolist(), levels.tolist())], dtype=float)
+    return Columns(data, len(records)).sort("gamma", "behaviour", "n", "replicate")

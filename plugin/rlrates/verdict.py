@@ -26,10 +26,12 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field, replace
 
+from typing import Any
+
 import numpy as np
-import pandas as pd
 
 from .claims import Claim
+from .columns import Columns
 from .fitting import Slope, fit_coverage, fit_discounts, fit_horizon, pooled_slope
 from .budgets import Budget
 from .result import Fit
@@ -49,44 +51,53 @@ class Decision:
     reasons: tuple[str, ...] = ()
     need: Need | None = None
     fits: tuple[Fit, ...] = ()
-    slopes: pd.DataFrame = field(default_factory=pd.DataFrame)
-    cells: pd.DataFrame = field(default_factory=pd.DataFrame)
+    slopes: tuple[dict[str, object], ...] = ()  # rows of the per-discount slopes (fitting.fit_discounts)
+    cells: Columns = field(default_factory=lambda: Columns({}))
     notes: tuple[str, ...] = ()
     subtests: tuple[SubTest, ...] = ()
     exact: bool = False
 
 
-def mark_cells(summary: pd.DataFrame, budget: Budget, scale: dict[float, float], window: int) -> pd.DataFrame:
+def _window_rank(gamma: np.ndarray, n: np.ndarray, usable: np.ndarray) -> np.ndarray:
+    """Per row, the rank of its n among the usable rows of its discount, largest first (ties in row order); inf if unusable."""
+    rank = np.full(len(n), np.inf)
+    rows = np.flatnonzero(usable)
+    if len(rows):
+        order = rows[np.lexsort((rows, -n[rows].astype(float), gamma[rows]))]
+        g = gamma[order]
+        start = np.flatnonzero(np.r_[True, g[1:] != g[:-1]])
+        position = np.arange(len(order)) - np.repeat(start, np.diff(np.append(start, len(order))))
+        rank[order] = position + 1
+    return rank
+
+
+def mark_cells(summary: Columns | Any, budget: Budget, scale: dict[float, float], window: int) -> Columns:
     """The summary with ``usable`` (asymptotic and not saturated), ``fitted`` (in an n-fit) and ``left_out`` (why not).
 
     For logged data (an ``n_eff`` column: n times the smallest probability of a pair
     the target visits) a cell is pre-asymptotic when its least-visited pair expects
     fewer than ``min_n_per_horizon`` samples.
     """
-    cells = summary.copy()
-    if "n_eff" in cells.columns:
-        early = (cells["n_eff"] < budget.min_n_per_horizon).to_numpy()
+    cells = Columns.of(summary)
+    gamma = np.asarray(cells["gamma"], dtype=float)
+    if "n_eff" in cells:
+        early = np.asarray(cells["n_eff"] < budget.min_n_per_horizon, dtype=bool)
     else:
-        early = (cells["n"] < budget.min_n_per_horizon * cells["H"]).to_numpy()
-    limit = cells["gamma"].map(scale).to_numpy(float) * budget.saturation
-    saturated = (~cells["zero"] & (cells["mean"] > limit)).to_numpy()
+        early = np.asarray(cells["n"] < budget.min_n_per_horizon * cells["H"], dtype=bool)
+    limit = np.array([scale.get(g, math.nan) for g in gamma.tolist()], dtype=float) * budget.saturation
+    zero = np.asarray(cells["zero"], dtype=bool)
+    saturated = ~zero & (cells["mean"] > limit)
     usable = ~(early | saturated)
-    rank = cells["n"].where(usable).groupby(cells["gamma"]).rank(ascending=False, method="first")
-    in_window = usable & (rank.fillna(np.inf).to_numpy() <= window)
-    zero = cells["zero"].to_numpy(bool)
+    in_window = usable & (_window_rank(gamma, np.asarray(cells["n"]), usable) <= window)
     reasons = np.select(
         [early, saturated, ~in_window, zero],
         [f"pre-asymptotic (n < {budget.min_n_per_horizon:g} H)",
          f"saturated (mean error above {budget.saturation:g} of the error scale)",
          "below the fit window", "zero error"],
         default="",
-    )
-    cells["early"] = early
-    cells["saturated"] = saturated
-    cells["usable"] = usable
-    cells["fitted"] = in_window & ~zero
-    cells["left_out"] = reasons
-    return cells
+    ) if len(cells) else np.zeros(0, dtype=str)
+    return cells.with_columns(early=early, saturated=saturated, usable=usable, fitted=in_window & ~zero,
+                              left_out=reasons)
 
 
 def levels_for(claim: Claim, budget: Budget) -> Levels:
@@ -111,7 +122,7 @@ def _combined(tests: list[SubTest]) -> FitVerdict:
     return "violated" if "violated" in verdicts else "unclear" if "unclear" in verdicts else "ok"
 
 
-def _exact(claim: Claim, budget: Budget, cells: pd.DataFrame, levels: Levels) -> Decision:
+def _exact(claim: Claim, budget: Budget, cells: Columns, levels: Levels) -> Decision:
     claimed: list[tuple[Factor, float | None, float]] = [
         ("n", claim.n, budget.n_tolerance), ("horizon", claim.horizon, budget.horizon_tolerance),
         ("coverage", claim.coverage, budget.coverage_tolerance)]
@@ -121,8 +132,8 @@ def _exact(claim: Claim, budget: Budget, cells: pd.DataFrame, levels: Levels) ->
                     reasons=("every error is zero to floating-point precision: the estimator is exact here",))
 
 
-def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[float, float], window: int,
-           graded: pd.DataFrame | None = None) -> Decision:
+def decide(summary: Columns | Any, claim: Claim, budget: Budget, scale: dict[float, float], window: int,
+           graded: Columns | Any | None = None) -> Decision:
     """Decide one pass. ``window`` is how many of the largest usable n values each n-fit uses.
 
     ``graded`` (logged data with a coverage claim) is the summary of every behaviour
@@ -130,10 +141,10 @@ def decide(summary: pd.DataFrame, claim: Claim, budget: Budget, scale: dict[floa
     """
     cells = mark_cells(summary, budget, scale, window)
     levels = levels_for(claim, budget)
-    if bool(summary["zero"].all()):
+    if bool(cells["zero"].all()):
         return _exact(claim, budget, cells, levels)
     usable = cells[cells["usable"]]
-    gammas = sorted(float(g) for g in summary["gamma"].unique())
+    gammas = sorted(float(g) for g in np.unique(cells["gamma"]))
     slopes, per_discount = fit_discounts(usable, gammas, window)
     tests: list[SubTest] = []
     fits: list[Fit] = []
@@ -194,7 +205,7 @@ def _advice(fit: Fit, replicates: int) -> tuple[str, bool]:
     return f"{head}; about {more} replicates per cell (now {replicates}) would settle it", True
 
 
-def _combine(tests: list[SubTest], fits: list[Fit], slopes: pd.DataFrame, cells: pd.DataFrame,
+def _combine(tests: list[SubTest], fits: list[Fit], slopes: list[dict[str, object]], cells: Columns,
              budget: Budget) -> Decision:
     """One decision from the sub-tests: fail if any fired, ambiguous if any is unclear, else pass."""
     notes = [test.note for test in tests if test.note]
@@ -231,5 +242,5 @@ def _combine(tests: list[SubTest], fits: list[Fit], slopes: pd.DataFrame, cells:
             need = "nothing"
         else:
             need = "larger_n" if larger_n else "replicates"
-    return Decision(status=status, fired=fired, reasons=tuple(reasons), need=need, fits=tuple(fits), slopes=slopes,
+    return Decision(status=status, fired=fired, reasons=tuple(reasons), need=need, fits=tuple(fits), slopes=tuple(slopes),
                     cells=cells, notes=tuple(notes), subtests=tuple(tests))

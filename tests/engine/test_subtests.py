@@ -106,8 +106,8 @@ def test_floor_test_is_ok_on_steady_slopes_and_unclear_on_wide_ones() -> None:
 # ------------------------------------------------------------------------------------ reach
 
 
-def _slopes(*states: str) -> pd.DataFrame:
-    return pd.DataFrame({"gamma": [0.5, 0.75, 0.9][: len(states)], "state": list(states)})
+def _slopes(*states: str) -> list[dict[str, object]]:
+    return [{"gamma": gamma, "state": state} for gamma, state in zip([0.5, 0.75, 0.9], states)]
 
 
 def test_reach_test_names_the_discounts_without_enough_points() -> None:
@@ -192,10 +192,10 @@ def test_decide_combines_sub_tests_into_one_decision() -> None:
 
 def test_decide_marks_the_cells_that_entered_the_fits() -> None:
     decision = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), CI_BUDGET, SCALE, window=5)
-    cells = decision.cells.set_index(["gamma", "n"])
+    cells = decision.cells.to_frame().set_index(["gamma", "n"])
     # n < 8 H is pre-asymptotic: at gamma=0.9 (H=10) n=128 < 80 is not, so every cell is fitted here
     assert cells["fitted"].all() and (cells["left_out"] == "").all()
-    small_window = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), CI_BUDGET, SCALE, window=4).cells
+    small_window = decide(_summary(-0.5, 1.5), rlrates.Claim(n=-0.5), CI_BUDGET, SCALE, window=4).cells.to_frame()
     assert set(small_window.loc[~small_window["fitted"], "n"]) == {128}
     assert set(small_window.loc[~small_window["fitted"], "left_out"]) == {"below the fit window"}
 

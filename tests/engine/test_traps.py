@@ -72,7 +72,7 @@ def test_slope_bounds_use_student_t_quantiles() -> None:
 
 def test_cell_summary_uses_the_delta_method() -> None:
     table = pd.DataFrame({"gamma": 0.5, "H": 2.0, "n": 100, "replicate": range(4), "error": [1.0, 2.0, 3.0, 4.0], "seconds": 0.0})
-    row = summarise_cells(table).iloc[0]
+    row = summarise_cells(table).row(0)
     assert row["mean"] == 2.5 and row["log_mean"] == pytest.approx(np.log(2.5))
     # Var(log mean) ~ sd^2 / (R mean^2) (Casella and Berger, section 5.5.4)
     assert row["log_var"] == pytest.approx(np.var([1, 2, 3, 4], ddof=1) / (4 * 2.5**2))

@@ -108,7 +108,7 @@ def test_fitted_exponents_cover_the_truth_at_the_advertised_rate(a: float, b: fl
         errors = np.exp(log_c) * nn**a * hh**b * noise
         table = pd.DataFrame({"gamma": gg.ravel(), "H": hh.ravel(), "n": nn.ravel(), "replicate": rr.ravel(),
                               "error": errors.ravel(), "seconds": 0.0})
-        cells = summarise_cells(table)
+        cells = summarise_cells(table).to_frame()
         df = replicates - 1
         slopes = [fit_slope(np.log(c["n"]), c["log_mean"], c["log_var"], df) for _, c in cells.groupby("gamma")]
         pooled_est = np.mean([s.estimate for s in slopes])
