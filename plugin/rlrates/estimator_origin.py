@@ -110,6 +110,15 @@ def _distributions() -> Mapping[str, list[str]]:
     return importlib.metadata.packages_distributions()
 
 
+@functools.lru_cache(maxsize=512)
+def _version(distribution: str) -> str | None:
+    """An installed distribution's version (read once per process: each read parses its metadata file)."""
+    try:
+        return importlib.metadata.version(distribution)
+    except importlib.metadata.PackageNotFoundError:  # pragma: no cover - a stale mapping
+        return None
+
+
 def _package_versions(module_name: str) -> dict[str, str]:
     """Versions of the installed distributions behind the packages the module imports (its own included)."""
     module = sys.modules.get(module_name)
@@ -120,10 +129,9 @@ def _package_versions(module_name: str) -> dict[str, str]:
     versions: dict[str, str] = {}
     for top in sorted(tops):
         for distribution in owners.get(top, []):
-            try:
-                versions[distribution] = importlib.metadata.version(distribution)
-            except importlib.metadata.PackageNotFoundError:  # pragma: no cover - a stale mapping
-                continue
+            version = _version(distribution)
+            if version is not None:
+                versions[distribution] = version
     return dict(sorted(versions.items()))
 
 

@@ -118,12 +118,12 @@ class LoggedKernel:
 
     def _transitions(self, rng: np.random.Generator, n: int, replicates: int) -> tuple[IntArray, IntArray, IntArray]:
         """n i.i.d. (s, a, s') per replicate: multinomial counts of the pairs, of each pair's successors
-        (the conditional binomial chain of :class:`rlrates.sampling.SupportKernel`), then a uniformly
+        (:meth:`rlrates.sampling.SupportKernel.sample_given_totals`), then a uniformly
         random order, which together have the law of an i.i.d. sequence."""
         S, A = self.states, self.actions
         kernel = self.next_states
         pairs = rng.multinomial(n, self.pair_probs, size=replicates)  # (R, S*A)
-        drawn = kernel.sample_support(rng, pairs, replicates)  # each pair's successors, given its count
+        drawn = kernel.sample_given_totals(rng, pairs)  # each pair's successors, given its count
         codes = (np.arange(S * A)[:, None] * S + kernel.support).ravel()  # pair * S + successor
         ordered = np.repeat(np.tile(codes, replicates), drawn.ravel()).reshape(replicates, n)
         shuffled = rng.permuted(ordered, axis=1)

@@ -2,8 +2,8 @@
 
 A :class:`Batch` is one draw with two views: ``counts`` (S, A, S) (for a sparse
 MDP a scipy.sparse (S*A, S) array) and ``next_states`` (S, A, n). The draw is
-kept as counts on each row's support (S*A, k), from a chain of conditional
-binomials over the support (cost O(S A k) per replicate, whatever n). Each view
+kept as counts on each row's support (S*A, k), from one multinomial call over
+the supports (cost O(S A k) per replicate, whatever n). Each view
 is built from them only when an estimator reads it: ``counts`` by scattering
 into the dense array (or wrapping them as a sparse one), ``next_states`` by
 laying the successors out and shuffling each row with an independent child
@@ -94,7 +94,7 @@ class SupportKernel:
     that the last column, which absorbs rounding, is always a real successor).
     ``sparse`` says which counts view the batches give: a scipy.sparse (S*A, S)
     array (sparse MDPs) or a dense (S, A, S) ndarray. The conditional
-    probabilities of the binomial chain are computed once, here.
+    probabilities of the binomial chain (for draws given each row's total) are computed once, here.
     """
 
     states: int
@@ -104,30 +104,43 @@ class SupportKernel:
     sparse: bool = False
     conditional: NDArray[np.float64] = field(init=False, repr=False, compare=False)
     scatter: NDArray[np.int64] = field(init=False, repr=False, compare=False)
+    _columns: NDArray[np.float64] = field(init=False, repr=False, compare=False)
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "conditional", _conditional(self.probs))
+        # column j of the conditionals as one contiguous row: binomial reads it faster than a strided column
+        object.__setattr__(self, "_columns", np.ascontiguousarray(self.conditional.T))
         # where each support column lands in a flat dense (S*A*S) array of counts
         rows = self.support.shape[0]
         object.__setattr__(self, "scatter", (self.support + self.states * np.arange(rows)[:, None]).ravel())
 
-    def sample_support(self, rng: np.random.Generator, n: int | IntArray, replicates: int = 1) -> IntArray:
-        """Counts on the support of ``replicates`` independent draws, shape (replicates, S*A, k).
+    def sample_support(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
+        """Counts on the support of ``replicates`` independent draws of n samples per row, shape (replicates, S*A, k).
 
-        Multinomial by the chain of conditional binomials (each successor's count
-        given the ones before it), vectorised over replicates and rows: one
-        ``Generator.binomial`` call per support column, whatever n and replicates.
-        Column j of row i counts successor ``support[i, j]``. ``n`` is the number
-        of samples of every row, or a (replicates, S*A) array of each row's own.
+        One ``Generator.multinomial`` call over every row's support (numpy runs the
+        chain of conditional binomials per row in C, and stops a row once its n is
+        spent). Column j of row i counts successor ``support[i, j]``.
+        """
+        return rng.multinomial(int(n), self.probs, size=(replicates, self.probs.shape[0]))
+
+    def sample_given_totals(self, rng: np.random.Generator, totals: IntArray) -> IntArray:
+        """Counts on the support given each row's own number of samples ``totals`` (replicates, S*A).
+
+        The chain of conditional binomials (each successor's count given the ones
+        before it), vectorised over replicates and rows: one ``Generator.binomial``
+        call per support column. Logged transitions draw their successors this
+        way; numpy's multinomial would broadcast over the totals too, and switching
+        is a change of every logged table (a calibration change).
         """
         rows, width = self.probs.shape
-        left = np.array(np.broadcast_to(n, (replicates, rows)), dtype=np.int64)
-        drawn = np.empty((replicates, rows, width), dtype=np.int64)
+        left = np.array(totals, dtype=np.int64)
+        columns = []
         for j in range(width - 1):
-            drawn[:, :, j] = rng.binomial(left, self.conditional[:, j])
-            left -= drawn[:, :, j]
-        drawn[:, :, -1] = left
-        return drawn
+            column = rng.binomial(left, self._columns[j])
+            columns.append(column)
+            left = left - column
+        columns.append(left)
+        return np.stack(columns, axis=-1)
 
     def sample_counts(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
         """Dense counts of ``replicates`` independent draws, shape (replicates, S, A, S)."""
@@ -223,12 +236,18 @@ def mdp_kernel(mdp: TabularMDP) -> SupportKernel:
     return support_kernel(sampling_kernel(mdp), mdp.states, mdp.actions)
 
 
-class _BlockDraw:
-    """The support counts of a block of replicates, with at most one dense view built at a time.
+#: Dense entries (8 MB of int64) up to which a block's dense count views are built in one scatter.
+_WHOLE_BLOCK = 2**20
 
-    A dense (S, A, S) view is built only when an estimator reads ``batch.counts``,
-    and only the last one built is kept, so a block's memory stays at its support
-    counts plus one view (the block's batches are read one after the other).
+
+class _BlockDraw:
+    """The support counts of a block of replicates, and the dense views an estimator reads.
+
+    A dense (S, A, S) view is built only when an estimator reads ``batch.counts``.
+    A small block (at most ``_WHOLE_BLOCK`` dense entries) builds the views of all
+    its replicates in one scatter on the first read; a larger one builds one view
+    at a time and keeps only the last, so its memory stays at its support counts
+    plus one view (the block's batches are read one after the other).
     """
 
     def __init__(self, kernel: SupportKernel, drawn: IntArray, n: int) -> None:
@@ -237,10 +256,17 @@ class _BlockDraw:
         self.drawn = drawn
         self.n = int(n)
         self._view: tuple[int, Any] | None = None
+        self._whole: list[Any] | None = None
 
     def counts(self, replicate: int) -> Any:
+        kernel = self.kernel
+        if not kernel.sparse and self.drawn.shape[0] * self.drawn.shape[1] * kernel.states <= _WHOLE_BLOCK:
+            if self._whole is None:
+                whole = frozen(kernel.dense_counts(self.drawn).reshape(
+                    self.drawn.shape[0], kernel.states, kernel.actions, kernel.states), copy=False)
+                self._whole = list(whole)  # one view object per replicate, the same on every read
+            return self._whole[replicate]
         if self._view is None or self._view[0] != replicate:
-            kernel = self.kernel
             if kernel.sparse:
                 view = kernel.sparse_counts(self.drawn[replicate])
                 view.data.setflags(write=False)

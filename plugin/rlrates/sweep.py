@@ -31,7 +31,7 @@ from .columns import Columns
 from .result import Block, CellFailure
 from .logged import LoggedKernel, draw_logged_block
 from .sampling import Batch, SupportKernel, block_seed, draw_block, mdp_kernel, stream_context
-from .targets import EstimateError, Problem, Truth, estimate_error, validate_estimate
+from .targets import EstimateError, Problem, Truth, scored_error
 from .vocabulary import ERROR_COLUMNS
 
 __all__ = ["Estimator", "CellTask", "CellOutcome", "SweepPlan", "blocks_of", "run_cell", "run_sweep", "BLOCK_ELEMENTS"]
@@ -164,7 +164,7 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
         problem_text = _call_problem(estimate, previous, seconds, task.time_limit)
         if problem_text is None:
             try:
-                valid = validate_estimate(estimate, truth)
+                error = scored_error(estimate, truth, task.norm)
             except EstimateError as exc:
                 problem_text = str(exc)
         if problem_text is not None:
@@ -172,7 +172,7 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
                                           _behaviour(truth))
             return
         previous = estimate
-        outcome.rows.append((replicate, estimate_error(valid, truth, task.norm), seconds))
+        outcome.rows.append((replicate, error, seconds))
 
 
 def _call_problem(estimate: object, previous: object, seconds: float, time_limit: float | None) -> str | None:

@@ -21,6 +21,8 @@ every replicate and n.
 
 from __future__ import annotations
 
+import math
+
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
@@ -36,7 +38,7 @@ if TYPE_CHECKING:
     from .budgets import Budget
 
 __all__ = ["TARGETS", "NORMS", "Problem", "Truth", "DataSpec", "frozen", "EstimateError", "default_policy", "solve_truth",
-           "validate_estimate", "estimate_error", "zero_levels"]
+           "validate_estimate", "estimate_error", "scored_error", "zero_levels"]
 
 
 Array = NDArray[np.float64]
@@ -301,6 +303,24 @@ def estimate_error(estimate: Array, truth: Truth, norm: str = "sup") -> float:
         return float(distances.max() if norm == "sup" else distances.mean())
     distances = np.abs(estimate - truth.value).sum(axis=2)
     return float(distances.max() if norm == "sup" else distances.mean())
+
+
+def scored_error(estimate: object, truth: Truth, norm: str = "sup") -> float:
+    """:func:`validate_estimate` then :func:`estimate_error`, with a fast path for plain float64 Q-value arrays.
+
+    For Q-values of the right shape and dtype the error is computed first: a finite
+    sup- or mean-error means every entry is finite (an infinite or NaN entry makes
+    both infinite or NaN), so the entry-by-entry finiteness check is needed only when
+    the error is not finite, and then the full validation names the bad entry.
+    """
+    value = truth.value
+    if (type(estimate) is np.ndarray and truth.target in ("q_pi", "q_star") and estimate.dtype == np.float64
+            and estimate.shape == value.shape):
+        diff = np.abs(estimate - value)
+        error = float(diff.max() if norm == "sup" else diff.mean())
+        if math.isfinite(error):
+            return error
+    return estimate_error(validate_estimate(estimate, truth), truth, norm)
 
 
 def zero_levels(truths: Mapping[float, Truth], target: str,

@@ -143,14 +143,16 @@ def decide(summary: Columns | Any, claim: Claim, budget: Budget, scale: dict[flo
     levels = levels_for(claim, budget)
     if bool(cells["zero"].all()):
         return _exact(claim, budget, cells, levels)
-    usable = cells[cells["usable"]]
+    # the fits read these columns only: a narrow table filters faster
+    usable = cells.select("gamma", "n", "H", "zero", "replicates", "log_mean", "log_var")[cells["usable"]]
     gammas = sorted(float(g) for g in np.unique(cells["gamma"]))
     slopes, per_discount = fit_discounts(usable, gammas, window)
     tests: list[SubTest] = []
     fits: list[Fit] = []
     if claim.n is not None:
         floor = floor_test(per_discount, claim.n, budget, levels)
-        n_tests = [stall_test(cells, claim.n, budget, levels, scale), floor,
+        stall_view = cells.select("gamma", "n", "early", "zero", "saturated", "mean", "replicates", "log_mean", "log_var")
+        n_tests = [stall_test(stall_view, claim.n, budget, levels, scale), floor,
                    rate_test(per_discount, claim.n, budget, levels, floor.verdict == "violated"),
                    reach_test(slopes)]
         pooled = pooled_slope([fit.whole for fit in per_discount]) if per_discount else None
@@ -168,7 +170,8 @@ def decide(summary: Columns | Any, claim: Claim, budget: Budget, scale: dict[flo
         tests.append(horizon)
     if claim.coverage is not None and graded is not None:
         graded_cells = mark_cells(graded, budget, scale, window)
-        coverage_fit = fit_coverage(graded_cells[graded_cells["usable"]])
+        coverage_fit = fit_coverage(graded_cells.select("gamma", "behaviour", "C", "n", "zero", "replicates", "log_mean",
+                                                        "log_var")[graded_cells["usable"]])
         coverage = coverage_test(coverage_fit, claim.coverage, budget, levels)
         fits.append(_finite_or_unclear(_fit("coverage", coverage_fit.slope, claim.coverage, budget.coverage_tolerance,
                                             levels, coverage.verdict)))

@@ -243,9 +243,10 @@ def test_process_executor_gives_bit_identical_numbers(garnet: rlrates.TabularMDP
 
 def test_an_ambiguous_first_pass_escalates_before_answering(garnet: rlrates.TabularMDP) -> None:
     # A true exponent 0.01 past the tested limit (-0.5 + 0.08): each look is undecided, so the check
-    # escalates through its whole allowance (seeded: this seed stays undecided at every look).
+    # escalates through its whole allowance. Seeded: of seeds 0-7, seed 7 stays undecided at every look
+    # (the others stop earlier, inconclusive too, when the estimate lands within 0.01 of the limit).
     estimator = zoo.SyntheticPower(garnet, a=-0.41, b=1.0)
-    result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=2)
+    result = rlrates.check(estimator, garnet, rlrates.Claim(n=-0.5), seed=7)
     ci = BUDGETS["ci"]
     assert result.status == "inconclusive", result.message
     assert result.run.passes == 2 + ci.n_doublings

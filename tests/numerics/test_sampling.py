@@ -372,10 +372,9 @@ def test_block_counts_follow_the_multinomial(garnet: TabularMDP) -> None:
 
 
 def _reference_block(mdp: TabularMDP, n: int, replicates: int, seed: np.random.SeedSequence) -> tuple[np.ndarray, list[np.ndarray]]:
-    """The sampler as first written (common practice: a multinomial as a chain of conditional
-    binomials, Devroye 1986, Non-Uniform Random Variate Generation, XI.1.3): the dense kernel, its
-    support, each column's conditional probability worked out inside the loop, counts scattered
-    into a dense (replicates, S, A, S) block, and next states laid out from the dense counts."""
+    """The sampler written out plainly: the dense kernel, its support, one ``Generator.multinomial`` call
+    over the supports (numpy's multinomial, the reference library), counts scattered into a dense
+    (replicates, S, A, S) block, and next states laid out from the dense counts."""
     S, A = mdp.states, mdp.actions
     flat = np.array(mdp.P.reshape(S * A, S))
     flat /= flat.sum(axis=1, keepdims=True)
@@ -387,15 +386,7 @@ def _reference_block(mdp: TabularMDP, n: int, replicates: int, seed: np.random.S
     probs = probs / probs.sum(axis=1, keepdims=True)
     probs[:, -1] = np.clip(1.0 - probs[:, :-1].sum(axis=1), 0.0, None)
     rng = np.random.default_rng(np.random.SeedSequence(seed.entropy, spawn_key=(*seed.spawn_key, 0)))
-    left = np.full((replicates, S * A), n, dtype=np.int64)
-    drawn = np.empty((replicates, S * A, width), dtype=np.int64)
-    for j in range(width - 1):
-        before = np.cumsum(probs, axis=1) - probs
-        with np.errstate(divide="ignore", invalid="ignore"):
-            cond = np.clip(np.where(1.0 - before > 0, probs / (1.0 - before), 1.0), 0.0, 1.0)
-        drawn[:, :, j] = rng.binomial(left, cond[:, j])
-        left -= drawn[:, :, j]
-    drawn[:, :, -1] = left
+    drawn = rng.multinomial(n, probs, size=(replicates, S * A))
     counts = np.zeros((replicates, S * A, S), dtype=np.int64)
     np.put_along_axis(counts, np.broadcast_to(support, drawn.shape), drawn, axis=2)
     orders = []
@@ -431,10 +422,16 @@ def test_conditional_probabilities_are_worked_out_once_per_kernel(garnet: Tabula
     np.testing.assert_allclose(kernel.conditional[:, -1], 1.0, atol=1e-12)
 
 
-def test_a_block_keeps_counts_on_the_support_and_one_dense_view_at_a_time(garnet: TabularMDP) -> None:
-    # the draw is (replicates, S*A, k) with k = branching; dense views are built on reading
+@pytest.mark.parametrize("whole_block", [True, False], ids=["small block: all views at once", "large block: one view"])
+def test_a_block_keeps_counts_on_the_support_and_builds_dense_views_on_reading(
+        garnet: TabularMDP, whole_block: bool, monkeypatch: pytest.MonkeyPatch) -> None:
+    # the draw is (replicates, S*A, k) with k = branching; dense views are built on reading: a small
+    # block's all at once, a large block's one at a time (only the last kept)
+    from rlrates import sampling
     from rlrates.sampling import block_seed, draw_block, mdp_kernel
 
+    if not whole_block:
+        monkeypatch.setattr(sampling, "_WHOLE_BLOCK", 0)
     kernel = mdp_kernel(garnet)
     drawn = kernel.sample_support(np.random.default_rng(0), 40, 3)
     assert drawn.shape == (3, garnet.states * garnet.actions, 4)
@@ -442,9 +439,28 @@ def test_a_block_keeps_counts_on_the_support_and_one_dense_view_at_a_time(garnet
     batches = draw_block(kernel, 40, 3, block_seed(0, "views", 0.5, 40, 0, 3))
     first = np.array(batches[0].counts)
     second = batches[1].counts
-    assert batches[1].counts is second  # one view kept while the same replicate is read
+    assert batches[1].counts is second  # the same view while the same replicate is read
+    assert (batches[0].counts is not None) and (batches[1].counts is second) == whole_block
     np.testing.assert_array_equal(batches[0].counts, first)  # rebuilt on demand, same draw
     assert not np.array_equal(first, second)
+    with pytest.raises(ValueError):
+        second.setflags(write=True)  # read-only through its buffer, in both regimes
+
+
+def test_draws_given_each_rows_total_keep_the_totals_and_the_row_probabilities(garnet: TabularMDP) -> None:
+    # the chain of conditional binomials (Devroye 1986, Non-Uniform Random Variate Generation, XI.1.3;
+    # from memory) is a multinomial given each row's total: totals are kept exactly, and the mean count
+    # of each successor is total x probability (a 6-sigma band over 2000 replicates: false alarm < 1e-8)
+    from rlrates.sampling import mdp_kernel
+
+    kernel = mdp_kernel(garnet)
+    rng = np.random.default_rng(5)
+    totals = rng.integers(0, 60, size=(2000, kernel.probs.shape[0]))
+    drawn = kernel.sample_given_totals(np.random.default_rng(6), totals)
+    np.testing.assert_array_equal(drawn.sum(axis=2), totals)
+    expected = totals.sum(axis=0)[:, None] * kernel.probs
+    sd = np.sqrt((totals.sum(axis=0)[:, None] * kernel.probs * (1 - kernel.probs)))
+    assert (np.abs(drawn.sum(axis=0) - expected) <= 6 * sd + 1e-9).all()
 
 
 # --------------------------------------------------------------------------- sparse MDPs
