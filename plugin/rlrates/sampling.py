@@ -257,10 +257,13 @@ class _BlockDraw:
         self.n = int(n)
         self._view: tuple[int, Any] | None = None
         self._whole: list[Any] | None = None
+        self._at_once = not kernel.sparse and drawn.shape[0] * drawn.shape[1] * kernel.states <= _WHOLE_BLOCK
 
     def counts(self, replicate: int) -> Any:
+        if self._whole is not None:
+            return self._whole[replicate]
         kernel = self.kernel
-        if not kernel.sparse and self.drawn.shape[0] * self.drawn.shape[1] * kernel.states <= _WHOLE_BLOCK:
+        if self._at_once:
             if self._whole is None:
                 whole = frozen(kernel.dense_counts(self.drawn).reshape(
                     self.drawn.shape[0], kernel.states, kernel.actions, kernel.states), copy=False)

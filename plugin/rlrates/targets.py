@@ -102,8 +102,15 @@ class Truth:
     scale: float
     _policy_cache: dict[bytes, float] = field(default_factory=dict, repr=False)
     data: "DataSpec | None" = None
+    _problem: Problem | None = field(default=None, repr=False, compare=False)
 
     def problem(self) -> Problem:
+        """What the estimator is told (built once: a Problem and its arrays are read-only, so cells share it)."""
+        if self._problem is None:
+            self._problem = self._new_problem()
+        return self._problem
+
+    def _new_problem(self) -> Problem:
         S, A = self.mdp.states, self.mdp.actions
         if self.data is None:
             initial = frozen(np.full(S, 1.0 / S)) if self.target == "value" else None

@@ -196,6 +196,54 @@ def test_invalid_returns_are_named(garnet: rlrates.TabularMDP, returned: Any, ta
     assert "gamma=0.5, n=128, replicate=0" in result.message
 
 
+class _GoesWrongAt:
+    """The plug-in estimate, except at one call of the cell (gamma=0.75, n=512): then ``wrong(estimate)``."""
+
+    def __init__(self, call: int, wrong: Any, then_raise_at: int | None = None) -> None:
+        self.call, self.wrong, self.then_raise_at, self.seen = call, wrong, then_raise_at, 0
+
+    def __call__(self, batch: Any, problem: Any) -> Any:
+        estimate = reference.plugin_q_pi(batch, problem)
+        if problem.gamma != 0.75 or batch.n != 512:
+            return estimate
+        self.seen += 1
+        if self.then_raise_at is not None and self.seen == self.then_raise_at + 1:
+            raise RuntimeError("a later call raised")
+        return self.wrong(estimate) if self.seen == self.call + 1 else estimate
+
+
+@pytest.mark.parametrize(("wrong", "match"), [
+    (lambda q: np.where(q == q.max(), np.nan, q), r"non-finite value nan at index"),
+    (lambda q: q.astype(np.float32), None),  # valid, scored on the spot between queued float64 estimates
+    (lambda q: q.tolist(), "returned list, not a numpy.ndarray"),
+])
+def test_a_bad_estimate_inside_a_cell_names_its_replicate_and_keeps_the_rows_before_it(
+        garnet: rlrates.TabularMDP, wrong: Any, match: str | None) -> None:
+    # Errors of plain float64 Q-value arrays are scored a cell at a time (rlrates.sweep._Scorer): the
+    # failure must still be the first bad call, in replicate order, with every row before it kept.
+    reference_result = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, seed=3)
+    result = rlrates.check(_GoesWrongAt(5, wrong), garnet, CLAIM, seed=3)
+    if match is None:
+        float32_row = (result.table["gamma"] == 0.75) & (result.table["n"] == 512) & (result.table["replicate"] == 5)
+        same = result.table.drop(columns="seconds")[~float32_row].reset_index(drop=True)
+        expected = reference_result.table.drop(columns="seconds")[~float32_row].reset_index(drop=True)
+        pd.testing.assert_frame_equal(same, expected, check_exact=True)
+        return
+    assert result.status == "error" and result.failure is not None and result.failure.kind == "invalid"
+    assert (result.failure.gamma, result.failure.n, result.failure.replicate) == (0.75, 512, 5)
+    assert re.search(match, result.message), result.message
+    in_cell = result.table[(result.table["gamma"] == 0.75) & (result.table["n"] == 512)]
+    assert sorted(in_cell["replicate"]) == [0, 1, 2, 3, 4]
+    expected = reference_result.table.set_index(["gamma", "n", "replicate"])["error"]
+    np.testing.assert_array_equal(in_cell["error"], expected.loc[[(0.75, 512, r) for r in range(5)]])
+
+
+def test_an_invalid_estimate_queued_before_a_raising_call_is_the_failure_reported(garnet: rlrates.TabularMDP) -> None:
+    result = rlrates.check(_GoesWrongAt(2, lambda q: q * np.inf, then_raise_at=4), garnet, CLAIM, seed=3)
+    assert result.failure is not None and result.failure.kind == "invalid" and result.failure.replicate == 2
+    assert "non-finite value" in result.failure.message
+
+
 def test_an_estimator_cannot_mutate_its_batch(garnet: rlrates.TabularMDP) -> None:
     def scribbles(batch: Any, problem: Any) -> np.ndarray:
         batch.counts[0, 0, 0] += 1

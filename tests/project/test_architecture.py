@@ -8,8 +8,10 @@ that point only at files that exist.
 from __future__ import annotations
 
 import ast
+import os
 import re
 import subprocess
+import sys
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -125,6 +127,29 @@ def test_the_numerics_core_imports_no_pytest() -> None:
             if any(name == "pytest" or name.startswith(("pytest.", "_pytest")) for name in names):
                 offenders.append(_name(path))
     assert offenders == []
+
+
+_LIGHT_CHECK = """
+import sys
+import rlrates
+from rlrates import reference
+mdp = rlrates.garnet(states=10, actions=2, branching=3, seed=0)
+result = rlrates.check(reference.plugin_q_pi, mdp, rlrates.Claim(n=-0.5, horizon=2.0), {args})
+assert result.status in ("pass", "fail", "inconclusive"), result.message
+print(sorted(name for name in ("pandas", "scipy.stats") if name in sys.modules))
+result.table  # the evidence tables become DataFrames when read, and only then
+print("pandas" in sys.modules)
+"""
+
+
+@pytest.mark.parametrize("args", ["seed=0", "seed=1, data='transitions'"], ids=["generative", "logged"])
+def test_a_check_imports_neither_pandas_nor_scipy_stats_until_its_tables_are_read(args: str) -> None:
+    # the statistics path runs on numpy columns (rlrates.columns) and scipy.special's quantiles
+    script = _LIGHT_CHECK.format(args=args)
+    done = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, check=False,
+                          env={**os.environ, "PYTHONWARNINGS": "ignore"})
+    assert done.returncode == 0, done.stderr
+    assert done.stdout.split("\n")[:2] == ["[]", "True"], done.stdout
 
 
 def test_lazy_exports_and_type_checking_imports_agree() -> None:
