@@ -201,7 +201,8 @@ def sweep_cost(mdp: _Model, n_grid: Sequence[int], replicates: int, gammas: Sequ
     grid = [int(n) for n in n_grid]
     replicates = int(replicates)
     dense_elements = S * A * S
-    block = max(1, min(replicates, block_elements // max(1, dense_elements)))
+    # a block holds (replicates, S, A, S) counts; a sparse MDP's stay on the support, (replicates, S*A, k)
+    block = max(1, min(replicates, block_elements // max(1, S * A * width if mdp.is_sparse else dense_elements)))
     if mdp.is_sparse:
         counts = 12 * S * A * width  # CSR data, int32-or-int64 indices
         solve = 3 * 12 * S * A * width

@@ -67,7 +67,8 @@ class CellTask:
 class SweepPlan:
     """Everything the cells of one check share; :meth:`tasks` plans the cells of one pass.
 
-    A block's counts are (replicates, S, A, S) int64: large MDPs split a cell's
+    A block's counts are (replicates, S, A, S) int64 (for a sparse MDP, whose counts
+    stay on each row's support, (replicates, S*A, k)): large MDPs split a cell's
     replicates into several blocks so that one block stays under
     ``BLOCK_ELEMENTS`` (the split is part of the design, so it is the same for
     every executor and recorded in the result's blocks). A logged-data block holds
@@ -93,12 +94,18 @@ class SweepPlan:
             context = stream_context(self.context, mdp.fingerprint)
             if truth.data is not None:  # each behaviour level of a logged regime has streams of its own
                 context = f"{context}|{truth.data.regime}|{truth.data.level}"
+            kernel = self.kernels[key]
             for n in n_values:
-                per_block = 3 * n if truth.data is not None else mdp.states * mdp.actions * mdp.states
+                if truth.data is not None:
+                    per_block = 3 * n
+                elif isinstance(kernel, SupportKernel) and kernel.sparse:  # its counts stay on the support
+                    per_block = kernel.probs.size
+                else:
+                    per_block = mdp.states * mdp.actions * mdp.states
                 size = max(1, BLOCK_ELEMENTS // per_block)
                 for low in range(start, stop, size):
                     planned.append(CellTask(self.estimator, truth, n, low, min(low + size, stop), self.master_seed,
-                                            context, self.norm, self.kernels[key], self.time_limit))
+                                            context, self.norm, kernel, self.time_limit))
         return planned
 
 

@@ -212,3 +212,20 @@ def test_an_interrupt_while_waiting_for_workers_keeps_the_finished_cells(garnet:
     assert result.failure is not None and (result.failure.kind, result.failure.n, result.failure.replicate) == (
         "interrupted", 512, 0)
     assert len(result.table) > 0 and set(result.table["n"]) <= {128, 256}
+
+
+def test_a_sparse_mdps_cells_split_by_their_support_counts_and_a_dense_ones_by_the_dense_block() -> None:
+    # A block holds at most BLOCK_ELEMENTS counts: (replicates, S, A, S) for a dense MDP, but only
+    # (replicates, S*A, k) for a sparse one, whose counts stay on each row's support.
+    from rlrates.sampling import kernels_by_discount
+    from rlrates.sweep import BLOCK_ELEMENTS, SweepPlan
+    from rlrates.targets import solve_truth
+
+    for sparse in (True, False):
+        mdp = rlrates.gridworld(40, 40, walls=(), sparse=sparse)  # S = 1600: S*A*S = 10.24M > 8M
+        truths = {0.5: solve_truth(mdp, 0.5, "q_pi")}
+        plan = SweepPlan(reference.plugin_q_pi, truths, kernels_by_discount({0.5: mdp}), 0, "split")
+        tasks = plan.tasks([128], 0, 24)
+        width = kernels_by_discount({0.5: mdp})[0.5].probs.shape[1]
+        expected = -(-24 // max(1, BLOCK_ELEMENTS // (mdp.states * 4 * (width if sparse else mdp.states))))
+        assert len(tasks) == expected == (1 if sparse else 24), (sparse, len(tasks))
