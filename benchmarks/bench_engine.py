@@ -29,6 +29,8 @@ Printed: own work in ms and the ratios plugin / hand loop and plugin / floor (th
 issue's targets: <= 1.0 against the loop and <= 1.5 against the floor at S = 20,
 <= 1.3 against the loop at dense S = 100). BLAS threads are pinned to 1. On a shared
 machine the numbers move with the neighbours' load; the load average is printed.
+Also printed: the cost of the first check in a fresh process (its imports) against the
+second, and which of pandas, scipy.stats and matplotlib the two checks loaded.
 
 ``--large`` adds, in the same run (a few minutes):
 
@@ -209,6 +211,34 @@ def sparse_grid(side: int = 100) -> list[str]:
             f"status {result.status}; peak resident size after the check {peak:.0f} MB (whole process)"]
 
 
+_FIRST_CHECK = """
+import sys, time
+started = time.perf_counter()
+import rlrates
+from rlrates import reference
+imported = time.perf_counter()
+mdp = rlrates.garnet(20, 4, 5, seed=0)
+rlrates.check(reference.plugin_q_pi, mdp, rlrates.Claim(n=-0.5))
+first = time.perf_counter()
+rlrates.check(reference.plugin_q_pi, mdp, rlrates.Claim(n=-0.5), seed=1)
+second = time.perf_counter()
+loaded = [name for name in ("pandas", "scipy.stats", "matplotlib") if name in sys.modules]
+print(imported - started, first - imported, second - first, ",".join(loaded) or "none")
+"""
+
+
+def first_check() -> str:
+    """A fresh process: import time, the first check's wall time (its imports included) against the second's."""
+    import subprocess
+
+    runs = [subprocess.run([sys.executable, "-c", _FIRST_CHECK], capture_output=True, text=True, check=True).stdout.split()
+            for _ in range(3)]
+    best = min(runs, key=lambda r: float(r[1]))
+    imported, first, second = (float(x) * 1e3 for x in best[:3])
+    return (f"first check in a fresh process (best of 3): import rlrates {imported:.0f} ms, first check {first:.0f} ms, "
+            f"second {second:.0f} ms; loaded by the two checks: {best[3]}")
+
+
 def _import_rlrates() -> None:
     import rlrates.rate_check  # noqa: F401
     import rlrates.sweep  # noqa: F401
@@ -277,6 +307,7 @@ def main(argv: list[str] | None = None) -> None:
     print(f"{'MDP':<26s}{'plugin ms':>12s}{'hand loop ms':>15s}{'floor ms':>11s}{'plugin/loop':>14s}{'plugin/floor':>15s}")
     for label, mdp in ([] if args.scale_only else cases):
         print(row(label, mdp, args.repeats), flush=True)
+    print(first_check(), flush=True)
     if scale:
         for line in scale + dask_cluster():
             print(line, flush=True)

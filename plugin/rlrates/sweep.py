@@ -17,6 +17,7 @@ naming that cell, with the rows of the cells finished before it.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import time
 import traceback
@@ -61,6 +62,26 @@ class CellTask:
     norm: str = "sup"
     kernel: SupportKernel | LoggedKernel | None = field(default=None, repr=False)
     time_limit: float | None = None
+
+    def __getstate__(self) -> dict[str, Any]:
+        # a generative kernel is a function of the MDP: a worker rebuilds it once per MDP
+        # (_kernel_for) instead of receiving its arrays (several times P's size) with every cell
+        state = dict(self.__dict__)
+        if isinstance(state["kernel"], SupportKernel):
+            state["kernel"] = None
+        return state
+
+
+#: The generative kernels this process built for cells that arrived without one, by MDP fingerprint.
+_KERNELS: dict[str, SupportKernel] = {}
+
+
+def _kernel_for(mdp: Any) -> SupportKernel:
+    if mdp.fingerprint not in _KERNELS:
+        while len(_KERNELS) >= 4:
+            _KERNELS.pop(next(iter(_KERNELS)))
+        _KERNELS[mdp.fingerprint] = mdp_kernel(mdp)
+    return _KERNELS[mdp.fingerprint]
 
 
 @dataclass(frozen=True)
@@ -204,7 +225,7 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
     problem = truth.problem()
     kernel = task.kernel
     if kernel is None:
-        kernel = mdp_kernel(truth.mdp)
+        kernel = _kernel_for(truth.mdp)
     seed = block_seed(task.master_seed, task.context, truth.gamma, task.n, task.start, task.stop)
     if isinstance(kernel, LoggedKernel):
         batches: list[Any] = draw_logged_block(kernel, task.n, task.stop - task.start, seed)
@@ -259,41 +280,73 @@ def _outcomes(tasks: list[CellTask], executor: Executor | None) -> Iterator[Cell
         for task in tasks:
             yield run_cell(task)
         return
-    # largest cells first (n samples x replicates), so that no long cell starts last and keeps
-    # one worker busy alone; results are still read in plan order, so tables do not change
-    order = sorted(range(len(tasks)), key=lambda i: -tasks[i].n * (tasks[i].stop - tasks[i].start))
-    slots: list[Future[CellOutcome] | None] = [None] * len(tasks)
+    # one submission per cell: its blocks run one after the other in the worker, so the cell's
+    # MDP is sent once, not once per block; the largest cells (n samples x replicates) go
+    # first, so that no long cell starts last and keeps one worker busy alone; results are
+    # still read in plan order, so tables do not change
+    cells = _cells_of(tasks)
+    order = sorted(range(len(cells)), key=lambda c: -sum(tasks[i].n * (tasks[i].stop - tasks[i].start)
+                                                         for i in cells[c]))
+    slots: list[Future[list[CellOutcome]] | None] = [None] * len(cells)
     try:
         for index in order:
             try:
-                slots[index] = executor.submit(run_cell, tasks[index])
+                slots[index] = executor.submit(run_cells, [tasks[i] for i in cells[index]])
             except BrokenExecutor as exc:  # broken before this cell could even be sent
-                yield _lost(tasks[index], exc)
+                yield _lost(_whole_cell(tasks, cells[index]), exc)
                 return
         futures = [future for future in slots if future is not None]
-        for index, (task, future) in enumerate(zip(tasks, futures)):
+        for index, (members, future) in enumerate(zip(cells, futures)):
             try:
-                outcome = future.result()
+                outcomes = future.result()
             except KeyboardInterrupt:  # keep the cells already back from the workers, in order; run_sweep names the next
                 for finished in futures[index:]:
                     if not finished.done() or finished.cancelled() or finished.exception() is not None:
                         break
-                    yield finished.result()
+                    yield from finished.result()
                 raise
             except CancelledError:
                 raise
             except BrokenProcessPool:  # a dead worker breaks every cell in flight: find the one that killed it
-                yield from _one_by_one(tasks[index:])
+                yield from _one_by_one(tasks[members[0]:])
                 return
             except BaseException as exc:  # the executor lost the cell: its worker died, or the cluster failed
-                outcome = _lost(task, exc)
-            yield outcome  # outside the try: closing the generator here must not count as a lost cell
-            if outcome.failure is not None and outcome.failure.kind == "crashed":
-                return
+                outcomes = [_lost(_whole_cell(tasks, members), exc)]
+            for outcome in outcomes:
+                yield outcome  # outside the try: closing the generator here must not count as a lost cell
+                if outcome.failure is not None and outcome.failure.kind == "crashed":
+                    return
     finally:
         for pending in slots:
             if pending is not None:
                 pending.cancel()
+
+
+def run_cells(tasks: list[CellTask]) -> list[CellOutcome]:
+    """Run the blocks of one cell in order (what a worker is sent); stop after the first failure."""
+    outcomes = []
+    for task in tasks:
+        outcomes.append(run_cell(task))
+        if outcomes[-1].failure is not None:
+            break
+    return outcomes
+
+
+def _cells_of(tasks: list[CellTask]) -> list[list[int]]:
+    """The indices of ``tasks`` grouped by cell: consecutive blocks of the same truth and n."""
+    cells: list[list[int]] = []
+    for index, task in enumerate(tasks):
+        if cells and tasks[cells[-1][-1]].truth is task.truth and tasks[cells[-1][-1]].n == task.n:
+            cells[-1].append(index)
+        else:
+            cells.append([index])
+    return cells
+
+
+def _whole_cell(tasks: list[CellTask], members: list[int]) -> CellTask:
+    """One task spanning every block of a cell (to name all its replicates when the cell is lost)."""
+    first, last = tasks[members[0]], tasks[members[-1]]
+    return first if first is last else dataclasses.replace(first, stop=last.stop)
 
 
 def _one_by_one(tasks: list[CellTask]) -> Iterator[CellOutcome]:

@@ -104,6 +104,12 @@ class Truth:
     data: "DataSpec | None" = None
     _problem: Problem | None = field(default=None, repr=False, compare=False)
 
+    def __getstate__(self) -> dict[str, Any]:
+        # caches stay behind: a worker rebuilds the Problem, and scores policies afresh
+        state = dict(self.__dict__)
+        state.update(_problem=None, _policy_cache={})
+        return state
+
     def problem(self) -> Problem:
         """What the estimator is told (built once: a Problem and its arrays are read-only, so cells share it)."""
         if self._problem is None:

@@ -13,6 +13,8 @@ import pytest
 import rlrates
 from rlrates import reference
 
+import zoo
+
 CLAIM = rlrates.Claim(n=-0.5, horizon=2.0)
 
 
@@ -79,15 +81,17 @@ def test_a_dask_cluster_matches_serial(garnet: rlrates.TabularMDP, serial: rlrat
 
 
 class _RecordingPool(ThreadPoolExecutor):
-    """A one-thread pool that notes the size (n x replicates) of each cell in the order it is submitted."""
+    """A one-thread pool that notes the size (n x replicates) and the blocks of each cell in the order it is submitted."""
 
     def __init__(self) -> None:
         super().__init__(max_workers=1)
         self.sizes: list[int] = []
+        self.blocks: list[int] = []
 
     def submit(self, fn: Any, /, *args: Any, **kwargs: Any) -> Any:
-        task = args[0]
-        self.sizes.append(task.n * (task.stop - task.start))
+        cell = args[0]  # a cell is sent as the list of its blocks
+        self.sizes.append(sum(task.n * (task.stop - task.start) for task in cell))
+        self.blocks.append(len(cell))
         return super().submit(fn, *args, **kwargs)
 
 
@@ -198,7 +202,7 @@ class _InterruptedWhileWaiting(Executor):
 
     def submit(self, fn: Any, /, *args: Any, **kwargs: Any) -> Future[Any]:
         future: Future[Any] = Future()
-        if args[0].n >= 512:
+        if args[0][0].n >= 512:
             future.set_exception(KeyboardInterrupt())
         else:
             future.set_result(fn(*args, **kwargs))
@@ -229,3 +233,33 @@ def test_a_sparse_mdps_cells_split_by_their_support_counts_and_a_dense_ones_by_t
         width = kernels_by_discount({0.5: mdp})[0.5].probs.shape[1]
         expected = -(-24 // max(1, BLOCK_ELEMENTS // (mdp.states * 4 * (width if sparse else mdp.states))))
         assert len(tasks) == expected == (1 if sparse else 24), (sparse, len(tasks))
+
+
+def test_a_cell_goes_to_a_worker_once_with_all_its_blocks_and_without_its_kernel() -> None:
+    # A cell split into blocks (dense S = 1600: one replicate per block) is one submission, so its
+    # MDP is pickled once per cell; the kernel, a function of the MDP, is rebuilt by the worker
+    # (rlrates.sweep._kernel_for) instead of travelling with every cell. Same rows either way.
+    import pickle
+
+    from rlrates.sweep import run_cell
+
+    mdp = rlrates.gridworld(40, 40, walls=(), sparse=False)
+    estimator = zoo.SyntheticPower(mdp, a=-0.5, b=1.0)
+    design = {"n_grid": (256, 512, 1024), "gammas": (0.5, 0.9), "replicates": 4}
+    with _RecordingPool() as pool:
+        pooled = rlrates.check(estimator, mdp, CLAIM, seed=1, executor=pool, **design)
+    assert pool.blocks and set(pool.blocks) == {4}  # every cell of every pass: one submission, 4 blocks
+    serial = rlrates.check(estimator, mdp, CLAIM, seed=1, **design)
+    pd.testing.assert_frame_equal(serial.table.drop(columns="seconds"), pooled.table.drop(columns="seconds"),
+                                  check_exact=True)
+    small = rlrates.garnet(10, 2, 3, seed=1)
+    from rlrates.sampling import kernels_by_discount
+    from rlrates.sweep import SweepPlan
+    from rlrates.targets import solve_truth
+
+    plan = SweepPlan(reference.plugin_q_pi, {0.5: solve_truth(small, 0.5, "q_pi")}, kernels_by_discount({0.5: small}),
+                     0, "pickled")
+    task = plan.tasks([128], 0, 6)[0]
+    sent = pickle.loads(pickle.dumps(task))
+    assert task.kernel is not None and sent.kernel is None and sent.truth._problem is None
+    assert [row[:2] for row in run_cell(sent).rows] == [row[:2] for row in run_cell(task).rows]
