@@ -59,11 +59,14 @@ def _record(job: tuple[str, int, int, str]) -> dict[str, Any]:
     }
 
 
-def record(path: Path, seeds: int, logged_seeds: int, budgets: list[str], workers: int) -> None:
+def record(path: Path, seeds: int, logged_seeds: int, budgets: list[str], workers: int,
+           zoos: tuple[str, ...] = ("generative", "logged")) -> None:
     jobs = []
     for budget in budgets:
         scale = 1 if budget == "ci" else 4  # an appendix check costs several ci checks
         for which, count in (("generative", seeds), ("logged", logged_seeds)):
+            if which not in zoos:
+                continue
             for index, member in enumerate(ZOOS[which]()):
                 per = max(1, (count // 3 if member.slow else count) // scale)
                 jobs.extend((which, index, seed, budget) for seed in range(per))
@@ -82,9 +85,9 @@ def _relative(a: Any, b: Any) -> float:
     return abs(a - b) / max(abs(a), abs(b))
 
 
-def compare(before: Path, after: Path) -> int:
-    old = {r["check"]: r for r in json.loads(before.read_text())}
-    new = {r["check"]: r for r in json.loads(after.read_text())}
+def compare(before: Path, after: Path, only: tuple[str, ...] = ()) -> int:
+    old = {r["check"]: r for r in json.loads(before.read_text()) if all(part in r["check"] for part in only)}
+    new = {r["check"]: r for r in json.loads(after.read_text()) if all(part in r["check"] for part in only)}
     if old.keys() != new.keys():
         print(f"the recordings hold different checks: {len(old.keys() ^ new.keys())} not in both")
         return 1
@@ -118,14 +121,18 @@ def main() -> int:
     rec.add_argument("--budget", action="append", choices=sorted(rlrates.BUDGETS),
                      help="budget(s) to run (default ci; appendix runs a quarter of the seeds)")
     rec.add_argument("--workers", type=int, default=1)
+    rec.add_argument("--zoo", action="append", choices=sorted(ZOOS), help="zoo(s) to run (default both)")
     cmp = sub.add_parser("compare", help="compare two recordings")
     cmp.add_argument("before", type=Path)
     cmp.add_argument("after", type=Path)
+    cmp.add_argument("--only", action="append", default=[],
+                     help="compare only the checks whose name contains this (repeatable), e.g. logged/ or /ci/")
     args = parser.parse_args()
     if args.command == "record":
-        record(args.path, args.seeds, args.logged_seeds, args.budget or ["ci"], args.workers)
+        record(args.path, args.seeds, args.logged_seeds, args.budget or ["ci"], args.workers,
+               tuple(args.zoo or ZOOS))
         return 0
-    return compare(args.before, args.after)
+    return compare(args.before, args.after, tuple(args.only))
 
 
 if __name__ == "__main__":

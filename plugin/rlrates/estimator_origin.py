@@ -86,8 +86,20 @@ def estimator_expression(estimator: Any) -> tuple[str, str]:
 
 
 def _source_sha256(estimator: Any) -> str | None:
+    function = _unwrapped(estimator)
+    code = getattr(function, "__code__", None)
+    return _code_source_sha256(code) if code is not None else _hash_source(function)
+
+
+@functools.lru_cache(maxsize=256)
+def _code_source_sha256(code: types.CodeType) -> str | None:
+    """The source hash of the code that runs (read once per code object: finding a function's source tokenizes its file)."""
+    return _hash_source(code)
+
+
+def _hash_source(function: Any) -> str | None:
     try:
-        source = inspect.getsource(_unwrapped(estimator))
+        source = inspect.getsource(function)
     except (OSError, TypeError):
         return None
     return hashlib.sha256(source.encode("utf-8")).hexdigest()
@@ -143,11 +155,12 @@ def estimator_origin(estimator: Any) -> dict[str, Any]:
         source_file = inspect.getsourcefile(function)
     except TypeError:
         source_file = None
+    problem = import_problem(estimator)
     return {
         "qualname": qualname,
         "module": module,
-        "importable": import_problem(estimator) is None,
-        "import_problem": import_problem(estimator) or "",
+        "importable": problem is None,
+        "import_problem": problem or "",
         "source_file": source_file,
         "source_sha256": _source_sha256(estimator),
         "packages": _package_versions(module),
