@@ -14,7 +14,7 @@ order.
 
 from __future__ import annotations
 
-from collections.abc import Iterable, Iterator, Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -71,9 +71,6 @@ class Columns:
     def __contains__(self, name: object) -> bool:
         return name in self._data
 
-    def __iter__(self) -> Iterator[str]:
-        return iter(self._data)
-
     def __getitem__(self, key: Any) -> Any:
         """A column by name (an ndarray), or the rows picked by a boolean mask, index array or slice."""
         if isinstance(key, str):
@@ -107,13 +104,11 @@ class Columns:
         """One row as a dict of Python scalars."""
         return {name: values[index].item() for name, values in self._data.items()}
 
-    def to_frame(self, dtypes: Mapping[str, Any] | None = None) -> "pd.DataFrame":
+    def to_frame(self) -> "pd.DataFrame":
         """The table as a pandas DataFrame (the one place the statistics path meets pandas)."""
         import pandas as pd
 
-        frame = pd.DataFrame({name: values for name, values in self._data.items()},
-                             index=pd.RangeIndex(self._length))
-        return frame.astype(dict(dtypes)) if dtypes else frame
+        return pd.DataFrame(dict(self._data), index=pd.RangeIndex(self._length))
 
     def __repr__(self) -> str:
         return f"Columns({self._length} rows: {', '.join(self._data)})"

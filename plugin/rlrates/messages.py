@@ -48,7 +48,7 @@ def mean_error_grid(table: Columns) -> list[str]:
         return []
     coverage = "behaviour" in table and len(np.unique(table["behaviour"])) > 1
     across = ["gamma", "C"] if coverage else ["gamma"]
-    groups = group_rows(table, [*across, "n"])
+    groups = group_rows(table, [*across, "n"], within="error")
     means = group_stats(table["error"], groups)["mean"]
     keys = groups.keys
     columns = group_rows(keys, across).keys

@@ -182,8 +182,8 @@ class _Scorer:
         truth = task.truth
         self.task, self.outcome, self.truth = task, outcome, truth
         self.shape = np.shape(truth.value)
-        self.fast = task.norm == "sup" and truth.target in ("q_pi", "q_star")
-        self.block = np.empty((task.stop - task.start, *self.shape)) if self.fast else None
+        fast = task.norm == "sup" and truth.target in ("q_pi", "q_star")
+        self.block = np.empty((task.stop - task.start, *self.shape)) if fast else None
         self.pending: list[tuple[int, float]] = []  # (replicate, seconds) of the rows in the block
 
     def add(self, replicate: int, estimate: Any, seconds: float) -> bool:
