@@ -18,7 +18,6 @@ naming that cell, with the rows of the cells finished before it.
 from __future__ import annotations
 
 import dataclasses
-import math
 import time
 import traceback
 from collections.abc import Iterable, Iterator, Mapping
@@ -33,7 +32,8 @@ from .columns import Columns
 from .result import Block, CellFailure
 from .logged import LoggedKernel, draw_logged_block
 from .sampling import Batch, SupportKernel, block_seed, draw_block, mdp_kernel, stream_context
-from .targets import EstimateError, Problem, Truth, scored_error
+from .scoring import CellScorer
+from .targets import Problem, Truth
 from .vocabulary import ERROR_COLUMNS
 
 __all__ = ["Estimator", "CellTask", "CellOutcome", "SweepPlan", "blocks_of", "run_cell", "run_sweep", "BLOCK_ELEMENTS"]
@@ -168,58 +168,6 @@ def _behaviour(truth: Truth) -> int | None:
     return None if truth.data is None else truth.data.level
 
 
-class _Scorer:
-    """Errors of a cell's estimates, in replicate order.
-
-    Plain float64 Q-value arrays under the sup-norm are copied into one block and
-    scored together when the cell ends (one subtraction and one maximum per cell,
-    the same numbers as one per call); any other estimate is scored on the spot, after
-    the ones before it. An error that is not finite sends its estimate through the
-    full validation, which names the bad entry.
-    """
-
-    def __init__(self, task: CellTask, outcome: CellOutcome) -> None:
-        truth = task.truth
-        self.task, self.outcome, self.truth = task, outcome, truth
-        self.shape = np.shape(truth.value)
-        fast = task.norm == "sup" and truth.target in ("q_pi", "q_star")
-        self.block = np.empty((task.stop - task.start, *self.shape)) if fast else None
-        self.pending: list[tuple[int, float]] = []  # (replicate, seconds) of the rows in the block
-
-    def add(self, replicate: int, estimate: Any, seconds: float) -> bool:
-        """Score (or queue) one estimate; False when it, or one queued before it, was invalid."""
-        if (self.block is not None and type(estimate) is np.ndarray and estimate.dtype == np.float64
-                and estimate.shape == self.shape):
-            self.block[len(self.pending)] = estimate
-            self.pending.append((replicate, seconds))
-            return True
-        return self.flush() and self._one(replicate, estimate, seconds)
-
-    def flush(self) -> bool:
-        """Score the queued estimates; False when one was invalid (the rows before it are kept)."""
-        if not self.pending:
-            return True
-        queued, self.pending = self.pending, []
-        assert self.block is not None
-        errors = np.abs(self.block[: len(queued)] - self.truth.value).max(axis=tuple(range(1, 1 + len(self.shape))))
-        for index, ((replicate, seconds), error) in enumerate(zip(queued, errors.tolist())):
-            if math.isfinite(error):
-                self.outcome.rows.append((replicate, error, seconds))
-            elif not self._one(replicate, self.block[index], seconds):
-                return False
-        return True
-
-    def _one(self, replicate: int, estimate: Any, seconds: float) -> bool:
-        try:
-            error = scored_error(estimate, self.truth, self.task.norm)
-        except EstimateError as exc:
-            self.outcome.failure = CellFailure(self.truth.gamma, self.task.n, replicate, "invalid", str(exc), "",
-                                               _behaviour(self.truth))
-            return False
-        self.outcome.rows.append((replicate, error, seconds))
-        return True
-
-
 def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
     truth = task.truth
     problem = truth.problem()
@@ -231,7 +179,7 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
         batches: list[Any] = draw_logged_block(kernel, task.n, task.stop - task.start, seed)
     else:
         batches = draw_block(kernel, task.n, task.stop - task.start, seed)
-    scorer = _Scorer(task, outcome)
+    scorer = CellScorer(truth, task.norm, task.n, task.stop - task.start, outcome.rows, _behaviour(truth))
     previous: object = None
     try:
         for replicate, batch in zip(range(task.start, task.stop), batches):
@@ -239,25 +187,24 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
             try:
                 estimate = task.estimator(batch, problem)
             except (Exception, SystemExit, GeneratorExit) as exc:  # the estimator's own bug: record it, keep the session alive
-                if scorer.flush():
-                    outcome.failure = CellFailure(
-                        truth.gamma, task.n, replicate, "raised", f"{type(exc).__name__}: {exc}",
-                        "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)), _behaviour(truth),
-                    )
+                outcome.failure = scorer.flush() or CellFailure(
+                    truth.gamma, task.n, replicate, "raised", f"{type(exc).__name__}: {exc}",
+                    "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)), _behaviour(truth),
+                )
                 return
             seconds = time.perf_counter() - started
             problem_text = _call_problem(estimate, previous, seconds, task.time_limit)
             if problem_text is not None:
-                if scorer.flush():
-                    outcome.failure = CellFailure(truth.gamma, task.n, replicate, "invalid", problem_text, "",
-                                                  _behaviour(truth))
+                outcome.failure = scorer.flush() or CellFailure(truth.gamma, task.n, replicate, "invalid",
+                                                                 problem_text, "", _behaviour(truth))
                 return
-            if not scorer.add(replicate, estimate, seconds):
+            outcome.failure = scorer.add(replicate, estimate, seconds)
+            if outcome.failure is not None:
                 return
             previous = estimate
     finally:  # also on an interrupt: the rows finished before it are kept
         if outcome.failure is None:
-            scorer.flush()
+            outcome.failure = scorer.flush()
 
 
 def _call_problem(estimate: object, previous: object, seconds: float, time_limit: float | None) -> str | None:
@@ -418,9 +365,9 @@ def rows_to_table(records: list[tuple[float, float, int, int, float, float, int]
                   coverage: Mapping[tuple[float, int], float] | None = None) -> Columns:
     """The rows as error-table columns (``ERROR_COLUMNS``, for logged data also ``behaviour`` and ``C``), sorted."""
     rows = np.array(records, dtype=float).reshape(len(records), 7)
-    data: dict[str, np.ndarray] = {"gamma": rows[:, 0], "H": rows[:, 1], "n": rows[:, 2].astype(np.int64),
-                                   "replicate": rows[:, 3].astype(np.int64), "error": rows[:, 4],
-                                   "seconds": rows[:, 5]}
+    kinds = (np.float64, np.float64, np.int64, np.int64, np.float64, np.float64)  # gamma, H, n, replicate, error, seconds
+    data: dict[str, np.ndarray] = {name: rows[:, i].astype(kind)
+                                   for i, (name, kind) in enumerate(zip(ERROR_COLUMNS, kinds))}
     if coverage is None:
         return Columns(data, len(records)).sort("gamma", "n", "replicate")
     levels = rows[:, 6].astype(np.int64)
