@@ -2,6 +2,7 @@
 
     python benchmarks/bench_cluster_grid.py                 # 316 x 316 (99,856 states), 2 workers
     python benchmarks/bench_cluster_grid.py --side 60 --budget ci   # a quick rehearsal
+    python benchmarks/bench_cluster_grid.py --serial        # the same check without a cluster
 
 One ``rlrates.check`` of ``reference.plugin_q_pi`` (one sparse LU solve per call) on
 ``gridworld(side, side, walls=(), sparse=True)`` through ``client.get_executor()`` of a
@@ -40,7 +41,10 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--side", type=int, default=316, help="grid side (default 316: 99,856 states)")
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--budget", default="appendix", choices=sorted(rlrates.BUDGETS))
+    parser.add_argument("--serial", action="store_true", help="run the same check serially instead (the speed-up's base)")
     args = parser.parse_args(argv)
+    if args.serial:
+        return _serial(args.side, args.budget)
     try:
         import dask
         from dask.distributed import Client, LocalCluster
@@ -71,6 +75,18 @@ def main(argv: list[str] | None = None) -> int:
           f"workers {', '.join(f'{peak:.0f}' for peak in worker_peaks.values())} MB")
     print(f"cores: {os.cpu_count()}, load average at the end: {', '.join(f'{x:.1f}' for x in os.getloadavg())}")
     print(result.message.splitlines()[0])
+    return 0
+
+
+def _serial(side: int, budget: str) -> int:
+    mdp = rlrates.gridworld(side, side, walls=(), sparse=True)
+    started = time.perf_counter()
+    result = rlrates.check(reference.plugin_q_pi, mdp, rlrates.Claim(n=-0.5), budget=budget, seed=0)
+    wall = time.perf_counter() - started
+    print(f"{budget}-budget check, serial: {wall:.0f} s wall, status {result.status}, {result.run.passes} pass(es), "
+          f"{result.estimator_calls} calls, {result.run.estimator_seconds:.0f} s in the estimator; peak resident size "
+          f"{resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024:.0f} MB")
+    print(f"cores: {os.cpu_count()}, load average at the end: {', '.join(f'{x:.1f}' for x in os.getloadavg())}")
     return 0
 
 
