@@ -86,11 +86,10 @@ class Columns:
         return Columns._made({name: self[name] for name in names}, self._length)
 
     def with_columns(self, **new: Any) -> "Columns":
-        """These columns plus (or replacing) ``new``; a scalar is repeated down the rows."""
-        data = dict(self._data)
-        for name, values in new.items():
-            array = np.asarray(values)
-            data[name] = np.full(self._length, array) if array.ndim == 0 else array
+        """These columns plus (or replacing) ``new``, arrays of this table's length."""
+        data = {**self._data, **{name: np.asarray(values) for name, values in new.items()}}
+        if any(len(values) != self._length for values in data.values()):
+            raise ValueError(f"new columns must have {self._length} rows")
         return Columns._made(data, self._length)
 
     def sort(self, *keys: str) -> "Columns":

@@ -153,10 +153,9 @@ def _common(kept: Columns, by: list[str], what: str, measured: list[Any]) -> lis
     """The values of ``by`` at which every one of ``measured`` (values of column ``what``) has a row."""
     if not len(kept):
         return []
-    groups = group_rows(kept, by)
-    pairs = group_rows(kept, [*by, what])  # distinct (by..., what) combinations
-    per = group_rows(pairs.keys, by).counts
-    return [tuple(groups.keys[name][i].item() for name in by) for i in np.flatnonzero(per == len(measured))]
+    pairs = group_rows(kept, [*by, what]).keys  # the distinct (by..., what) combinations
+    per = group_rows(pairs, by)  # how many values of `what` each value of `by` has
+    return [tuple(per.keys[name][i].item() for name in by) for i in np.flatnonzero(per.counts == len(measured))]
 
 
 def fit_horizon(cells: Columns, gammas: list[float]) -> HorizonFit:

@@ -20,7 +20,7 @@ from .columns import Columns
 from .mdp import TabularMDP
 from .result import CellFailure
 from .logged import LoggedKernel, draw_logged_block
-from .sampling import SupportKernel, draw_block
+from .sampling import SupportKernel, draw_block, mdp_kernel
 from .targets import Truth
 
 __all__ = ["determinism_probe", "deterministic_mdp", "run_probes", "constant_replicates"]
@@ -38,14 +38,18 @@ def _as_array(value: Any) -> np.ndarray | None:
         return None
 
 
-def determinism_probe(estimator: Any, truth: Truth, kernel: SupportKernel | LoggedKernel, n: int,
+def determinism_probe(estimator: Any, truth: Truth, kernel: SupportKernel | LoggedKernel | None, n: int,
                       seed: int) -> str | None:
     """Call ``estimator`` twice on one batch; a sentence when the two estimates differ.
+
+    ``kernel=None`` stands for the generative kernel of ``truth.mdp`` (built here).
 
     The batch comes from a stream of its own, so the probe changes no number of
     the sweep. An estimator that raises here is left to the sweep, which reports
     the failure with its cell.
     """
+    if kernel is None:
+        kernel = mdp_kernel(truth.mdp)
     stream = np.random.SeedSequence(seed, spawn_key=(_PROBE_KEY,))
     batch: Any = (draw_logged_block(kernel, n, 1, stream) if isinstance(kernel, LoggedKernel)
                   else draw_block(kernel, n, 1, stream))[0]
@@ -101,8 +105,10 @@ def run_probes(estimator: Any, target: str, truths: Mapping[Any, Truth], kernels
     if executor is None or isinstance(executor, ThreadPoolExecutor):
         drift = determinism_probe(*args)
     else:
+        # a generative kernel is a function of the MDP (several times P's size): the worker rebuilds it
+        sent = (estimator, truths[gamma], None if isinstance(kernels[gamma], SupportKernel) else kernels[gamma], n, seed)
         try:
-            drift = executor.submit(determinism_probe, *args).result()
+            drift = executor.submit(determinism_probe, *sent).result()
         except KeyboardInterrupt:
             raise
         except BaseException:  # a worker lost to the probe: the sweep reports the estimator's failure by cell

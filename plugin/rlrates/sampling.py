@@ -142,11 +142,6 @@ class SupportKernel:
         columns.append(left)
         return np.stack(columns, axis=-1)
 
-    def sample_counts(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
-        """Dense counts of ``replicates`` independent draws, shape (replicates, S, A, S)."""
-        drawn = self.sample_support(rng, n, replicates)
-        return self.dense_counts(drawn).reshape(replicates, self.states, self.actions, self.states)
-
     def dense_counts(self, drawn: IntArray) -> IntArray:
         """Scatter support counts (..., S*A, k) into a dense (..., S*A, S) array."""
         rows, width = self.support.shape

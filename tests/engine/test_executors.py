@@ -263,3 +263,22 @@ def test_a_cell_goes_to_a_worker_once_with_all_its_blocks_and_without_its_kernel
     sent = pickle.loads(pickle.dumps(task))
     assert task.kernel is not None and sent.kernel is None and sent.truth._problem is None
     assert [row[:2] for row in run_cell(sent).rows] == [row[:2] for row in run_cell(task).rows]
+
+
+def test_the_determinism_probe_rebuilds_a_generative_kernel_it_was_not_sent() -> None:
+    # with a process or cluster executor the probe is sent without the kernel (rlrates.probes.run_probes)
+    from rlrates.probes import determinism_probe
+    from rlrates.sampling import mdp_kernel
+    from rlrates.targets import solve_truth
+
+    mdp = rlrates.garnet(10, 2, 3, seed=1)
+    truth = solve_truth(mdp, 0.5, "q_pi")
+    noisy = np.random.default_rng(0)
+
+    def drifts(batch: Any, problem: Any) -> np.ndarray:  # not a function of its batch
+        return reference.plugin_q_pi(batch, problem) + noisy.normal(0.0, 1e-3, (problem.states, problem.actions))
+
+    with_kernel = determinism_probe(drifts, truth, mdp_kernel(mdp), 128, 4)
+    rebuilt = determinism_probe(drifts, truth, None, 128, 4)
+    assert with_kernel is not None and rebuilt is not None
+    assert determinism_probe(reference.plugin_q_pi, truth, None, 128, 4) is None

@@ -100,3 +100,10 @@ def test_mean_error_grid_holds_pandas_pivot_means(logged: bool) -> None:
         assert header[1:] == [f"gamma={g:g}" for g in pivot.columns]
         values = [[float(v) for v in row[1:]] for row in body]
     np.testing.assert_allclose(values, pivot.to_numpy(), rtol=5e-4)  # printed to 4 significant digits
+
+
+def test_new_columns_must_have_the_tables_length() -> None:
+    table = Columns({"a": np.arange(3)})
+    assert table.with_columns(b=np.ones(3))["b"].tolist() == [1.0, 1.0, 1.0]
+    with pytest.raises(ValueError, match="must have 3 rows"):
+        table.with_columns(b=np.ones(2))
