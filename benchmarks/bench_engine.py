@@ -3,6 +3,7 @@
     python benchmarks/bench_engine.py                # S = 20 (b = 5), S = 100 (b = 5 and dense b = 100)
     python benchmarks/bench_engine.py --large        # also S = 1000 (b = 5), S = 10^4 sparse and a dask cluster
     python benchmarks/bench_engine.py --repeats 5
+    python benchmarks/bench_engine.py --only 'garnet(20' --repeats 15   # one row, quickly
 
 Every row runs the ci budget's first pass (3 discounts x 5 sample sizes x 24
 replicates = 360 calls of ``reference.plugin_q_pi``) three ways, and prints the
@@ -190,12 +191,16 @@ def plugin_own(mdp: rlrates.TabularMDP, seed: int) -> tuple[float, int, rlrates.
 
 def row(label: str, mdp: rlrates.TabularMDP, repeats: int) -> str:
     plugin_own(mdp, 999)  # warm-up: imports, caches
-    ours = [plugin_own(mdp, seed) for seed in range(repeats)]
+    hand_loop(mdp, reference.plugin_q_pi, 999)
+    ours, loops, bottoms = [], [], []
+    for seed in range(repeats):  # interleaved, so that a change of the machine's load hits all three alike
+        ours.append(plugin_own(mdp, seed))
+        loops.append(hand_loop(mdp, reference.plugin_q_pi, seed))
+        bottoms.append(floor(mdp, seed))
     own = min(o for o, _, _ in ours)
     passes = max(p for _, p, _ in ours)
-    loops = [hand_loop(mdp, reference.plugin_q_pi, seed) for seed in range(repeats)]
     loop_own = min(total - inside for total, inside in loops)
-    bottom = min(floor(mdp, seed) for seed in range(repeats))
+    bottom = min(bottoms)
     mark = "" if passes == 1 else f"  (up to {passes} passes, per pass)"
     return (f"{label:<26s}{own * 1e3:12.1f}{loop_own * 1e3:15.1f}{bottom * 1e3:11.1f}"
             f"{own / loop_own:14.2f}{own / bottom:15.2f}{mark}")
@@ -311,6 +316,8 @@ def main(argv: list[str] | None = None) -> None:
                         help="also S = 1000 (b = 5), the 10^4-state sparse gridworld and a dask local cluster")
     parser.add_argument("--scale-only", action="store_true",
                         help="only what --large adds at scale: the sparse gridworld and the dask cluster")
+    parser.add_argument("--only", metavar="TEXT", default="",
+                        help="only the table rows whose MDP label contains TEXT (e.g. 'garnet(20'), no first-check line")
     args = parser.parse_args(argv)
     scale = sparse_grid() if args.large or args.scale_only else []  # first: its peak memory is then its own
     cases = [("garnet(20, 4, 5)", rlrates.garnet(20, 4, 5, seed=0)),
@@ -322,8 +329,10 @@ def main(argv: list[str] | None = None) -> None:
           f"{args.repeats}")
     print(f"{'MDP':<26s}{'plugin ms':>12s}{'hand loop ms':>15s}{'floor ms':>11s}{'plugin/loop':>14s}{'plugin/floor':>15s}")
     for label, mdp in ([] if args.scale_only else cases):
-        print(row(label, mdp, args.repeats), flush=True)
-    print(first_check(), flush=True)
+        if args.only in label:
+            print(row(label, mdp, args.repeats), flush=True)
+    if not args.only:
+        print(first_check(), flush=True)
     if scale:
         for line in scale + dask_cluster():
             print(line, flush=True)

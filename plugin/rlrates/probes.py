@@ -20,7 +20,7 @@ from .columns import Columns
 from .mdp import TabularMDP
 from .result import CellFailure
 from .logged import LoggedKernel, draw_logged_block
-from .sampling import SupportKernel, draw_block, mdp_kernel
+from .sampling import SupportKernel, cached_kernel, draw_block
 from .targets import Truth
 
 __all__ = ["determinism_probe", "deterministic_mdp", "run_probes", "constant_replicates"]
@@ -49,7 +49,7 @@ def determinism_probe(estimator: Any, truth: Truth, kernel: SupportKernel | Logg
     the failure with its cell.
     """
     if kernel is None:
-        kernel = mdp_kernel(truth.mdp)
+        kernel = cached_kernel(truth.mdp)
     stream = np.random.SeedSequence(seed, spawn_key=(_PROBE_KEY,))
     batch: Any = (draw_logged_block(kernel, n, 1, stream) if isinstance(kernel, LoggedKernel)
                   else draw_block(kernel, n, 1, stream))[0]

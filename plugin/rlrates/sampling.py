@@ -20,15 +20,16 @@ import hashlib
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from functools import lru_cache
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
 from numpy.typing import NDArray
 
+from .buffers import COUNT_VIEWS
 from .mdp import TabularMDP
 from .targets import frozen
 
-__all__ = ["Batch", "draw", "draw_block", "block_seed", "cell_seed", "stream_context", "mdp_kernel", "stable_words", "sampling_kernel", "SupportKernel", "support_kernel", "sparse_support_kernel",
+__all__ = ["Batch", "draw", "draw_block", "block_seed", "block_key", "StreamKey", "cell_seed", "stream_context", "mdp_kernel", "stable_words", "sampling_kernel", "cached_kernel", "SupportKernel", "support_kernel", "sparse_support_kernel",
            "kernels_by_discount"]
 
 IntArray = NDArray[np.int64]
@@ -51,14 +52,42 @@ def gamma_key(gamma: float) -> int:
     return int(round(float(gamma) * 1_000_000_000))
 
 
-def block_seed(master_seed: int, context: str, gamma: float, n: int, start: int, stop: int) -> np.random.SeedSequence:
-    """The seed of replicates ``start .. stop - 1`` of one sweep cell, drawn together.
+class StreamKey(NamedTuple):
+    """A :class:`numpy.random.SeedSequence` by its entropy and spawn key, not built yet.
+
+    A block draws from its seed's children only; building the seed itself as well
+    would cost one more SeedSequence (about 25 us) per block. ``child(*path)`` is the
+    SeedSequence at ``(*spawn_key, *path)``, as ``seed.spawn`` would make it but
+    without advancing any spawn counter; ``sequence()`` is the seed itself.
+    """
+
+    entropy: int
+    spawn_key: tuple[int, ...]
+    pool_size: int = 4
+
+    @classmethod
+    def of(cls, seq: np.random.SeedSequence) -> "StreamKey":
+        return cls(seq.entropy, tuple(seq.spawn_key), seq.pool_size)
+
+    def child(self, *path: int) -> np.random.SeedSequence:
+        return np.random.SeedSequence(self.entropy, spawn_key=(*self.spawn_key, *path), pool_size=self.pool_size)
+
+    def sequence(self) -> np.random.SeedSequence:
+        return self.child()
+
+
+def block_key(master_seed: int, context: str, gamma: float, n: int, start: int, stop: int) -> StreamKey:
+    """The seed of replicates ``start .. stop - 1`` of one sweep cell, drawn together, as a :class:`StreamKey`.
 
     Key: (hash of ``context``, gamma, n, start, stop). A replicate is rebuilt from
     its block's seed and its position in the block (see :func:`draw_block`).
     """
-    key = (*stable_words(context), gamma_key(gamma), int(n), int(start), int(stop))
-    return np.random.SeedSequence(int(master_seed), spawn_key=key)
+    return StreamKey(int(master_seed), (*stable_words(context), gamma_key(gamma), int(n), int(start), int(stop)))
+
+
+def block_seed(master_seed: int, context: str, gamma: float, n: int, start: int, stop: int) -> np.random.SeedSequence:
+    """The seed of :func:`block_key` as a ready :class:`numpy.random.SeedSequence`."""
+    return block_key(master_seed, context, gamma, n, start, stop).sequence()
 
 
 def cell_seed(master_seed: int, context: str, gamma: float, n: int, replicate: int) -> np.random.SeedSequence:
@@ -113,6 +142,8 @@ class SupportKernel:
         # where each support column lands in a flat dense (S*A*S) array of counts
         rows = self.support.shape[0]
         object.__setattr__(self, "scatter", (self.support + self.states * np.arange(rows)[:, None]).ravel())
+        for array in (self.support, self.probs, self.conditional, self._columns, self.scatter):
+            array.setflags(write=False)  # kernels are shared between checks (cached_kernel)
 
     def sample_support(self, rng: np.random.Generator, n: int, replicates: int = 1) -> IntArray:
         """Counts on the support of ``replicates`` independent draws of n samples per row, shape (replicates, S*A, k).
@@ -153,6 +184,18 @@ class SupportKernel:
         else:  # a dense kernel's support columns are distinct states
             counts[offsets] = drawn.ravel()
         return counts.reshape(*drawn.shape[:-1], self.states)
+
+    def dense_view(self, drawn: IntArray) -> IntArray:
+        """Support counts (..., S*A, k) of a dense kernel as a read-only (..., S*A, S) view.
+
+        The same numbers as :meth:`dense_counts`, written into memory reused from
+        earlier views that nobody holds any more (:mod:`rlrates.buffers`).
+        """
+        rows, width = self.support.shape
+        blocks = drawn.size // (rows * width)
+        flat, view = COUNT_VIEWS.take(blocks * rows * self.states, self.scatter)
+        flat.reshape(blocks, rows * self.states)[:, self.scatter] = drawn.reshape(blocks, rows * width)
+        return view.reshape(*drawn.shape[:-1], self.states)
 
     def sparse_counts(self, drawn: IntArray) -> Any:
         """Support counts (S*A, k) of one draw as a scipy.sparse CSR array of shape (S*A, S)."""
@@ -216,12 +259,27 @@ def sparse_support_kernel(flat: Any, states: int, actions: int) -> SupportKernel
 
 
 def kernels_by_discount(mdps: "dict[float, TabularMDP]") -> dict[float, SupportKernel]:
-    """The sampling kernel per discount, built once per distinct MDP (one MDP serves every gamma unless it is a family)."""
-    by_fingerprint: dict[str, SupportKernel] = {}
-    for mdp in mdps.values():
-        if mdp.fingerprint not in by_fingerprint:
-            by_fingerprint[mdp.fingerprint] = mdp_kernel(mdp)
-    return {gamma: by_fingerprint[mdp.fingerprint] for gamma, mdp in mdps.items()}
+    """The sampling kernel per discount, one per distinct MDP (one MDP serves every gamma unless it is a family)."""
+    return {gamma: cached_kernel(mdp) for gamma, mdp in mdps.items()}
+
+
+#: The kernels this process built, by MDP fingerprint: the next check of the same MDP, and a
+#: worker's next cell of it (cells travel without their kernel), reuse them.
+_KERNELS: dict[str, SupportKernel] = {}
+#: Support entries kept in all (each kernel holds five arrays of that size); the newest kernel is always kept.
+_KERNEL_ENTRIES = 2**22
+
+
+def cached_kernel(mdp: TabularMDP) -> SupportKernel:
+    """:func:`mdp_kernel`, built once per MDP fingerprint and process (the four newest, within ``_KERNEL_ENTRIES``)."""
+    kernel = _KERNELS.get(mdp.fingerprint)
+    if kernel is None:
+        kernel = mdp_kernel(mdp)
+        while _KERNELS and (len(_KERNELS) >= 4 or kernel.probs.size + sum(k.probs.size for k in _KERNELS.values())
+                            > _KERNEL_ENTRIES):
+            _KERNELS.pop(next(iter(_KERNELS)))
+        _KERNELS[mdp.fingerprint] = kernel
+    return kernel
 
 
 def mdp_kernel(mdp: TabularMDP) -> SupportKernel:
@@ -259,18 +317,17 @@ class _BlockDraw:
             return self._whole[replicate]
         kernel = self.kernel
         if self._at_once:
-            if self._whole is None:
-                whole = frozen(kernel.dense_counts(self.drawn).reshape(
-                    self.drawn.shape[0], kernel.states, kernel.actions, kernel.states), copy=False)
-                self._whole = list(whole)  # one view object per replicate, the same on every read
+            whole = kernel.dense_view(self.drawn).reshape(self.drawn.shape[0], kernel.states, kernel.actions,
+                                                          kernel.states)
+            self._whole = list(whole)  # one view object per replicate, the same on every read
             return self._whole[replicate]
         if self._view is None or self._view[0] != replicate:
+            self._view = None  # the last view's buffer can serve this one when nobody else holds it
             if kernel.sparse:
                 view = kernel.sparse_counts(self.drawn[replicate])
                 view.data.setflags(write=False)
             else:
-                view = frozen(kernel.dense_counts(self.drawn[replicate]).reshape(kernel.states, kernel.actions,
-                                                                                 kernel.states), copy=False)
+                view = kernel.dense_view(self.drawn[replicate]).reshape(kernel.states, kernel.actions, kernel.states)
             self._view = (replicate, view)
         return self._view[1]
 
@@ -286,7 +343,7 @@ class Batch:
     and never the (S, A, n) one; reading ``next_states`` builds that once.
     """
 
-    def __init__(self, block: _BlockDraw, replicate: int, seed: np.random.SeedSequence, path: tuple[int, ...] = ()) -> None:
+    def __init__(self, block: _BlockDraw, replicate: int, seed: StreamKey, path: tuple[int, ...] = ()) -> None:
         self._block = block
         self._replicate = int(replicate)
         self._n = block.n
@@ -324,7 +381,7 @@ class Batch:
         """Read-only (S, A, n) int array: the i-th sampled successor of (s, a)."""
         if self._next_states is None:
             ordered = self._block.successors(self._replicate)
-            shuffled = np.random.default_rng(_child(self._seed, *self._path, 1)).permuted(ordered, axis=1)
+            shuffled = np.random.default_rng(self._seed.child(*self._path, 1)).permuted(ordered, axis=1)
             self._next_states = frozen(shuffled.reshape(self.states, self.actions, self._n), copy=False)
         return self._next_states
 
@@ -335,12 +392,6 @@ class Batch:
 
     def __repr__(self) -> str:
         return f"Batch(states={self.states}, actions={self.actions}, n={self._n})"
-
-
-def _child(seq: np.random.SeedSequence, *path: int) -> np.random.SeedSequence:
-    """The descendant of ``seq`` at spawn-key ``path``, built without ``seq.spawn`` (which
-    advances the parent's spawn counter and would make a reused SeedSequence draw differently)."""
-    return np.random.SeedSequence(seq.entropy, spawn_key=(*seq.spawn_key, *path), pool_size=seq.pool_size)
 
 
 def _validate_n(n: object) -> int:
@@ -369,24 +420,26 @@ def draw(
     n = _validate_n(n)
     seq = seed if isinstance(seed, np.random.SeedSequence) else np.random.SeedSequence(seed)
     if kernel is None:
-        kernel = mdp_kernel(mdp)
+        kernel = cached_kernel(mdp)
     elif not isinstance(kernel, SupportKernel):
         kernel = support_kernel(kernel, mdp.states, mdp.actions)
-    drawn = kernel.sample_support(np.random.default_rng(_child(seq, 0)), n)
-    return Batch(_BlockDraw(kernel, drawn, n), 0, seq)
+    key = StreamKey.of(seq)
+    drawn = kernel.sample_support(np.random.default_rng(key.child(0)), n)
+    return Batch(_BlockDraw(kernel, drawn, n), 0, key)
 
 
 def draw_block(
     kernel: SupportKernel,
     n: int,
     replicates: int,
-    seed: np.random.SeedSequence,
+    seed: np.random.SeedSequence | StreamKey,
 ) -> list[Batch]:
     """``replicates`` independent batches drawn in one vectorised call (a sweep cell's block).
 
     Counts come from child 0 of ``seed``; batch ``r``'s next-state order from the
-    seed's child ``(1, r)``, built only if that batch's ``next_states`` is read.
+    seed's child ``(1 + r, 1)``, built only if that batch's ``next_states`` is read.
     """
     n = _validate_n(n)
-    block = _BlockDraw(kernel, kernel.sample_support(np.random.default_rng(_child(seed, 0)), n, replicates), n)
-    return [Batch(block, r, seed, (1 + r,)) for r in range(replicates)]
+    key = seed if isinstance(seed, StreamKey) else StreamKey.of(seed)
+    block = _BlockDraw(kernel, kernel.sample_support(np.random.default_rng(key.child(0)), n, replicates), n)
+    return [Batch(block, r, key, (1 + r,)) for r in range(replicates)]

@@ -21,6 +21,9 @@ from .targets import EstimateError, Truth, scored_error
 __all__ = ["CellScorer"]
 
 
+_FLOAT64 = np.dtype(np.float64)
+
+
 class CellScorer:
     """Appends ``(replicate, error, seconds)`` to ``rows``; ``add`` and ``flush`` return the failure, if any."""
 
@@ -30,13 +33,17 @@ class CellScorer:
         self.shape = np.shape(truth.value)
         fast = norm == "sup" and truth.target in ("q_pi", "q_star")
         self.block = np.empty((replicates, *self.shape)) if fast else None
+        # one row view per replicate slot: filling a slot is one copy, with no indexing on the call path
+        self._slots = list(self.block) if fast else []
         self.pending: list[tuple[int, float]] = []  # (replicate, seconds) of the estimates in the block
 
     def add(self, replicate: int, estimate: Any, seconds: float) -> CellFailure | None:
         """Score (or queue) one estimate; the failure when it, or one queued before it, was invalid."""
-        if (self.block is not None and type(estimate) is np.ndarray and estimate.dtype == np.float64
-                and estimate.shape == self.shape):
-            self.block[len(self.pending)] = estimate
+        # a float64 ndarray of the right shape is queued (other float64 dtype objects, say with
+        # metadata, take the full validation below and get the same number)
+        if (type(estimate) is np.ndarray and estimate.dtype is _FLOAT64 and estimate.shape == self.shape
+                and self._slots):
+            self._slots[len(self.pending)][...] = estimate
             self.pending.append((replicate, seconds))
             return None
         return self.flush() or self._one(replicate, estimate, seconds)

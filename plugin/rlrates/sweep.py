@@ -4,7 +4,7 @@ A *cell task* holds everything one (gamma, n) cell needs (the exact answer, the
 replicate range, the master seed and a context string) and is picklable, so it
 can run in any ``concurrent.futures.Executor``. All replicates of the task are
 drawn in one vectorised call from the block's own stream
-:func:`rlrates.sampling.block_seed`, so the numbers do not depend on execution
+:func:`rlrates.sampling.block_key`, so the numbers do not depend on execution
 order or on the executor.
 
 An estimator that raises (even ``SystemExit`` or ``GeneratorExit``), or returns
@@ -31,7 +31,7 @@ import numpy as np
 from .columns import Columns
 from .result import Block, CellFailure
 from .logged import LoggedKernel, draw_logged_block
-from .sampling import Batch, SupportKernel, block_seed, draw_block, mdp_kernel, stream_context
+from .sampling import Batch, SupportKernel, block_key, cached_kernel, draw_block, stream_context
 from .scoring import CellScorer
 from .targets import Problem, Truth
 from .vocabulary import ERROR_COLUMNS
@@ -65,23 +65,11 @@ class CellTask:
 
     def __getstate__(self) -> dict[str, Any]:
         # a generative kernel is a function of the MDP: a worker rebuilds it once per MDP
-        # (_kernel_for) instead of receiving its arrays (several times P's size) with every cell
+        # (sampling.cached_kernel) instead of receiving its arrays (several times P's size) with every cell
         state = dict(self.__dict__)
         if isinstance(state["kernel"], SupportKernel):
             state["kernel"] = None
         return state
-
-
-#: The generative kernels this process built for cells that arrived without one, by MDP fingerprint.
-_KERNELS: dict[str, SupportKernel] = {}
-
-
-def _kernel_for(mdp: Any) -> SupportKernel:
-    if mdp.fingerprint not in _KERNELS:
-        while len(_KERNELS) >= 4:
-            _KERNELS.pop(next(iter(_KERNELS)))
-        _KERNELS[mdp.fingerprint] = mdp_kernel(mdp)
-    return _KERNELS[mdp.fingerprint]
 
 
 @dataclass(frozen=True)
@@ -173,33 +161,36 @@ def _run_replicates(task: CellTask, outcome: CellOutcome) -> None:
     problem = truth.problem()
     kernel = task.kernel
     if kernel is None:
-        kernel = _kernel_for(truth.mdp)
-    seed = block_seed(task.master_seed, task.context, truth.gamma, task.n, task.start, task.stop)
+        kernel = cached_kernel(truth.mdp)
+    seed = block_key(task.master_seed, task.context, truth.gamma, task.n, task.start, task.stop)
     if isinstance(kernel, LoggedKernel):
-        batches: list[Any] = draw_logged_block(kernel, task.n, task.stop - task.start, seed)
+        batches: list[Any] = draw_logged_block(kernel, task.n, task.stop - task.start, seed.sequence())
     else:
         batches = draw_block(kernel, task.n, task.stop - task.start, seed)
     scorer = CellScorer(truth, task.norm, task.n, task.stop - task.start, outcome.rows, _behaviour(truth))
+    estimator, time_limit, add, clock = task.estimator, task.time_limit, scorer.add, time.perf_counter
     previous: object = None
     try:
         for replicate, batch in zip(range(task.start, task.stop), batches):
-            started = time.perf_counter()
+            started = clock()
             try:
-                estimate = task.estimator(batch, problem)
+                estimate = estimator(batch, problem)
             except (Exception, SystemExit, GeneratorExit) as exc:  # the estimator's own bug: record it, keep the session alive
                 outcome.failure = scorer.flush() or CellFailure(
                     truth.gamma, task.n, replicate, "raised", f"{type(exc).__name__}: {exc}",
                     "".join(traceback.format_exception(type(exc), exc, exc.__traceback__)), _behaviour(truth),
                 )
                 return
-            seconds = time.perf_counter() - started
-            problem_text = _call_problem(estimate, previous, seconds, task.time_limit)
-            if problem_text is not None:
-                outcome.failure = scorer.flush() or CellFailure(truth.gamma, task.n, replicate, "invalid",
-                                                                 problem_text, "", _behaviour(truth))
-                return
-            outcome.failure = scorer.add(replicate, estimate, seconds)
-            if outcome.failure is not None:
+            seconds = clock() - started
+            if time_limit is not None or estimate is previous:  # the only calls _call_problem can object to
+                problem_text = _call_problem(estimate, previous, seconds, time_limit)
+                if problem_text is not None:
+                    outcome.failure = scorer.flush() or CellFailure(truth.gamma, task.n, replicate, "invalid",
+                                                                     problem_text, "", _behaviour(truth))
+                    return
+            failure = add(replicate, estimate, seconds)
+            if failure is not None:
+                outcome.failure = failure
                 return
             previous = estimate
     finally:  # also on an interrupt: the rows finished before it are kept
@@ -342,13 +333,12 @@ def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None,
     has the columns ``behaviour`` and ``C`` too.
     """
     task_list = list(tasks)
-    records: list[tuple[float, float, int, int, float, float, int]] = []
+    finished: list[CellOutcome] = []
     failure: CellFailure | None = None
     done = 0
     try:
         for outcome in _outcomes(task_list, executor):
-            horizon = 1.0 / (1.0 - outcome.gamma)
-            records.extend((outcome.gamma, horizon, outcome.n, r, e, s, outcome.level) for r, e, s in outcome.rows)
+            finished.append(outcome)
             done += 1
             if outcome.failure is not None:
                 failure = outcome.failure
@@ -358,19 +348,21 @@ def run_sweep(tasks: Iterable[CellTask], executor: Executor | None = None,
             failure = _interrupted(task_list[done], task_list[done].start, exc)
         else:
             raise
-    return rows_to_table(records, coverage), failure
+    return rows_to_table(finished, coverage), failure
 
 
-def rows_to_table(records: list[tuple[float, float, int, int, float, float, int]],
-                  coverage: Mapping[tuple[float, int], float] | None = None) -> Columns:
-    """The rows as error-table columns (``ERROR_COLUMNS``, for logged data also ``behaviour`` and ``C``), sorted."""
-    rows = np.array(records, dtype=float).reshape(len(records), 7)
-    kinds = (np.float64, np.float64, np.int64, np.int64, np.float64, np.float64)  # gamma, H, n, replicate, error, seconds
-    data: dict[str, np.ndarray] = {name: rows[:, i].astype(kind)
-                                   for i, (name, kind) in enumerate(zip(ERROR_COLUMNS, kinds))}
+def rows_to_table(outcomes: list[CellOutcome], coverage: Mapping[tuple[float, int], float] | None = None) -> Columns:
+    """The cells' rows as error-table columns (``ERROR_COLUMNS``, for logged data also ``behaviour`` and ``C``), sorted."""
+    kept = [outcome for outcome in outcomes if outcome.rows]
+    sizes = [len(outcome.rows) for outcome in kept]
+    rows = np.array([row for outcome in kept for row in outcome.rows], dtype=float).reshape(sum(sizes), 3)
+    gamma = np.repeat(np.array([outcome.gamma for outcome in kept], dtype=float), sizes)
+    data: dict[str, np.ndarray] = dict(zip(ERROR_COLUMNS, (
+        gamma, 1.0 / (1.0 - gamma), np.repeat(np.array([outcome.n for outcome in kept], dtype=np.int64), sizes),
+        rows[:, 0].astype(np.int64), rows[:, 1], rows[:, 2])))  # gamma, H, n, replicate, error, seconds
     if coverage is None:
-        return Columns(data, len(records)).sort("gamma", "n", "replicate")
-    levels = rows[:, 6].astype(np.int64)
+        return Columns(data, len(gamma)).sort("gamma", "n", "replicate")
+    levels = np.repeat(np.array([outcome.level for outcome in kept], dtype=np.int64), sizes)
     data["behaviour"] = levels
     data["C"] = np.array([coverage[(g, b)] for g, b in zip(data["gamma"].tolist(), levels.tolist())], dtype=float)
-    return Columns(data, len(records)).sort("gamma", "behaviour", "n", "replicate")
+    return Columns(data, len(gamma)).sort("gamma", "behaviour", "n", "replicate")

@@ -25,6 +25,7 @@ import math
 
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from functools import lru_cache
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
@@ -163,14 +164,20 @@ def default_policy(mdp: TabularMDP) -> Array:
     and states swapped) because every row is the same; a random one does not,
     and being derived from the fingerprint it is the same on every run.
     """
-    words = [int(mdp.fingerprint[i : i + 8], 16) for i in range(0, 32, 8)]
+    return np.array(_default_policy(mdp.fingerprint, mdp.states, mdp.actions))
+
+
+@lru_cache(maxsize=8)
+def _default_policy(fingerprint: str, states: int, actions: int) -> Array:
+    """:func:`default_policy` read-only, drawn once per MDP (every discount of a check, and later checks, share it)."""
+    words = [int(fingerprint[i : i + 8], 16) for i in range(0, 32, 8)]
     rng = np.random.default_rng(np.random.SeedSequence(words, spawn_key=(0x706F6C,)))
-    return rng.dirichlet(np.ones(mdp.actions), size=mdp.states)
+    return frozen(rng.dirichlet(np.ones(actions), size=states), copy=False)
 
 
 def solve_truth(mdp: TabularMDP, gamma: float, target: str, policy: Any = None) -> Truth:
     """Solve the exact target once for this discount (``policy=None``: :func:`default_policy`)."""
-    pi = default_policy(mdp) if policy is None else validate_policy(mdp, policy)
+    pi = _default_policy(mdp.fingerprint, mdp.states, mdp.actions) if policy is None else validate_policy(mdp, policy)
     H = 1.0 / (1.0 - gamma)
     value_scale = mdp.reward_span * H
     if target == "q_pi":

@@ -238,7 +238,7 @@ def test_a_sparse_mdps_cells_split_by_their_support_counts_and_a_dense_ones_by_t
 def test_a_cell_goes_to_a_worker_once_with_all_its_blocks_and_without_its_kernel() -> None:
     # A cell split into blocks (dense S = 1600: one replicate per block) is one submission, so its
     # MDP is pickled once per cell; the kernel, a function of the MDP, is rebuilt by the worker
-    # (rlrates.sweep._kernel_for) instead of travelling with every cell. Same rows either way.
+    # (rlrates.sampling.cached_kernel) instead of travelling with every cell. Same rows either way.
     import pickle
 
     from rlrates.sweep import run_cell
