@@ -15,6 +15,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import lru_cache
 from typing import Any
 
 import numpy as np
@@ -23,7 +24,7 @@ from scipy import special
 
 from .columns import Columns, group_rows, group_stats
 
-__all__ = ["Slope", "fit_slope", "fit_cells", "pooled_slope", "summarise_cells", "DiscountFit", "fit_discounts",
+__all__ = ["Slope", "fit_slope", "fit_cells", "pooled_slope", "summarise_cells", "DiscountFit", "fit_discounts", "rows_of",
            "HorizonFit", "fit_horizon", "CoverageFit", "fit_coverage"]
 
 
@@ -53,14 +54,23 @@ class Slope:
         return limit + (self._quantile(alpha) + self._quantile(1.0 - power)) * self.se
 
     def _quantile(self, alpha: float) -> float:
-        # scipy.special's inverse CDFs: the same numbers as scipy.stats' ppf, without its import cost
-        if math.isinf(self.df):
-            return float(special.ndtri(1.0 - alpha))
-        return float(special.stdtrit(self.df, 1.0 - alpha))
+        return _quantile(self.df, alpha)
 
     @property
     def finite(self) -> bool:
         return math.isfinite(self.estimate) and math.isfinite(self.se)
+
+
+@lru_cache(maxsize=256)
+def _quantile(df: float, alpha: float) -> float:
+    """The upper ``alpha`` quantile of Student's t with ``df`` degrees of freedom (normal for infinite ``df``).
+
+    scipy.special's inverse CDFs: the same numbers as scipy.stats' ppf, without its
+    import cost; a verdict asks for the same few levels many times, hence the cache.
+    """
+    if math.isinf(df):
+        return float(special.ndtri(1.0 - alpha))
+    return float(special.stdtrit(df, 1.0 - alpha))
 
 
 def fit_slope(x: ArrayLike, y: ArrayLike, variance: ArrayLike, df: float = math.inf) -> Slope:
@@ -104,6 +114,12 @@ class DiscountFit:
     steepening: Slope  # upper-part slope minus lower-part slope
 
 
+def rows_of(ordered: Columns, gamma: float) -> Columns:
+    """The rows of discount ``gamma`` in a table sorted by gamma first (a slice: no copy)."""
+    column = ordered["gamma"]
+    return ordered[int(np.searchsorted(column, gamma, side="left")):int(np.searchsorted(column, gamma, side="right"))]
+
+
 def fit_discounts(cells: Columns, gammas: list[float], window: int) -> tuple[list[dict[str, object]],
                                                                               list[DiscountFit]]:
     """Per discount, the n-slopes over the ``window`` largest fitted cells.
@@ -116,8 +132,10 @@ def fit_discounts(cells: Columns, gammas: list[float], window: int) -> tuple[lis
     """
     rows: list[dict[str, object]] = []
     fitted: list[DiscountFit] = []
+    # one sort by (gamma, n); each discount's cells are then a slice, in the order a filter and a sort by n give
+    ordered = cells.select("gamma", "n", "zero", "replicates", "log_mean", "log_var").sort("gamma", "n")
     for gamma in gammas:
-        own = cells[cells["gamma"] == gamma].sort("n")
+        own = rows_of(ordered, gamma)
         window_cells = own[max(len(own) - window, 0):]
         row: dict[str, object] = {"gamma": gamma, "H": 1.0 / (1.0 - gamma), "points": len(window_cells)}
         positive = window_cells[~window_cells["zero"]]

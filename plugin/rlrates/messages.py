@@ -42,15 +42,22 @@ def format_interval(exponent: float, low: float, high: float) -> str:
 
 
 def mean_error_grid(table: Columns) -> list[str]:
-    """Mean error per n (rows) and gamma (columns; for a coverage sweep per gamma and C), as aligned text lines."""
+    """Mean error per n (rows) and gamma (columns; for a coverage sweep per gamma and C), as aligned text lines.
+
+    ``table`` is the error table, or (for the generative model) the cell summary of
+    that table (:func:`rlrates.fitting.summarise_cells`, which has the means already).
+    """
     table = Columns.of(table)
     if not len(table):
         return []
     coverage = "behaviour" in table and len(np.unique(table["behaviour"])) > 1
     across = ["gamma", "C"] if coverage else ["gamma"]
-    groups = group_rows(table, [*across, "n"], within="error")
-    means = group_stats(table["error"], groups)["mean"]
-    keys = groups.keys
+    if "mean" in table and not coverage:  # a summary: one row per (gamma, n), sorted
+        keys, means = table.select("gamma", "n"), np.asarray(table["mean"])
+    else:
+        groups = group_rows(table, [*across, "n"], within="error")
+        means = group_stats(table["error"], groups)["mean"]
+        keys = groups.keys
     columns = group_rows(keys, across).keys
     labels = [f"gamma={g:g} C={c:.3g}" if coverage else f"gamma={g:g}"
               for g, c in zip(columns["gamma"].tolist(), (columns["C"] if coverage else columns["gamma"]).tolist())]
@@ -114,7 +121,10 @@ def format_message(result: CheckResult) -> str:
                 lines.append(head + f"{float(each['slope']):>+8.3f}        {float(each['upper_slope']):>+8.3f}")
             else:
                 lines.append(head + str(each.get("state")))
-    grid = mean_error_grid(result.evidence.rows)
+    evidence = result.evidence
+    # without a failure the last decision summarised the whole table: its cell means are the grid's
+    summarised = result.failure is None and len(evidence.cells) and "behaviour" not in evidence.rows
+    grid = mean_error_grid(evidence.cells if summarised else evidence.rows)
     if grid:
         lines.append("mean error by n:")
         lines.extend("    " + line for line in grid)

@@ -374,7 +374,7 @@ def _reproducer(call: _Call, mdp_call: str, policy_given: bool, extras: dict[str
 
 def _assemble(call: _Call, passes: Passes, run: RunInfo, mdp: MDPDescription,
               probe_notes: list[str]) -> CheckResult:
-    """The frozen result, with its message rendered once."""
+    """The frozen result (its message is rendered when first read)."""
     decision = passes.decision
     status: Status
     if passes.failure is not None:
@@ -395,6 +395,6 @@ def _assemble(call: _Call, passes: Passes, run: RunInfo, mdp: MDPDescription,
         mdp=mdp, run=run, evidence=Evidence(passes.table, decision.cells, decision.slopes),
         factors=() if passes.failure is not None else decision.fits,
         fired=decision.fired, reasons=decision.reasons, notes=tuple(notes), failure=passes.failure,
-        data_regime=call.data,
+        data_regime=call.data, _render=format_message,
     )
-    return dataclasses.replace(result, message=format_message(result))
+    return result

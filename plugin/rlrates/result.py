@@ -6,8 +6,8 @@
 * :class:`CellFailure`: why an estimator call gave no usable error, and where;
 * :class:`CheckResult`: the whole answer, in groups: the MDP it ran on
   (:class:`MDPDescription`), how the run went (:class:`RunInfo`) and the
-  evidence tables (:class:`Evidence`). Its ``message`` is rendered once, when
-  the check ends.
+  evidence tables (:class:`Evidence`). Its ``message`` is rendered when first
+  read (a check nobody reads the message of does not pay for it).
 
 Pure: no pytest, no I/O; pandas only for the evidence tables, built when first read.
 """
@@ -15,7 +15,7 @@ Pure: no pytest, no I/O; pandas only for the evidence tables, built when first r
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields
 from typing import TYPE_CHECKING, Any
 
@@ -259,8 +259,18 @@ class CheckResult:
     reasons: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
     failure: CellFailure | None = None
-    message: str = ""
     data_regime: str = "generative"  # where the samples came from: "generative", "transitions" or "trajectories"
+    # renders the message from the other fields (rlrates.messages.format_message, given by the check)
+    _render: Callable[["CheckResult"], str] | None = field(default=None, repr=False, compare=False)
+
+    @property
+    def message(self) -> str:
+        """The plain-text explanation (:func:`rlrates.messages.format_message`), rendered when first read."""
+        text = self.__dict__.get("_message")
+        if text is None:
+            text = "" if self._render is None else self._render(self)
+            object.__setattr__(self, "_message", text)  # a cache of a pure function of the fields
+        return text
 
     @property
     def passed(self) -> bool:

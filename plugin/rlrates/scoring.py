@@ -34,7 +34,7 @@ class CellScorer:
         fast = norm == "sup" and truth.target in ("q_pi", "q_star")
         self.block = np.empty((replicates, *self.shape)) if fast else None
         # one row view per replicate slot: filling a slot is one copy, with no indexing on the call path
-        self._slots = list(self.block) if fast else []
+        self._slots = [] if self.block is None else list(self.block)
         self.pending: list[tuple[int, float]] = []  # (replicate, seconds) of the estimates in the block
 
     def add(self, replicate: int, estimate: Any, seconds: float) -> CellFailure | None:

@@ -36,7 +36,7 @@ import numpy as np
 
 from .budgets import Budget
 from .columns import Columns
-from .fitting import CoverageFit, DiscountFit, HorizonFit, Slope, fit_cells, pooled_slope
+from .fitting import CoverageFit, DiscountFit, HorizonFit, Slope, fit_cells, pooled_slope, rows_of
 from .vocabulary import Need, SubTestName, SubTestVerdict
 
 __all__ = ["Levels", "SubTest", "stall_test", "floor_test", "rate_test", "reach_test", "horizon_test", "coverage_test",
@@ -84,8 +84,10 @@ def stall_test(cells: Columns, claim_n: float, budget: Budget, levels: Levels,
     gammas = sorted(float(g) for g in np.unique(cells["gamma"]))
     level = levels.fire / max(len(gammas), 1)
     stalled: list[str] = []
+    ordered = cells.sort("gamma", "n")  # each discount's cells a slice, in n order
     for gamma in gammas:
-        own = cells[(cells["gamma"] == gamma) & ~cells["early"] & ~cells["zero"]].sort("n")
+        own = rows_of(ordered, gamma)
+        own = own[~own["early"] & ~own["zero"]]
         if len(own) < 3 or not bool(own["saturated"][-1]):
             continue
         slope = fit_cells(own)

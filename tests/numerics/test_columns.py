@@ -102,6 +102,12 @@ def test_mean_error_grid_holds_pandas_pivot_means(logged: bool) -> None:
     np.testing.assert_allclose(values, pivot.to_numpy(), rtol=5e-4)  # printed to 4 significant digits
 
 
+def test_the_grid_from_the_cell_summary_is_the_grid_from_the_rows() -> None:
+    # the message lays out the summary's cell means (no second grouping of the rows); same text
+    table = Columns.of(_table(12))
+    assert mean_error_grid(summarise_cells(table)) == mean_error_grid(table)
+
+
 def test_new_columns_must_have_the_tables_length() -> None:
     table = Columns({"a": np.arange(3)})
     assert table.with_columns(b=np.ones(3))["b"].tolist() == [1.0, 1.0, 1.0]
