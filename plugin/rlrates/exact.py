@@ -26,6 +26,7 @@ __all__ = [
     "policy_matrix",
     "v_pi",
     "q_pi",
+    "q_pi_of_valid",
     "q_star",
     "evaluate_arrays",
     "policy_iteration",
@@ -212,9 +213,16 @@ def _backup(P: Any, R: Array, gamma: float, values: Array) -> Array:
 
 def q_pi(mdp: TabularMDP, gamma: float, policy: ArrayLike | None = None) -> Array:
     """Exact Q^pi (S, A) for ``policy`` ((S,) actions or (S, A) probabilities; default uniform)."""
-    values = v_pi(mdp, gamma, policy)
+    pi = uniform_policy(mdp) if policy is None else validate_policy(mdp, policy)
+    return q_pi_of_valid(mdp, gamma, pi)
+
+
+def q_pi_of_valid(mdp: TabularMDP, gamma: float, pi: Array) -> Array:
+    """:func:`q_pi` for an (S, A) row-stochastic ``pi`` known to be valid (the check's default policy)."""
+    gamma = validate_gamma(gamma, allow_one=True)
     with np.errstate(over="ignore", invalid="ignore"):
-        return _finite_solution(mdp, float(gamma), _backup(mdp.P, mdp.R, float(gamma), values), "Q^pi")
+        values = _finite_solution(mdp, gamma, _solve_v_pi(mdp, gamma, pi), "V^pi")
+        return _finite_solution(mdp, gamma, _backup(mdp.P, mdp.R, gamma, values), "Q^pi")
 
 
 def greedy_policy(q: ArrayLike) -> NDArray[np.int64]:

@@ -80,7 +80,7 @@ def fit_slope(x: ArrayLike, y: ArrayLike, variance: ArrayLike, df: float = math.
     var = np.asarray(variance, dtype=float)
     if x_arr.size < 2:
         raise ValueError(f"a slope needs at least two points, got {x_arr.size}")
-    centred = x_arr - x_arr.mean()
+    centred = x_arr - np.add.reduce(x_arr) / x_arr.size  # x_arr.mean(), without its Python-level wrapper
     sxx = float(centred @ centred)
     if sxx <= 0:
         raise ValueError("a slope needs at least two distinct x values")
@@ -145,7 +145,10 @@ def fit_discounts(cells: Columns, gammas: list[float], window: int) -> tuple[lis
             row["state"] = "too few asymptotic points"
         else:
             k = max(3, math.ceil(len(positive) / 2))
-            whole, upper, lower = fit_cells(positive), fit_cells(positive[len(positive) - k:]), fit_cells(positive[:k])
+            x, y, var = np.log(np.asarray(positive["n"], dtype=float)), positive["log_mean"], positive["log_var"]
+            replicates = positive["replicates"]
+            whole, upper, lower = (fit_slope(x[part], y[part], var[part], float(max(int(replicates[part].min()) - 1, 1)))
+                                   for part in (slice(None), slice(len(positive) - k, None), slice(None, k)))
             fitted.append(DiscountFit(float(gamma), whole, upper, Slope(
                 upper.estimate - lower.estimate, math.hypot(upper.se, lower.se), upper.df, k)))
             row.update(state="fitted", n_min=int(positive["n"].min()), n_max=int(positive["n"].max()),

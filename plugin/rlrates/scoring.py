@@ -33,8 +33,6 @@ class CellScorer:
         self.shape = np.shape(truth.value)
         fast = norm == "sup" and truth.target in ("q_pi", "q_star")
         self.block = np.empty((replicates, *self.shape)) if fast else None
-        # one row view per replicate slot: filling a slot is one copy, with no indexing on the call path
-        self._slots = [] if self.block is None else list(self.block)
         self.pending: list[tuple[int, float]] = []  # (replicate, seconds) of the estimates in the block
 
     def add(self, replicate: int, estimate: Any, seconds: float) -> CellFailure | None:
@@ -42,8 +40,8 @@ class CellScorer:
         # a float64 ndarray of the right shape is queued (other float64 dtype objects, say with
         # metadata, take the full validation below and get the same number)
         if (type(estimate) is np.ndarray and estimate.dtype is _FLOAT64 and estimate.shape == self.shape
-                and self._slots):
-            self._slots[len(self.pending)][...] = estimate
+                and self.block is not None):
+            self.block[len(self.pending)] = estimate
             self.pending.append((replicate, seconds))
             return None
         return self.flush() or self._one(replicate, estimate, seconds)
@@ -55,6 +53,9 @@ class CellScorer:
         queued, self.pending = self.pending, []
         assert self.block is not None
         errors = np.abs(self.block[: len(queued)] - self.truth.value).max(axis=tuple(range(1, 1 + len(self.shape))))
+        if np.isfinite(errors).all():  # the usual case: every queued estimate scores
+            self.rows.extend((replicate, error, seconds) for (replicate, seconds), error in zip(queued, errors.tolist()))
+            return None
         for index, ((replicate, seconds), error) in enumerate(zip(queued, errors.tolist())):
             if math.isfinite(error):
                 self.rows.append((replicate, error, seconds))

@@ -31,7 +31,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 from numpy.typing import NDArray
 
-from .exact import q_pi, q_star, v_pi, validate_policy
+from .exact import q_pi, q_pi_of_valid, q_star, v_pi, validate_policy
 from .mdp import TabularMDP, is_sparse
 from .vocabulary import NORMS, TARGETS
 
@@ -181,7 +181,7 @@ def solve_truth(mdp: TabularMDP, gamma: float, target: str, policy: Any = None) 
     H = 1.0 / (1.0 - gamma)
     value_scale = mdp.reward_span * H
     if target == "q_pi":
-        return Truth(mdp, gamma, target, pi, q_pi(mdp, gamma, pi), value_scale)
+        return Truth(mdp, gamma, target, pi, q_pi_of_valid(mdp, gamma, pi), value_scale)
     if target in ("q_star", "policy"):
         q, _ = q_star(mdp, gamma)
         return Truth(mdp, gamma, target, pi, q, value_scale)
