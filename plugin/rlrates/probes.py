@@ -98,7 +98,9 @@ def run_probes(estimator: Any, target: str, truths: Mapping[Any, Truth], kernels
     """
     notes: list[str] = []
     if target != "model":
-        deterministic = {deterministic_mdp(truth.mdp) for truth in truths.values()} - {None}
+        # one MDP serves every discount (a family's may differ): each distinct one is probed once
+        distinct = {(truth.mdp.fingerprint, truth.mdp.name): truth.mdp for truth in truths.values()}
+        deterministic = {deterministic_mdp(mdp) for mdp in distinct.values()} - {None}
         notes.extend(sorted(text for text in deterministic if text))
     gamma = min(truths)
     args = (estimator, truths[gamma], kernels[gamma], n, seed)
@@ -125,7 +127,7 @@ def constant_replicates(summary: Columns, table: Columns, target: str) -> CellFa
     that ignores the data); its intervals would collapse to zero width. Policies
     are discrete, so identical suboptimalities are expected there and not checked.
     """
-    if target == "policy":
+    if target == "policy" or not summary["constant"].any():
         return None
     for gamma in np.unique(summary["gamma"]).tolist():
         cells = summary[summary["gamma"] == gamma]

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import dataclasses
 import time
+from itertools import chain
 import traceback
 from collections.abc import Iterable, Iterator, Mapping
 from concurrent.futures import BrokenExecutor, CancelledError, Executor, Future
@@ -355,7 +356,8 @@ def rows_to_table(outcomes: list[CellOutcome], coverage: Mapping[tuple[float, in
     """The cells' rows as error-table columns (``ERROR_COLUMNS``, for logged data also ``behaviour`` and ``C``), sorted."""
     kept = [outcome for outcome in outcomes if outcome.rows]
     sizes = [len(outcome.rows) for outcome in kept]
-    rows = np.array([row for outcome in kept for row in outcome.rows], dtype=float).reshape(sum(sizes), 3)
+    rows = np.fromiter(chain.from_iterable(chain.from_iterable(outcome.rows for outcome in kept)), dtype=float,
+                       count=3 * sum(sizes)).reshape(sum(sizes), 3)  # (replicate, error, seconds) per row
     gamma = np.repeat(np.array([outcome.gamma for outcome in kept], dtype=float), sizes)
     data: dict[str, np.ndarray] = dict(zip(ERROR_COLUMNS, (
         gamma, 1.0 / (1.0 - gamma), np.repeat(np.array([outcome.n for outcome in kept], dtype=np.int64), sizes),
