@@ -26,7 +26,9 @@ replicates = 360 calls of ``reference.plugin_q_pi``) three ways, and prints the
   draws (over all S columns) and the plugin's multinomial over each row's support
   (counts only), plus the exact solves.
 
-Printed: own work in ms and the ratios plugin / hand loop and plugin / floor (the
+Printed: own work in ms and the ratios plugin / hand loop and plugin / floor of the bests, and
+the medians of the same ratios taken repeat by repeat ("paired": the three runs of a repeat
+are made back to back, so a change of the machine's load moves them together) (the
 issue's targets: <= 1.0 against the loop and <= 1.5 against the floor at S = 20,
 <= 1.3 against the loop at dense S = 100). BLAS threads are pinned to 1. On a shared
 machine the numbers move with the neighbours' load; the load average is printed.
@@ -201,9 +203,13 @@ def row(label: str, mdp: rlrates.TabularMDP, repeats: int) -> str:
     passes = max(p for _, p, _ in ours)
     loop_own = min(total - inside for total, inside in loops)
     bottom = min(bottoms)
+    # the ratios of each repeat's three runs, made back to back: their median drifts less with the load than
+    # a ratio of two bests taken minutes apart
+    paired_loop = float(np.median([o / (total - inside) for (o, _, _), (total, inside) in zip(ours, loops)]))
+    paired_floor = float(np.median([o / b for (o, _, _), b in zip(ours, bottoms)]))
     mark = "" if passes == 1 else f"  (up to {passes} passes, per pass)"
     return (f"{label:<26s}{own * 1e3:12.1f}{loop_own * 1e3:15.1f}{bottom * 1e3:11.1f}"
-            f"{own / loop_own:14.2f}{own / bottom:15.2f}{mark}")
+            f"{own / loop_own:14.2f}{own / bottom:15.2f}{paired_loop:10.2f}{paired_floor:9.2f}{mark}")
 
 
 def _peak_resident_mb() -> float:
@@ -327,7 +333,8 @@ def main(argv: list[str] | None = None) -> None:
         cases.append(("garnet(1000, 4, 5)", rlrates.garnet(1000, 4, 5, seed=0)))
     print("ci-budget first pass, reference.plugin_q_pi: own work (wall minus estimator), best of "
           f"{args.repeats}")
-    print(f"{'MDP':<26s}{'plugin ms':>12s}{'hand loop ms':>15s}{'floor ms':>11s}{'plugin/loop':>14s}{'plugin/floor':>15s}")
+    print(f"{'MDP':<26s}{'plugin ms':>12s}{'hand loop ms':>15s}{'floor ms':>11s}{'plugin/loop':>14s}{'plugin/floor':>15s}"
+          f"{'paired: loop':>14s}{'floor':>7s}")
     for label, mdp in ([] if args.scale_only else cases):
         if args.only in label:
             print(row(label, mdp, args.repeats), flush=True)

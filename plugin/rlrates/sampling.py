@@ -277,14 +277,15 @@ class Batch:
     and never the (S, A, n) one; reading ``next_states`` builds that once.
     """
 
+    _next_states: IntArray | None = None  # built on the first read of next_states
+
     def __init__(self, block: _BlockDraw, replicate: int, seed: StreamKey, path: tuple[int, ...] = ()) -> None:
         self._block = block
-        self._replicate = int(replicate)
+        self._replicate = replicate
         self._n = block.n
         # the order of next_states comes from the child (*path, 1) of `seed`, built on demand
         self._seed = seed
         self._path = path
-        self._next_states: IntArray | None = None
 
     @property
     def n(self) -> int:
@@ -308,7 +309,8 @@ class Batch:
     def counts(self) -> Any:
         """How often each successor was sampled: a read-only (S, A, S) int array, or for a sparse
         MDP a scipy.sparse CSR array of shape (S*A, S) (row ``s * A + a``) with read-only data."""
-        return self._block.counts(self._replicate)
+        whole = self._block._whole  # a small block's views, once built
+        return whole[self._replicate] if whole is not None else self._block.counts(self._replicate)
 
     @property
     def next_states(self) -> IntArray:

@@ -81,7 +81,7 @@ def stall_test(cells: Columns, claim_n: float, budget: Budget, levels: Levels,
     fails here.
     """
     limit = claim_n + budget.floor_tolerance
-    gammas = sorted(float(g) for g in np.unique(cells["gamma"]))
+    gammas = sorted(set(cells["gamma"].tolist()))
     level = levels.fire / max(len(gammas), 1)
     stalled: list[str] = []
     ordered = cells.sort("gamma", "n")  # each discount's cells a slice, in n order

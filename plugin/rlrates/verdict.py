@@ -65,8 +65,8 @@ def _window_rank(gamma: np.ndarray, n: np.ndarray, usable: np.ndarray) -> np.nda
     if len(rows):
         order = rows[np.lexsort((rows, -n[rows].astype(float), gamma[rows]))]
         g = gamma[order]
-        start = np.flatnonzero(np.r_[True, g[1:] != g[:-1]])
-        position = np.arange(len(order)) - np.repeat(start, np.diff(np.append(start, len(order))))
+        start = np.flatnonzero(np.concatenate(([True], g[1:] != g[:-1])))
+        position = np.arange(len(order)) - np.repeat(start, np.diff(np.concatenate((start, [len(order)]))))
         rank[order] = position + 1
     return rank
 
@@ -145,7 +145,7 @@ def decide(summary: Columns | Any, claim: Claim, budget: Budget, scale: dict[flo
         return _exact(claim, budget, cells, levels)
     # the fits read these columns only: a narrow table filters faster
     usable = cells.select("gamma", "n", "H", "zero", "replicates", "log_mean", "log_var")[cells["usable"]]
-    gammas = sorted(float(g) for g in np.unique(cells["gamma"]))
+    gammas = sorted(set(cells["gamma"].tolist()))  # the distinct discounts (np.unique, without its overhead)
     slopes, per_discount = fit_discounts(usable, gammas, window)
     tests: list[SubTest] = []
     fits: list[Fit] = []
