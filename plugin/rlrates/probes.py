@@ -21,6 +21,7 @@ from .mdp import TabularMDP
 from .result import CellFailure
 from .logged import LoggedKernel, draw_logged_block
 from .sampling import SupportKernel, cached_kernel, draw_block
+from .streams import StreamKey
 from .targets import Truth
 
 __all__ = ["determinism_probe", "deterministic_mdp", "run_probes", "constant_replicates"]
@@ -50,8 +51,8 @@ def determinism_probe(estimator: Any, truth: Truth, kernel: SupportKernel | Logg
     """
     if kernel is None:
         kernel = cached_kernel(truth.mdp)
-    stream = np.random.SeedSequence(seed, spawn_key=(_PROBE_KEY,))
-    batch: Any = (draw_logged_block(kernel, n, 1, stream) if isinstance(kernel, LoggedKernel)
+    stream = StreamKey(int(seed), (_PROBE_KEY,))  # SeedSequence(seed, spawn_key=(_PROBE_KEY,)), built only as needed
+    batch: Any = (draw_logged_block(kernel, n, 1, stream.sequence()) if isinstance(kernel, LoggedKernel)
                   else draw_block(kernel, n, 1, stream))[0]
     problem = truth.problem()
     try:
