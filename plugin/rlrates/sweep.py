@@ -19,12 +19,12 @@ from __future__ import annotations
 
 import dataclasses
 import time
-from itertools import chain
 import traceback
 from collections.abc import Iterable, Iterator, Mapping
 from concurrent.futures import BrokenExecutor, CancelledError, Executor, Future
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
+from itertools import chain
 from typing import Any, Protocol
 
 import numpy as np
