@@ -336,3 +336,21 @@ def test_the_python_reproducer_reruns_the_same_check() -> None:
     again = eval(call, {"rlrates": rlrates, "zoo": zoo})
     pd.testing.assert_frame_equal(_numbers(result), _numbers(again))
     assert again.status == result.status
+
+
+def test_the_message_is_rendered_when_first_read_and_then_kept(garnet: rlrates.TabularMDP,
+                                                               monkeypatch: pytest.MonkeyPatch) -> None:
+    # a check whose message nobody reads (a passing test without a report) never renders it
+    from rlrates import messages, rate_check
+
+    calls: list[int] = []
+
+    def counted(result: Any) -> str:
+        calls.append(1)
+        return messages.format_message(result)
+
+    monkeypatch.setattr(rate_check, "format_message", counted)
+    result = rlrates.check(reference.plugin_q_pi, garnet, rlrates.Claim(n=-0.5))
+    assert calls == []
+    assert result.message == messages.format_message(result) and calls == [1]
+    assert result.message.startswith(f"rlrates {result.status.upper()}") and calls == [1]

@@ -563,3 +563,15 @@ def test_values_beyond_float64_blame_the_mdp_without_numpy_warnings(solve, what)
     with pytest.raises(ValueError, match=rf"the exact {what} of MDP 'mdp' at gamma=0.9 overflows float64 .*"
                        r"\|R\| = 1e\+308 and values can reach max\|R\| / \(1 - gamma\) = inf\. The MDP is at fault"):
         solve(mdp)
+
+
+def test_q_pi_of_a_known_valid_policy_is_q_pi() -> None:
+    # the check's shortcut for its own default policy gives the validated function's numbers
+    from rlrates.exact import q_pi_of_valid
+    from rlrates.targets import default_policy
+
+    mdp = rlrates.garnet(12, 3, 4, seed=3)
+    policy = default_policy(mdp)
+    np.testing.assert_array_equal(q_pi_of_valid(mdp, 0.9, policy), rlrates.q_pi(mdp, 0.9, policy))
+    policy[0] = 0.5  # default_policy hands out a fresh, writable copy of the cached one
+    assert not np.array_equal(policy, default_policy(mdp))

@@ -504,3 +504,31 @@ def test_sparse_block_counts_follow_the_multinomial() -> None:
     stat = float((((observed - expected) ** 2)[support] / expected[support]).sum())
     dof = int(support.sum() - observed.shape[0])
     assert stats.chi2.sf(stat, dof) > 1e-3
+
+
+def test_a_stream_key_builds_the_seed_and_the_children_a_seed_sequence_would() -> None:
+    # numpy's SeedSequence is the reference: the key's children are SeedSequence(entropy,
+    # spawn_key=key + path), as SeedSequence.spawn makes them, and block_seed is the key's sequence
+    from rlrates.streams import StreamKey, block_key, block_seed
+
+    key = block_key(7, "ctx", 0.9, 256, 0, 24)
+    seed = block_seed(7, "ctx", 0.9, 256, 0, 24)
+    np.testing.assert_array_equal(key.sequence().generate_state(4), seed.generate_state(4))
+    spawned = np.random.SeedSequence(seed.entropy, spawn_key=seed.spawn_key).spawn(2)[1]
+    np.testing.assert_array_equal(key.child(1).generate_state(4), spawned.generate_state(4))
+    assert StreamKey.of(seed) == key
+
+
+def test_kernels_are_built_once_per_mdp_and_cannot_be_written() -> None:
+    from rlrates import sampling
+
+    mdp = rlrates.garnet(9, 2, 3, seed=41)
+    first = sampling.cached_kernel(mdp)
+    twin = rlrates.garnet(9, 2, 3, seed=41)  # another object, the same fingerprint
+    assert sampling.cached_kernel(twin) is first
+    for array in (first.support, first.probs, first.scatter):
+        with pytest.raises(ValueError):
+            array[0] = 0
+    for seed in range(42, 48):  # the cache keeps the newest four kernels
+        sampling.cached_kernel(rlrates.garnet(9, 2, 3, seed=seed))
+    assert len(sampling._KERNELS) <= 4 and mdp.fingerprint not in sampling._KERNELS
