@@ -139,10 +139,10 @@ def group_rows(table: Columns, keys: Iterable[str], within: str | None = None) -
     for column in ordered:
         change[1:] |= column[1:] != column[:-1]
     starts = np.flatnonzero(change)
-    counts = np.diff(np.append(starts, len(order)))
+    counts = np.diff(np.concatenate((starts, [len(order)])))
     label = np.cumsum(change) - 1
-    return Groups(Columns({name: column[starts] for name, column in zip(names, ordered)}), order, starts, counts,
-                  label)
+    return Groups(Columns._made({name: column[starts] for name, column in zip(names, ordered)}, len(starts)), order,
+                  starts, counts, label)
 
 
 def group_stats(values: np.ndarray, groups: Groups) -> dict[str, np.ndarray]:
@@ -158,13 +158,13 @@ def group_stats(values: np.ndarray, groups: Groups) -> dict[str, np.ndarray]:
     ordered = values[groups.order].astype(float, copy=False)
     starts, counts = groups.starts, groups.counts
     mean = np.add.reduceat(ordered, starts) / counts
-    with np.errstate(invalid="ignore", divide="ignore"):  # inf - inf in a cell with an infinite error
+    # inf - inf in a cell with an infinite error, 0 / 0 for one value, two huge middles summed
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
         deviation = ordered - mean[groups.label]
         variance = np.add.reduceat(deviation * deviation, starts) / (counts - 1)
-    sd = np.sqrt(variance)
-    sd[np.isnan(sd)] = 0.0  # one value (no spread to measure), or infinite errors
-    low_mid, high_mid = starts + (counts - 1) // 2, starts + counts // 2
-    with np.errstate(over="ignore"):
+        sd = np.sqrt(variance)
+        sd[np.isnan(sd)] = 0.0  # one value (no spread to measure), or infinite errors
+        low_mid, high_mid = starts + (counts - 1) // 2, starts + counts // 2
         median = np.where(low_mid == high_mid, ordered[low_mid], (ordered[low_mid] + ordered[high_mid]) / 2)
     return {"count": counts.astype(np.int64), "mean": mean, "median": median, "sd": sd,
             "high": np.maximum.reduceat(ordered, starts), "low": np.minimum.reduceat(ordered, starts)}
