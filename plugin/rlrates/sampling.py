@@ -11,7 +11,8 @@ stream. Both views are of the same draw and both are read-only.
 
 Streams: every batch is rebuilt from a :class:`numpy.random.SeedSequence` given
 by an integer entropy and a spawn key of stable identifiers (see
-:func:`cell_seed`), so any cell of a sweep can be re-drawn alone, in any process.
+:mod:`rlrates.streams`), so any cell of a sweep can be re-drawn alone, in any process.
+Dense count views are written into reused memory (:mod:`rlrates.buffers`).
 """
 
 from __future__ import annotations

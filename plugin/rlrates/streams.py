@@ -9,8 +9,8 @@ alone, in any process, in any order (:func:`block_key`, :func:`cell_seed`).
 from __future__ import annotations
 
 import hashlib
-from functools import lru_cache
 from collections.abc import Sequence
+from functools import lru_cache
 from typing import NamedTuple
 
 import numpy as np
@@ -65,7 +65,7 @@ def block_key(master_seed: int, context: str, gamma: float, n: int, start: int, 
     """The seed of replicates ``start .. stop - 1`` of one sweep cell, drawn together, as a :class:`StreamKey`.
 
     Key: (hash of ``context``, gamma, n, start, stop). A replicate is rebuilt from
-    its block's seed and its position in the block (see :func:`draw_block`).
+    its block's seed and its position in the block (see :func:`rlrates.sampling.draw_block`).
     """
     return StreamKey(int(master_seed), (*stable_words(context), gamma_key(gamma), int(n), int(start), int(stop)))
 
