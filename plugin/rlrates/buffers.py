@@ -89,11 +89,6 @@ class ReusedBuffers:
             self._entries.remove(idle)
         return True
 
-    def clear(self) -> None:
-        """Forget every kept buffer (the views still alive keep theirs)."""
-        with self._lock:
-            self._entries.clear()
-
 
 #: The buffers of the dense count views of one process.
 COUNT_VIEWS = ReusedBuffers()

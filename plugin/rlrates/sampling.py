@@ -108,24 +108,15 @@ class SupportKernel:
         columns.append(left)
         return np.stack(columns, axis=-1)
 
-    def dense_counts(self, drawn: IntArray) -> IntArray:
-        """Scatter support counts (..., S*A, k) into a dense (..., S*A, S) array."""
-        rows, width = self.support.shape
-        blocks = drawn.size // (rows * width)
-        counts = np.zeros(blocks * rows * self.states, dtype=np.int64)
-        offsets = self.scatter if blocks == 1 else (self.scatter + rows * self.states * np.arange(blocks)[:, None]).ravel()
-        if self.sparse:  # padding may repeat a successor's index: add (padding counts are 0)
-            np.add.at(counts, offsets, drawn.ravel())
-        else:  # a dense kernel's support columns are distinct states
-            counts[offsets] = drawn.ravel()
-        return counts.reshape(*drawn.shape[:-1], self.states)
-
     def dense_view(self, drawn: IntArray) -> IntArray:
         """Support counts (..., S*A, k) of a dense kernel as a read-only (..., S*A, S) view.
 
-        The same numbers as :meth:`dense_counts`, written into memory reused from
-        earlier views that nobody holds any more (:mod:`rlrates.buffers`).
+        Scattered into memory reused from earlier views that nobody holds any more
+        (:mod:`rlrates.buffers`). A sparse kernel's padding repeats a successor's
+        index, so its counts are a sparse array instead (:meth:`sparse_counts`).
         """
+        if self.sparse:
+            raise ValueError("dense_view needs a dense kernel; a sparse MDP's counts are sparse_counts")
         rows, width = self.support.shape
         blocks = drawn.size // (rows * width)
         flat, view = COUNT_VIEWS.take(blocks * rows * self.states, self.scatter)
@@ -310,8 +301,7 @@ class Batch:
     def counts(self) -> Any:
         """How often each successor was sampled: a read-only (S, A, S) int array, or for a sparse
         MDP a scipy.sparse CSR array of shape (S*A, S) (row ``s * A + a``) with read-only data."""
-        whole = self._block._whole  # a small block's views, once built
-        return whole[self._replicate] if whole is not None else self._block.counts(self._replicate)
+        return self._block.counts(self._replicate)
 
     @property
     def next_states(self) -> IntArray:

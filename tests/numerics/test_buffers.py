@@ -77,12 +77,20 @@ def test_count_views_an_estimator_keeps_never_change_under_later_draws() -> None
 
 
 def test_counts_read_from_reused_memory_equal_the_scatter_of_the_draw() -> None:
-    # dense views built into reused buffers hold exactly the support counts drawn, whatever came before
+    # dense views built into reused buffers hold exactly the support counts drawn, whatever came
+    # before; the reference scatter is numpy's np.add.at into fresh zeros
     mdp = rlrates.garnet(10, 2, 3, seed=5)
     kernel = mdp_kernel(mdp)
     for k in range(6):
         batches = draw_block(kernel, 32, 4, block_seed(k, "reuse", 0.5, 32, 0, 4))
         drawn = batches[0]._block.drawn
-        fresh = kernel.dense_counts(drawn).reshape(4, 10, 2, 10)
+        fresh = np.zeros((4, 20, 10), dtype=np.int64)
+        np.add.at(fresh, (np.arange(4)[:, None, None], np.arange(20)[None, :, None], kernel.support[None]), drawn)
         for r, batch in enumerate(batches):
-            np.testing.assert_array_equal(batch.counts, fresh[r])
+            np.testing.assert_array_equal(batch.counts, fresh[r].reshape(10, 2, 10))
+
+
+def test_a_sparse_kernel_has_no_dense_view() -> None:
+    kernel = mdp_kernel(rlrates.gridworld(3, 3, walls=(), sparse=True))
+    with pytest.raises(ValueError, match="needs a dense kernel"):
+        kernel.dense_view(np.zeros((kernel.support.shape[0], kernel.support.shape[1]), dtype=np.int64))
