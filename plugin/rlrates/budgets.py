@@ -155,4 +155,6 @@ def resolve_budget(budget: object, **overrides: Any) -> Budget:
         base = BUDGETS[budget]
     else:
         raise ValueError(f"unknown `budget` {budget!r}; choose one of {', '.join(BUDGETS)} or pass a Budget")
-    return base.with_overrides(**overrides) if overrides else base
+    if all(value is None for value in overrides.values()) and overrides.keys() <= base.__dataclass_fields__.keys():
+        return base  # overrides left at None change nothing: the (frozen) budget is used as it is, not rebuilt
+    return base.with_overrides(**overrides)

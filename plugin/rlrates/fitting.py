@@ -133,26 +133,31 @@ def fit_discounts(cells: Columns, gammas: list[float], window: int) -> tuple[lis
     rows: list[dict[str, object]] = []
     fitted: list[DiscountFit] = []
     # one sort by (gamma, n); each discount's cells are then a slice, in the order a filter and a sort by n give
-    ordered = cells.select("gamma", "n", "zero", "replicates", "log_mean", "log_var").sort("gamma", "n")
+    # (plain arrays: a summary has a few dozen cells, where a table's per-operation overheads dominate)
+    order = np.lexsort((cells["n"], cells["gamma"])) if len(cells) else np.zeros(0, dtype=np.int64)
+    gamma_of, n_of, zero_of = cells["gamma"][order], cells["n"][order], cells["zero"][order]
+    replicates_of, log_mean_of, log_var_of = cells["replicates"][order], cells["log_mean"][order], cells["log_var"][order]
     for gamma in gammas:
-        own = rows_of(ordered, gamma)
-        window_cells = own[max(len(own) - window, 0):]
-        row: dict[str, object] = {"gamma": gamma, "H": 1.0 / (1.0 - gamma), "points": len(window_cells)}
-        positive = window_cells[~window_cells["zero"]]
-        if len(window_cells) and bool(window_cells["zero"][-1]):
+        stop = int(gamma_of.searchsorted(gamma, side="right"))
+        start = max(int(gamma_of.searchsorted(gamma, side="left")), stop - window)  # the window's cells
+        row: dict[str, object] = {"gamma": gamma, "H": 1.0 / (1.0 - gamma), "points": stop - start}
+        positive = ~zero_of[start:stop]
+        count = int(np.add.reduce(positive))
+        if stop > start and bool(zero_of[stop - 1]):
             row["state"] = "vanished"
-        elif len(positive) < 3:
+        elif count < 3:
             row["state"] = "too few asymptotic points"
         else:
-            k = max(3, math.ceil(len(positive) / 2))
-            x, y, var = np.log(np.asarray(positive["n"], dtype=float)), positive["log_mean"], positive["log_var"]
-            replicates = positive["replicates"]
+            k = max(3, math.ceil(count / 2))
+            n = n_of[start:stop][positive]
+            x, y, var = np.log(np.asarray(n, dtype=float)), log_mean_of[start:stop][positive], log_var_of[start:stop][positive]
+            replicates = replicates_of[start:stop][positive]
             whole, upper, lower = (fit_slope(x[part], y[part], var[part],
                                              float(max(int(np.minimum.reduce(replicates[part])) - 1, 1)))
-                                   for part in (slice(None), slice(len(positive) - k, None), slice(None, k)))
+                                   for part in (slice(None), slice(count - k, None), slice(None, k)))
             fitted.append(DiscountFit(float(gamma), whole, upper, Slope(
                 upper.estimate - lower.estimate, math.hypot(upper.se, lower.se), upper.df, k)))
-            row.update(state="fitted", n_min=int(positive["n"].min()), n_max=int(positive["n"].max()),
+            row.update(state="fitted", n_min=int(n.min()), n_max=int(n.max()),
                        slope=whole.estimate, slope_se=whole.se, upper_slope=upper.estimate, upper_se=upper.se)
         rows.append(row)
     return rows, fitted

@@ -274,7 +274,6 @@ class Batch:
     def __init__(self, block: _BlockDraw, replicate: int, seed: StreamKey, path: tuple[int, ...] = ()) -> None:
         self._block = block
         self._replicate = replicate
-        self._n = block.n
         # the order of next_states comes from the child (*path, 1) of `seed`, built on demand
         self._seed = seed
         self._path = path
@@ -282,7 +281,7 @@ class Batch:
     @property
     def n(self) -> int:
         """Samples per state-action pair."""
-        return self._n
+        return self._block.n
 
     @property
     def states(self) -> int:
@@ -309,16 +308,16 @@ class Batch:
         if self._next_states is None:
             ordered = self._block.successors(self._replicate)
             shuffled = np.random.default_rng(self._seed.child(*self._path, 1)).permuted(ordered, axis=1)
-            self._next_states = frozen(shuffled.reshape(self.states, self.actions, self._n), copy=False)
+            self._next_states = frozen(shuffled.reshape(self.states, self.actions, self._block.n), copy=False)
         return self._next_states
 
     @property
     def empirical_P(self) -> Any:
         """The plug-in model ``counts / n`` (a fresh, writable array; sparse (S*A, S) for a sparse MDP)."""
-        return self.counts / float(self._n)
+        return self.counts / float(self._block.n)
 
     def __repr__(self) -> str:
-        return f"Batch(states={self.states}, actions={self.actions}, n={self._n})"
+        return f"Batch(states={self.states}, actions={self.actions}, n={self._block.n})"
 
 
 def _validate_n(n: object) -> int:

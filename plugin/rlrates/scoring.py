@@ -52,8 +52,10 @@ class CellScorer:
             return None
         queued, self.pending = self.pending, []
         assert self.block is not None
-        errors = np.abs(self.block[: len(queued)] - self.truth.value).max(axis=tuple(range(1, 1 + len(self.shape))))
-        if np.isfinite(errors).all():  # the usual case: every queued estimate scores
+        gaps = np.subtract(self.block[: len(queued)], self.truth.value)
+        np.abs(gaps, out=gaps)
+        errors = np.maximum.reduce(gaps.reshape(len(queued), -1), axis=1)  # each estimate's largest gap
+        if math.isfinite(float(np.add.reduce(errors))):  # the usual case: every queued estimate scores
             self.rows.extend((replicate, error, seconds) for (replicate, seconds), error in zip(queued, errors.tolist()))
             return None
         for index, ((replicate, seconds), error) in enumerate(zip(queued, errors.tolist())):

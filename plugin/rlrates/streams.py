@@ -35,13 +35,46 @@ def gamma_key(gamma: float) -> int:
     return int(round(float(gamma) * 1_000_000_000))
 
 
+def _words(value: int) -> list[int]:
+    """A non-negative int as numpy's SeedSequence reads one: its 32-bit words, least significant first ([0] for 0)."""
+    words = [value & 0xFFFFFFFF]
+    value >>= 32
+    while value:
+        words.append(value & 0xFFFFFFFF)
+        value >>= 32
+    return words
+
+
+def _assembled(entropy: object, key: tuple[int, ...], pool_size: int) -> list[int] | None:
+    """The entropy words SeedSequence(entropy, spawn_key=key) mixes, or None unless entropy and key are non-negative ints."""
+    if not key or type(entropy) is not int or entropy < 0:
+        return None
+    words = _words(entropy)
+    words.extend([0] * (pool_size - len(words)))
+    for part in key:
+        if type(part) is not int or part < 0:
+            return None
+        if part <= 0xFFFFFFFF:
+            words.append(part)
+        else:
+            words.extend(_words(part))
+    return words
+
+
 class StreamKey(NamedTuple):
     """A :class:`numpy.random.SeedSequence` by its entropy and spawn key, not built yet.
 
     A block draws from its seed's children only; building the seed itself as well
-    would cost one more SeedSequence (about 25 us) per block. ``child(*path)`` is the
+    would cost one more SeedSequence per block. ``child(*path)`` is the
     SeedSequence at ``(*spawn_key, *path)``, as ``seed.spawn`` would make it but
     without advancing any spawn counter; ``sequence()`` is the seed itself.
+
+    A child is built from its assembled entropy: the entropy's 32-bit words, zeros
+    up to the pool size, then the words of the spawn key, which is how SeedSequence
+    assembles (entropy, spawn_key) before mixing (the same pool, the same stream:
+    tests/numerics/test_sampling.py compares them). Given as one uint32 array it
+    costs about a third of the construction from Python ints, whose words numpy
+    converts one int at a time.
     """
 
     entropy: int | Sequence[int]
@@ -55,12 +88,19 @@ class StreamKey(NamedTuple):
         return cls(entropy, tuple(seq.spawn_key), seq.pool_size)
 
     def child(self, *path: int) -> np.random.SeedSequence:
+        key = (*self.spawn_key, *path)
+        words = _assembled(self.entropy, key, self.pool_size)
+        if words is None:  # not plain non-negative ints: the usual construction (it also says what is wrong)
+            return np.random.SeedSequence(self.entropy, spawn_key=key, pool_size=self.pool_size)
         if self.pool_size == 4:  # numpy's default pool size: passing it costs a fifth of the construction
-            return np.random.SeedSequence(self.entropy, spawn_key=(*self.spawn_key, *path))
-        return np.random.SeedSequence(self.entropy, spawn_key=(*self.spawn_key, *path), pool_size=self.pool_size)
+            return np.random.SeedSequence(np.array(words, dtype=np.uint32))
+        return np.random.SeedSequence(np.array(words, dtype=np.uint32), pool_size=self.pool_size)
 
     def sequence(self) -> np.random.SeedSequence:
-        return self.child()
+        """The seed itself, built with its spawn key (logged draws read it as a SeedSequence)."""
+        if self.pool_size == 4:
+            return np.random.SeedSequence(self.entropy, spawn_key=self.spawn_key)
+        return np.random.SeedSequence(self.entropy, spawn_key=self.spawn_key, pool_size=self.pool_size)
 
 
 def block_key(master_seed: int, context: str, gamma: float, n: int, start: int, stop: int) -> StreamKey:

@@ -363,7 +363,10 @@ def rows_to_table(outcomes: list[CellOutcome], coverage: Mapping[tuple[float, in
         gamma, 1.0 / (1.0 - gamma), np.repeat(np.array([outcome.n for outcome in kept], dtype=np.int64), sizes),
         rows[:, 0].astype(np.int64), rows[:, 1], rows[:, 2])))  # gamma, H, n, replicate, error, seconds
     if coverage is None:
-        return Columns(data, len(gamma)).sort("gamma", "n", "replicate")
+        table = Columns(data, len(gamma))
+        # the plan runs cells in (gamma, n, replicate block) order, each block's replicates in order: sorted already
+        starts = [(outcome.gamma, outcome.n, outcome.rows[0][0]) for outcome in kept]
+        return table if starts == sorted(starts) else table.sort("gamma", "n", "replicate")
     levels = np.repeat(np.array([outcome.level for outcome in kept], dtype=np.int64), sizes)
     data["behaviour"] = levels
     data["C"] = np.array([coverage[(g, b)] for g, b in zip(data["gamma"].tolist(), levels.tolist())], dtype=float)

@@ -59,15 +59,19 @@ class Decision:
 
 
 def _window_rank(gamma: np.ndarray, n: np.ndarray, usable: np.ndarray) -> np.ndarray:
-    """Per row, the rank of its n among the usable rows of its discount, largest first (ties in row order); inf if unusable."""
+    """Per row, the rank of its n among the usable rows of its discount, largest first (ties in row order); inf if unusable.
+
+    A summary has a few dozen cells at most: sorting them in Python is cheaper than numpy's call overheads.
+    """
     rank = np.full(len(n), np.inf)
     rows = np.flatnonzero(usable)
-    if len(rows):
-        order = rows[np.lexsort((rows, -n[rows].astype(float), gamma[rows]))]
-        g = gamma[order]
-        start = np.flatnonzero(np.concatenate(([True], g[1:] != g[:-1])))
-        position = np.arange(len(order)) - np.repeat(start, np.diff(np.concatenate((start, [len(order)]))))
-        rank[order] = position + 1
+    by_gamma: dict[float, list[tuple[float, int]]] = {}
+    for row, g, value in zip(rows.tolist(), gamma[rows].tolist(), n[rows].tolist()):
+        by_gamma.setdefault(g, []).append((-float(value), row))
+    for members in by_gamma.values():
+        members.sort()  # largest n first, ties in row order
+        for position, (_, row) in enumerate(members, 1):
+            rank[row] = position
     return rank
 
 
@@ -89,13 +93,13 @@ def mark_cells(summary: Columns | Any, budget: Budget, scale: dict[float, float]
     saturated = ~zero & (cells["mean"] > limit)
     usable = ~(early | saturated)
     in_window = usable & (_window_rank(gamma, np.asarray(cells["n"]), usable) <= window)
-    reasons = np.select(
-        [early, saturated, ~in_window, zero],
-        [f"pre-asymptotic (n < {budget.min_n_per_horizon:g} H)",
-         f"saturated (mean error above {budget.saturation:g} of the error scale)",
-         "below the fit window", "zero error"],
-        default="",
-    ) if len(cells) else np.zeros(0, dtype=str)
+    texts = (f"pre-asymptotic (n < {budget.min_n_per_horizon:g} H)",
+             f"saturated (mean error above {budget.saturation:g} of the error scale)", "below the fit window",
+             "zero error")
+    # the first reason that applies, as numpy.select would pick it (and in its string dtype), without its overheads
+    reasons = np.array([texts[0] if e else texts[1] if s else texts[2] if not w else texts[3] if z else ""
+                        for e, s, w, z in zip(early.tolist(), saturated.tolist(), in_window.tolist(), zero.tolist())],
+                       dtype=f"<U{max(map(len, texts))}") if len(cells) else np.zeros(0, dtype=str)
     return cells.with_columns(early=early, saturated=saturated, usable=usable, fitted=in_window & ~zero,
                               left_out=reasons)
 

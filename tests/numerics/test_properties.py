@@ -156,3 +156,19 @@ def test_sparse_counts_agree_with_next_states(mdp: TabularMDP, n: int, seed: int
     np.testing.assert_array_equal(recount, counts)
     np.testing.assert_array_equal(counts.sum(axis=1), n)
     assert counts[mdp.P.reshape(S * A, S) == 0].sum() == 0
+
+
+@SETTINGS
+@given(entropy=st.integers(0, 2**130), key=st.lists(st.integers(0, 2**70), max_size=8),
+       path=st.lists(st.integers(0, 2**40), max_size=3), pool_size=st.sampled_from([4, 5, 8]))
+def test_a_stream_key_child_is_the_seed_sequence_of_its_entropy_and_spawn_key(entropy: int, key: list[int],
+                                                                              path: list[int], pool_size: int) -> None:
+    # numpy's SeedSequence(entropy, spawn_key=...) is the reference; StreamKey builds the same
+    # pool from the words SeedSequence assembles (entropy, zeros up to the pool size, spawn key)
+    from rlrates.streams import StreamKey
+
+    child = StreamKey(entropy, tuple(key), pool_size).child(*path)
+    reference = np.random.SeedSequence(entropy, spawn_key=(*key, *path), pool_size=pool_size)
+    np.testing.assert_array_equal(child.generate_state(8), reference.generate_state(8))
+    np.testing.assert_array_equal(np.random.default_rng(child).integers(0, 2**62, size=4),
+                                  np.random.default_rng(reference).integers(0, 2**62, size=4))

@@ -532,3 +532,11 @@ def test_kernels_are_built_once_per_mdp_and_cannot_be_written() -> None:
     for seed in range(42, 48):  # the cache keeps the newest four kernels
         sampling.cached_kernel(rlrates.garnet(9, 2, 3, seed=seed))
     assert len(sampling._KERNELS) <= 4 and mdp.fingerprint not in sampling._KERNELS
+
+
+def test_a_stream_key_with_a_negative_key_part_is_refused_as_seed_sequence_refuses_it() -> None:
+    # numpy's own message for a negative spawn-key word (the fast construction steps aside)
+    from rlrates.streams import StreamKey
+
+    with pytest.raises(ValueError, match="negative"):
+        StreamKey(3, (1, -2)).child(0)
