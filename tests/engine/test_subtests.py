@@ -242,3 +242,44 @@ def test_an_unclear_factor_names_the_interval_the_limit_and_the_replicates_that_
     assert "undecided sub-test(s): rate" in text
     assert "straddles the tested limit -0.420 (claim -0.5 + tolerance 0.08)" in text
     assert "replicates per cell (now 24) would settle it" in text
+
+
+# ------------------------------------------------------------------------------------ cell marks
+
+
+def test_left_out_reasons_are_what_numpy_select_picks_in_its_dtype() -> None:
+    # numpy.select is the reference: the first condition that holds names the reason, "" when none does
+    import numpy as np
+
+    from rlrates.verdict import _left_out
+
+    texts = ("pre-asymptotic (n < 10 H)", "saturated (mean error above 0.5 of the error scale)",
+             "below the fit window", "zero error")
+    for seed in range(100):
+        rng = np.random.default_rng(seed)
+        rows = int(rng.integers(1, 40))
+        conditions = [rng.random(rows) < rng.random() for _ in texts]
+        expected = np.select(conditions, texts, default="")
+        got = _left_out(conditions, texts)
+        assert got.dtype == expected.dtype and got.tolist() == expected.tolist()
+
+
+def test_window_ranks_order_each_discounts_usable_n_largest_first_ties_in_row_order() -> None:
+    # reference: numpy.lexsort on (row, -n, gamma), ranks counted within each discount (common practice)
+    import numpy as np
+
+    from rlrates.verdict import _window_rank
+
+    for seed in range(100):
+        rng = np.random.default_rng(seed)
+        rows = int(rng.integers(1, 30))
+        gamma = rng.choice([0.5, 0.75, 0.9], size=rows)
+        n = rng.choice([64, 128, 256, 512], size=rows)
+        usable = rng.random(rows) < 0.7
+        expected = np.full(rows, np.inf)
+        kept = np.flatnonzero(usable)
+        order = kept[np.lexsort((kept, -n[kept].astype(float), gamma[kept]))]
+        for g in np.unique(gamma[order]):
+            members = order[gamma[order] == g]
+            expected[members] = np.arange(1, len(members) + 1)
+        np.testing.assert_array_equal(_window_rank(gamma, n, usable), expected)

@@ -113,3 +113,20 @@ def test_new_columns_must_have_the_tables_length() -> None:
     assert table.with_columns(b=np.ones(3))["b"].tolist() == [1.0, 1.0, 1.0]
     with pytest.raises(ValueError, match="must have 3 rows"):
         table.with_columns(b=np.ones(2))
+
+
+@pytest.mark.parametrize("shuffled", [False, True])
+def test_the_error_table_of_cell_outcomes_is_sorted_as_pandas_sorts_it(shuffled: bool) -> None:
+    # outcomes in plan order give a table sorted already (rows_to_table then skips its sort);
+    # outcomes in any other order are sorted: pandas' sort_values is the reference either way
+    from rlrates.sweep import CellOutcome, rows_to_table
+
+    rng = np.random.default_rng(3)
+    outcomes = [CellOutcome(gamma, n, [(r, float(rng.random()), 0.0) for r in range(start, start + 4)])
+                for gamma in (0.5, 0.9) for n in (64, 128) for start in (0, 4)]
+    if shuffled:
+        outcomes = [outcomes[i] for i in rng.permutation(len(outcomes))]
+    ours = rows_to_table(outcomes).to_frame()
+    reference = ours.sort_values(["gamma", "n", "replicate"], ignore_index=True)
+    pd.testing.assert_frame_equal(ours, reference, check_exact=True)
+    assert len(ours) == 32
