@@ -55,7 +55,9 @@ class CellScorer:
         gaps = np.subtract(self.block[: len(queued)], self.truth.value)
         np.abs(gaps, out=gaps)
         errors = np.maximum.reduce(gaps.reshape(len(queued), -1), axis=1)  # each estimate's largest gap
-        if math.isfinite(float(np.add.reduce(errors))):  # the usual case: every queued estimate scores
+        # the usual case, every queued estimate scores: a finite sum (a NaN or inf error, or a sum that
+        # overflows, takes the row-by-row path below, which scores the finite ones alike)
+        if math.isfinite(float(np.add.reduce(errors))):
             self.rows.extend((replicate, error, seconds) for (replicate, seconds), error in zip(queued, errors.tolist()))
             return None
         for index, ((replicate, seconds), error) in enumerate(zip(queued, errors.tolist())):

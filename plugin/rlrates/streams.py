@@ -72,7 +72,7 @@ class StreamKey(NamedTuple):
     A child is built from its assembled entropy: the entropy's 32-bit words, zeros
     up to the pool size, then the words of the spawn key, which is how SeedSequence
     assembles (entropy, spawn_key) before mixing (the same pool, the same stream:
-    tests/numerics/test_sampling.py compares them). Given as one uint32 array it
+    tests/numerics/test_properties.py compares them). Given as one uint32 array it
     costs about a third of the construction from Python ints, whose words numpy
     converts one int at a time.
     """
