@@ -98,8 +98,6 @@ class StreamKey(NamedTuple):
 
     def sequence(self) -> np.random.SeedSequence:
         """The seed itself, built with its spawn key (logged draws read it as a SeedSequence)."""
-        if self.pool_size == 4:
-            return np.random.SeedSequence(self.entropy, spawn_key=self.spawn_key)
         return np.random.SeedSequence(self.entropy, spawn_key=self.spawn_key, pool_size=self.pool_size)
 
 

@@ -197,3 +197,13 @@ def test_a_discount_without_enough_asymptotic_points_is_not_passed_unseen(garnet
         settled = rlrates.check(reference.plugin_q_pi, garnet, rlrates.Claim(n=-0.5), seed=0, n_grid=(32, 64, 128),
                                 budget=BUDGETS["ci"].with_overrides(n_doublings=3))
     assert settled.status == "pass", settled.message
+
+
+def test_a_budget_with_every_override_unset_is_the_budget_itself_and_unknown_names_still_raise() -> None:
+    # the check passes n_grid=None, gammas=None, ... on every call: those change nothing, and are not rebuilt
+    from rlrates.budgets import resolve_budget
+
+    assert resolve_budget("ci", n_grid=None, gammas=None, replicates=None, zero_level=None) is BUDGETS["ci"]
+    assert resolve_budget("ci", replicates=8).replicates == 8
+    with pytest.raises(TypeError, match="unknown budget setting"):
+        resolve_budget("ci", n_gird=None)
