@@ -219,7 +219,7 @@ class _GoesWrongAt:
 ])
 def test_a_bad_estimate_inside_a_cell_names_its_replicate_and_keeps_the_rows_before_it(
         garnet: rlrates.TabularMDP, wrong: Any, match: str | None) -> None:
-    # Errors of plain float64 Q-value arrays are scored a cell at a time (rlrates.sweep._Scorer): the
+    # Errors of plain float64 Q-value arrays are scored a cell at a time (rlrates.scoring.CellScorer): the
     # failure must still be the first bad call, in replicate order, with every row before it kept.
     reference_result = rlrates.check(reference.plugin_q_pi, garnet, CLAIM, seed=3)
     result = rlrates.check(_GoesWrongAt(5, wrong), garnet, CLAIM, seed=3)
