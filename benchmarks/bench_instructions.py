@@ -5,9 +5,9 @@
 
 ``bench_engine.py`` times the same three columns, and on a shared virtual machine its
 ratios move with the neighbours: in a noisy spell the interpreter-heavy own work slows
-down by up to 80% while the floor's draws (a tight C loop) barely move, so the plugin /
+down about twice as much as the floor's draws (a tight C loop), so the plugin /
 floor ratio of one run can read 1.43 and of the next 1.76 for the same code. Instruction
-counts do not depend on the neighbours (repeat runs agree to about 0.5%), so this script
+counts do not depend on the neighbours (repeat runs agree to about 1 to 1.5%), so this script
 is the one to compare two versions of the engine with; the timed script stays the
 measure of the issue's targets, which are about seconds.
 
