@@ -7,7 +7,7 @@
 ratios move with the neighbours: in a noisy spell the interpreter-heavy own work slows
 down about twice as much as the floor's draws (a tight C loop), so the plugin /
 floor ratio of one run can read 1.43 and of the next 1.76 for the same code. Instruction
-counts do not depend on the neighbours (repeat runs agree to about 1 to 1.5%), so this script
+counts do not depend on the neighbours (repeat runs agree to about 2%), so this script
 is the one to compare two versions of the engine with; the timed script stays the
 measure of the issue's targets, which are about seconds.
 
@@ -79,8 +79,8 @@ def _child(column: str, repeats: int) -> None:
         flat = np.asarray(mdp.P).reshape(mdp.states * mdp.actions, mdp.states)
         batches = [be._CountsBatch(rng.multinomial(n, flat).reshape(mdp.P.shape), n)
                    for _ in budget.gammas for n in budget.n_grid for _ in range(budget.replicates)]
-        problems = [rlrates.Problem(mdp.states, mdp.actions, mdp.R, gamma, np.full((20, 4), 0.25), "q_pi")
-                    for gamma in budget.gammas]
+        uniform = np.full((mdp.states, mdp.actions), 1.0 / mdp.actions)
+        problems = [rlrates.Problem(mdp.states, mdp.actions, mdp.R, gamma, uniform, "q_pi") for gamma in budget.gammas]
 
         def once(seed: int) -> None:
             for index, batch in enumerate(batches):
@@ -107,6 +107,8 @@ def main(argv: list[str] | None = None) -> None:
     parser.add_argument("--checks", type=int, default=6, help="repetitions per column (default 6)")
     parser.add_argument("--child", nargs=2, metavar=("COLUMN", "REPEATS"), help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
+    if args.checks < 1:
+        parser.error(f"--checks must be at least 1, got {args.checks}")
     if args.child:
         _child(args.child[0], int(args.child[1]))
         return
@@ -120,7 +122,10 @@ def main(argv: list[str] | None = None) -> None:
                for column in _COLUMNS}
         calls = [int(line.split()[1]) for line in runs["plugin", args.checks].result()[1].split("\n")
                  if line.startswith("calls ")]
-    budget_calls = 360  # 3 discounts x 5 sample sizes x 24 replicates
+    from rlrates.budgets import BUDGETS  # the grid bench_engine.BUDGET runs (imports no numpy)
+
+    ci = BUDGETS["ci"]
+    budget_calls = len(ci.gammas) * len(ci.n_grid) * ci.replicates  # the estimator column's batches, the loop's calls
     per_call = per["estimator"] / budget_calls
     plugin = per["plugin"] - per_call * sum(calls) / len(calls)
     loop = per["loop"] - per_call * budget_calls
